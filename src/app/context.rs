@@ -1,0 +1,135 @@
+//! The report context: everything the templates show, as one JSON value built from the spec,
+//! the execution and results.json. Aggregates only; the respondent table never enters it.
+
+use serde_json::{Value, json};
+
+use crate::pipeline::executor::Execution;
+use crate::report::diagram::{Link, Node, diagram};
+use crate::report::svg::heatmap;
+use crate::spec::SpecFile;
+use crate::steps::{Artifact, StepKind, unavailable_analyses};
+
+pub fn report_context(spec: &SpecFile, execution: &Execution, results: &Value) -> Value {
+    let s = &spec.spec;
+    let constructs: Vec<Value> = s
+        .constructs
+        .iter()
+        .map(|(name, c)| json!({"name": name, "items": c.items, "reliability": c.reliability}))
+        .collect();
+    let steps: Vec<Value> = execution
+        .outcomes
+        .iter()
+        .map(|o| json!({"kind": o.kind.name(), "key": o.key.short(), "cached": o.cached, "seconds": o.seconds, "description": o.description}))
+        .collect();
+    let covariance = match execution.artifacts.get(&StepKind::Covariance) {
+        Some(Artifact::Covariance(c)) => {
+            let groups: Vec<String> = match execution.artifacts.get(&StepKind::Load) {
+                Some(Artifact::Load(l)) => l.summary.items.iter().map(|i| i.construct.clone()).collect(),
+                _ => Vec::new(),
+            };
+            let mut counts = serde_json::Map::new();
+            for m in c.method.values() {
+                let key = serde_json::to_value(m).ok().and_then(|v| v.as_str().map(str::to_string)).unwrap_or_default();
+                let entry = counts.entry(key).or_insert(Value::from(0));
+                *entry = Value::from(entry.as_u64().unwrap_or(0) + 1);
+            }
+            let per_item: Vec<Value> = c
+                .items
+                .iter()
+                .map(|item| {
+                    let mut methods: Vec<(String, usize)> = Vec::new();
+                    for (pair, m) in &c.method {
+                        let mut names = pair.splitn(2, '|');
+                        if names.next() == Some(item.as_str()) || names.next() == Some(item.as_str()) {
+                            let label = serde_json::to_value(m)
+                                .ok()
+                                .and_then(|v| v.as_str().map(str::to_string))
+                                .unwrap_or_default();
+                            match methods.iter_mut().find(|(l, _)| *l == label) {
+                                Some(entry) => entry.1 += 1,
+                                None => methods.push((label, 1)),
+                            }
+                        }
+                    }
+                    let merges = c.merges.iter().filter(|m| &m.item == item).count();
+                    json!({
+                        "item": item,
+                        "kind": c.kind.get(item),
+                        "methods": methods.iter().map(|(l, k)| format!("{l} ({k})")).collect::<Vec<_>>().join(", "),
+                        "merges": merges,
+                    })
+                })
+                .collect();
+            json!({
+                "result": results.get("covariance"),
+                "per_item": per_item,
+                "heatmap": heatmap(&c.items, &groups, &c.correlation),
+                "method_counts": counts,
+                "min_n": c.min_n(),
+                "max_n": c.n.iter().flatten().copied().max().unwrap_or(0),
+            })
+        }
+        _ => Value::Null,
+    };
+    let tiers: Vec<Value> = s.knowledge.tiers.iter().map(|t| json!(t)).collect();
+    let diagram = structure_diagram(spec, execution);
+    json!({
+        "title": s.title,
+        "spec_path": spec.path.display().to_string(),
+        "tool_version": env!("CARGO_PKG_VERSION"),
+        "data": results.get("data"),
+        "source": if s.data.matrix.is_some() { "matrix" } else { "waves" },
+        "constructs": constructs,
+        "knowledge": {"tiers": tiers, "forbid": s.knowledge.forbid, "require": s.knowledge.require},
+        "covariance": covariance,
+        "purify": results.get("purify"),
+        "discover": results.get("discover"),
+        "measure": results.get("measure"),
+        "structure": results.get("structure"),
+        "diagram": diagram,
+        "skipped": unavailable_analyses(s),
+        "steps": steps,
+    })
+}
+
+/// The path diagram, when the structure search ran.
+fn structure_diagram(spec: &SpecFile, execution: &Execution) -> Option<String> {
+    let (Some(Artifact::Structure(st)), Some(Artifact::Measure(m))) =
+        (execution.artifacts.get(&StepKind::Structure), execution.artifacts.get(&StepKind::Measure))
+    else {
+        return None;
+    };
+    let tiers = &spec.spec.knowledge.tiers;
+    let last = tiers.len();
+    let names: Vec<&String> = m.constructs.keys().collect();
+    let nodes: Vec<Node> = m
+        .constructs
+        .iter()
+        .map(|(name, items)| Node {
+            name: name.clone(),
+            column: tiers.iter().position(|t| t.contains(name)).unwrap_or(last),
+            items: items.clone(),
+        })
+        .collect();
+    let index = |n: &String| names.iter().position(|x| *x == n);
+    let links: Vec<Link> = st
+        .edges
+        .iter()
+        .filter_map(|e| {
+            let label = st
+                .effects
+                .iter()
+                .find(|f| f.from == e.from && f.to == e.to)
+                .and_then(|f| f.std)
+                .map(|v| format!("{v:+.2}"));
+            Some(Link { from: index(&e.from)?, to: index(&e.to)?, directed: e.kind == "directed", label })
+        })
+        .collect();
+    let dropped: Vec<String> = match execution.artifacts.get(&StepKind::Purify) {
+        Some(Artifact::Purify(p)) => {
+            p.constructs.values().flat_map(|c| c.dropped.iter().map(|d| d.item.clone())).collect()
+        }
+        _ => Vec::new(),
+    };
+    Some(diagram(&nodes, &links, &dropped))
+}

@@ -1,0 +1,96 @@
+//! `construe run`: check, plan, execute with the cache, and write a new report version unless
+//! nothing changed. Central function: `run`. Holds the run lock from planning to publishing,
+//! so a concurrent run of the same spec is refused instead of interleaving.
+
+use std::collections::BTreeMap;
+use std::path::Path;
+
+use serde_json::{Map, Value};
+
+use super::check::check;
+use super::context::report_context;
+use super::{AppError, Log};
+use crate::pipeline::cache::Cache;
+use crate::pipeline::executor::{Event, Execution, execute};
+use crate::pipeline::key::Key;
+use crate::pipeline::lock::RunLock;
+use crate::pipeline::manifest::{Manifest, SpecInfo};
+use crate::pipeline::plan::Plan;
+use crate::report::{WriteOutcome, slug, write_version};
+use crate::spec::SpecFile;
+
+pub struct RunSummary {
+    pub outcome: WriteOutcome,
+    pub computed: usize,
+    pub cached: usize,
+}
+
+pub fn run(path: &Path, cache: &Cache, log: &mut dyn Log) -> Result<RunSummary, AppError> {
+    let checked = check(path);
+    for d in checked.report.diagnostics.iter().filter(|d| !d.is_error()) {
+        log.warn(d.to_string().trim_end().trim_start_matches("warning: "));
+    }
+    let spec = match checked.spec {
+        Some(s) if !checked.report.has_errors() => s,
+        _ => return Err(AppError::Invalid(checked.report)),
+    };
+    let root = spec.resolve(&spec.spec.report.dir).join(slug(&spec.spec.title));
+    let _lock = RunLock::acquire(&root)?;
+    let plan = Plan::new(&spec)?;
+    let execution = execute(&plan, cache, |event| match event {
+        Event::Warning(w) => log.warn(&w),
+        Event::Done(o) => log.line(&format!(
+            "{:<12} {:<9} {:>8.3}s  {}",
+            o.kind.name(),
+            if o.cached { "cached" } else { "computed" },
+            o.seconds,
+            o.description
+        )),
+    })?;
+    let results = results_json(&execution);
+    let mut manifest =
+        Manifest::new(spec_info(&spec), &plan, &execution.outcomes, seeds(&spec), report_settings(&spec));
+    // The version folder sits one level below `root`.
+    manifest.spec.from_report =
+        super::verify::relative_path(&root, &spec.path).map(|r| Path::new("..").join(r).display().to_string());
+    let mut context = report_context(&spec, &execution, &results);
+    let outcome = write_version(&root, &mut manifest, &results, &mut context, &spec.spec.report.formats)?;
+    let cached = execution.outcomes.iter().filter(|o| o.cached).count();
+    Ok(RunSummary { outcome, computed: execution.outcomes.len() - cached, cached })
+}
+
+/// results.json: `data` (the load summary) and one key per analysis that ran.
+pub fn results_json(execution: &Execution) -> Value {
+    let mut map = Map::new();
+    for (kind, artifact) in &execution.artifacts {
+        let key = if kind.name() == "load" { "data" } else { kind.name() };
+        map.insert(key.to_string(), artifact.results());
+    }
+    Value::Object(map)
+}
+
+fn spec_info(spec: &SpecFile) -> SpecInfo {
+    let content = serde_json::to_value(&spec.spec).unwrap_or(Value::Null);
+    SpecInfo {
+        path: spec.path.display().to_string(),
+        file_hash: Key::of_bytes(spec.source.as_bytes()),
+        content_hash: Key::of_json(&content),
+        from_report: None,
+    }
+}
+
+fn report_settings(spec: &SpecFile) -> Value {
+    serde_json::to_value(&spec.spec.report.formats).unwrap_or(Value::Null)
+}
+
+fn seeds(spec: &SpecFile) -> BTreeMap<String, u64> {
+    let a = &spec.spec.analyses;
+    let mut seeds = BTreeMap::new();
+    if let Some(s) = &a.sensitivity {
+        seeds.insert("sensitivity".into(), s.seed);
+    }
+    if let Some(r) = &a.resample {
+        seeds.insert("resample".into(), r.seed);
+    }
+    seeds
+}

@@ -1,0 +1,193 @@
+//! Every command and option, defined once (clap derive), and the one function that turns
+//! parsed arguments into calls of `app` and an exit code. Nothing downstream sees raw arguments.
+
+use std::io::IsTerminal;
+use std::path::PathBuf;
+
+use clap::{Parser, Subcommand};
+
+use crate::app::check::check;
+use crate::app::plan::plan;
+use crate::app::run::run;
+use crate::app::{AppError, Exit, Log};
+use crate::pipeline::cache::Cache;
+use crate::report::WriteOutcome;
+use crate::spec::diagnostic::plural;
+
+#[derive(Debug, Parser)]
+#[command(name = "construe", version, about = "Latent-structure analysis of survey constructs from one declarative spec", long_about = None)]
+pub struct Cli {
+    #[command(subcommand)]
+    pub command: Command,
+}
+
+#[derive(Debug, clap::Args)]
+pub struct CacheArgs {
+    /// Cache folder for step artifacts
+    #[arg(long, env = "CONSTRUE_CACHE", default_value = "cache", value_name = "DIR")]
+    pub cache: PathBuf,
+    /// Compute every step, reading and writing no cache entries
+    #[arg(long)]
+    pub no_cache: bool,
+}
+
+impl CacheArgs {
+    fn resolve(&self) -> Cache {
+        if self.no_cache { Cache::disabled() } else { Cache::at(&self.cache) }
+    }
+}
+
+#[derive(Debug, Subcommand)]
+pub enum Command {
+    /// Plan, execute (cached where possible) and write a new report version
+    Run {
+        /// The analysis spec (YAML)
+        spec: PathBuf,
+        #[command(flatten)]
+        cache: CacheArgs,
+    },
+    /// Validate and lint a spec against its data files; computes nothing
+    Check {
+        /// The analysis spec (YAML)
+        spec: PathBuf,
+    },
+    /// List the steps with their keys and whether each is cached; computes nothing
+    Plan {
+        /// The analysis spec (YAML)
+        spec: PathBuf,
+        #[command(flatten)]
+        cache: CacheArgs,
+    },
+    /// Draw survey data from a declared latent model (see docs/simulate.md)
+    Simulate {
+        /// The model file (YAML)
+        model: PathBuf,
+        /// Output file, .csv or .parquet
+        #[arg(long, value_name = "FILE")]
+        out: PathBuf,
+        /// Number of respondents (default: the model's `n`)
+        #[arg(long)]
+        n: Option<usize>,
+        /// Random seed (default: the model's `seed`); the same seed gives identical output
+        #[arg(long)]
+        seed: Option<u64>,
+        /// Replace a constant column's value, e.g. `--set wave=autumn` (repeatable)
+        #[arg(long, value_name = "NAME=VALUE")]
+        set: Vec<String>,
+    },
+    /// Recompute a report version from its manifest without the cache; exit 1 on any mismatch
+    Verify {
+        /// A report version folder, e.g. reports/transit-rider-panel/v1
+        report_dir: PathBuf,
+    },
+}
+
+struct StderrLog;
+
+impl Log for StderrLog {
+    fn line(&mut self, text: &str) {
+        eprintln!("{text}");
+    }
+    fn warn(&mut self, text: &str) {
+        eprintln!("warning: {text}");
+    }
+}
+
+/// Runs one parsed command line and returns the process exit code.
+pub fn dispatch(cli: Cli) -> Exit {
+    let result = match cli.command {
+        Command::Run { spec, cache } => run_command(&spec, &cache.resolve()),
+        Command::Check { spec } => check_command(&spec),
+        Command::Plan { spec, cache } => plan_command(&spec, &cache.resolve()),
+        Command::Verify { report_dir } => verify_command(&report_dir),
+        Command::Simulate { model, out, n, seed, set } => {
+            let req = crate::app::simulate::SimulateRequest { model: &model, out: &out, n, seed, set: &set };
+            crate::app::simulate::simulate(&req).map_err(AppError::from).map(|rows| {
+                eprintln!("wrote {} to {}", plural(rows, "row"), out.display());
+                Exit::Ok
+            })
+        }
+    };
+    match result {
+        Ok(code) => code,
+        Err(e) => {
+            eprintln!("{}", render_error(&e));
+            e.exit()
+        }
+    }
+}
+
+fn render_error(e: &AppError) -> String {
+    match e {
+        AppError::Invalid(report) => report.to_string(),
+        other => {
+            let mut s = format!("error: {other}");
+            if let Some(h) = other.hint() {
+                s.push_str(&format!("\n  hint: {h}"));
+            }
+            s
+        }
+    }
+}
+
+fn run_command(spec: &std::path::Path, cache: &Cache) -> Result<Exit, AppError> {
+    let summary = run(spec, cache, &mut StderrLog)?;
+    match summary.outcome {
+        WriteOutcome::Written { version, dir } => {
+            eprintln!(
+                "wrote report v{version} to {} ({} computed, {} cached)",
+                dir.display(),
+                summary.computed,
+                summary.cached
+            );
+            if std::io::stdout().is_terminal() {
+                println!("{}", dir.join("report.html").display());
+            } else {
+                println!("{}", dir.display());
+            }
+        }
+        WriteOutcome::Unchanged { version, dir } => {
+            eprintln!("nothing changed since v{version} ({}); no new version written", dir.display());
+            println!("{}", dir.display());
+        }
+    }
+    Ok(Exit::Ok)
+}
+
+fn check_command(spec: &std::path::Path) -> Result<Exit, AppError> {
+    let checked = check(spec);
+    if checked.report.has_errors() {
+        return Err(AppError::Invalid(checked.report));
+    }
+    for d in &checked.report.diagnostics {
+        eprintln!("{d}");
+    }
+    eprintln!("{}: ok ({})", spec.display(), plural(checked.report.warning_count(), "warning"));
+    Ok(Exit::Ok)
+}
+
+fn plan_command(spec: &std::path::Path, cache: &Cache) -> Result<Exit, AppError> {
+    let (lines, report) = plan(spec, cache)?;
+    for d in &report.diagnostics {
+        eprintln!("{d}");
+    }
+    for l in &lines {
+        println!("{:<12} {}  {}", l.step, l.key, if l.cached { "cached" } else { "stale" });
+    }
+    Ok(Exit::Ok)
+}
+
+fn verify_command(report_dir: &std::path::Path) -> Result<Exit, AppError> {
+    let verification = crate::app::verify::verify(report_dir)?;
+    for c in &verification.checks {
+        println!("{:<9} {:<28} {}", if c.ok { "match" } else { "MISMATCH" }, c.what, c.detail);
+    }
+    if verification.passed() {
+        eprintln!("{}: verified ({} checks)", report_dir.display(), verification.checks.len());
+        Ok(Exit::Ok)
+    } else {
+        let failed = verification.checks.iter().filter(|c| !c.ok).count();
+        eprintln!("{}: {} failed", report_dir.display(), plural(failed, "check"));
+        Ok(Exit::Invalid)
+    }
+}

@@ -1,0 +1,145 @@
+//! The report: results.json, manifest.json, report.html and report.md for one version, written
+//! to `<report.dir>/<slug>/v<N>/`. Central function: `write_version`. A version folder appears
+//! whole or not at all (built under a hidden temporary name, then renamed); an identical
+//! rerun (same manifest fingerprint as the latest version) writes nothing.
+
+pub mod diagram;
+pub mod svg;
+pub mod versions;
+
+use std::path::{Path, PathBuf};
+
+use minijinja::{Environment, Value as TemplateValue};
+use serde_json::Value;
+use thiserror::Error;
+
+use crate::pipeline::manifest::Manifest;
+use crate::spec::types::ReportFormat;
+
+pub use versions::{WriteOutcome, slug};
+
+#[derive(Debug, Error)]
+pub enum ReportError {
+    #[error("cannot {action} `{}`\n  caused by: {source}", path.display())]
+    Io { action: &'static str, path: PathBuf, source: std::io::Error },
+    #[error("report template `{name}` failed: {source}")]
+    Template { name: String, source: minijinja::Error },
+}
+
+const HTML: &str = include_str!("../../templates/report.html");
+const MARKDOWN: &str = include_str!("../../templates/report.md");
+const STYLE: &str = include_str!("../../templates/style.css");
+
+/// The template environment: HTML autoescaped (by the `.html` name), Markdown not; filters for
+/// fixed-digit numbers and Markdown table cells.
+fn environment() -> Result<Environment<'static>, ReportError> {
+    let mut env = Environment::new();
+    env.add_filter("num", num);
+    env.add_filter("cell", markdown_cell);
+    env.add_filter("pct", pct);
+    for (name, text) in [("report.html", HTML), ("report.md", MARKDOWN)] {
+        env.add_template(name, text).map_err(|source| ReportError::Template { name: name.into(), source })?;
+    }
+    Ok(env)
+}
+
+/// `{{ x | num(3) }}`: a number with fixed decimals; missing or non-finite values show as "–".
+fn num(value: TemplateValue, digits: Option<usize>) -> String {
+    let digits = digits.unwrap_or(3);
+    match f64::try_from(value) {
+        Ok(v) if v.is_finite() => format!("{v:.digits$}"),
+        _ => "–".into(),
+    }
+}
+
+fn pct(value: TemplateValue) -> String {
+    match f64::try_from(value) {
+        Ok(v) if v.is_finite() => format!("{:.1}%", v * 100.0),
+        _ => "–".into(),
+    }
+}
+
+/// Text safe inside a Markdown table cell: pipes escaped, angle brackets as entities so a name
+/// like `<script>` shows as text in any renderer.
+fn markdown_cell(value: TemplateValue) -> String {
+    let s = value.as_str().map(str::to_string).unwrap_or_else(|| value.to_string());
+    s.replace('&', "&amp;").replace('<', "&lt;").replace('>', "&gt;").replace('|', "\\|").replace('\n', " ")
+}
+
+/// Renders one format from the report context.
+pub fn render(format: ReportFormat, context: &Value) -> Result<String, ReportError> {
+    let env = environment()?;
+    let name = match format {
+        ReportFormat::Html => "report.html",
+        ReportFormat::Markdown => "report.md",
+    };
+    let mut ctx = context.clone();
+    if let Value::Object(map) = &mut ctx {
+        map.insert("style".into(), Value::String(STYLE.to_string()));
+    }
+    env.get_template(name)
+        .and_then(|t| t.render(TemplateValue::from(minijinja::value::Serde(&ctx))))
+        .map_err(|source| ReportError::Template { name: name.into(), source })
+}
+
+/// Writes a new version under `root` (the spec's `<report.dir>/<slug>`) unless the latest
+/// version has the same fingerprint. `context` is completed with the version number.
+pub fn write_version(
+    root: &Path,
+    manifest: &mut Manifest,
+    results: &Value,
+    context: &mut Value,
+    formats: &[ReportFormat],
+) -> Result<WriteOutcome, ReportError> {
+    let io = |action: &'static str, path: &Path| {
+        let path = path.to_path_buf();
+        move |source| ReportError::Io { action, path, source }
+    };
+    std::fs::create_dir_all(root).map_err(io("create report folder", root))?;
+    versions::remove_stale_partials(root);
+    let existing = versions::latest(root);
+    if let Some((n, latest)) = &existing {
+        if latest.fingerprint == manifest.fingerprint {
+            return Ok(WriteOutcome::Unchanged { version: *n, dir: root.join(format!("v{n}")) });
+        }
+    }
+    let version = existing.map_or(1, |(n, _)| n + 1);
+    manifest.report_version = version;
+    let final_dir = root.join(format!("v{version}"));
+    if let Value::Object(map) = context {
+        map.insert("version".into(), Value::from(version));
+        map.insert("report_dir".into(), Value::String(final_dir.display().to_string()));
+        map.insert("manifest".into(), serde_json::to_value(&*manifest).unwrap_or(Value::Null));
+    }
+    let staging =
+        tempfile::Builder::new().prefix(".partial-v").tempdir_in(root).map_err(io("create staging folder in", root))?;
+    let write = |name: &str, text: &str| {
+        let path = staging.path().join(name);
+        std::fs::write(&path, text).map_err(io("write", &path))
+    };
+    write("results.json", &pretty(results))?;
+    for format in formats {
+        let text = render(*format, context)?;
+        match format {
+            ReportFormat::Html => write("report.html", &text)?,
+            ReportFormat::Markdown => write("report.md", &text)?,
+        }
+    }
+    // The manifest goes last: a version folder with a manifest is complete.
+    write("manifest.json", &pretty(&serde_json::to_value(&*manifest).unwrap_or(Value::Null)))?;
+    let staged = staging.keep();
+    // Staging folders are private (0700); a published version is an ordinary folder.
+    #[cfg(unix)]
+    {
+        use std::os::unix::fs::PermissionsExt;
+        let _ = std::fs::set_permissions(&staged, std::fs::Permissions::from_mode(0o755));
+    }
+    std::fs::rename(&staged, &final_dir).map_err(io("publish report folder", &final_dir))?;
+    Ok(WriteOutcome::Written { version, dir: final_dir })
+}
+
+fn pretty(v: &Value) -> String {
+    let mut s = serde_json::to_string_pretty(v).unwrap_or_default();
+    s.push('\n');
+    s
+}

@@ -1,0 +1,117 @@
+//! The spec: reading, parsing, validation and lints, turned into diagnostics with positions.
+//! Central type: `SpecFile` (the parsed spec with its source text and node positions).
+//! This module reads only the spec file itself; data headers come in from the caller.
+
+pub mod diagnostic;
+pub mod positions;
+pub mod problem;
+pub mod schema;
+pub mod types;
+pub mod validate;
+
+use std::path::{Path, PathBuf};
+
+pub use diagnostic::{Diagnostic, Report, Severity};
+pub use problem::{Finding, SpecProblem};
+pub use types::Spec;
+
+use positions::{Position, Positions};
+
+/// A spec read from disk, parsed and type-checked, with what is needed to point at its nodes.
+#[derive(Debug, Clone)]
+pub struct SpecFile {
+    pub path: PathBuf,
+    pub source: String,
+    pub positions: Positions,
+    pub spec: Spec,
+}
+
+impl SpecFile {
+    /// Reads and parses `path`. Syntax errors, unknown keys (all of them) and type errors come
+    /// back as a `Report` that points into the file.
+    pub fn read(path: &Path) -> Result<SpecFile, Report> {
+        let source = std::fs::read_to_string(path).map_err(|e| {
+            let mut r = Report::default();
+            r.push(Diagnostic::error(format!("cannot read spec file `{}`\n  caused by: {e}", path.display())));
+            r
+        })?;
+        Self::parse(path, source)
+    }
+
+    /// Parses spec text as if read from `path` (tests use this).
+    pub fn parse(path: &Path, source: String) -> Result<SpecFile, Report> {
+        let positions = match Positions::index(&source) {
+            Ok(p) => p,
+            Err(e) => {
+                let mut r = Report::default();
+                r.push(Diagnostic::error(SpecProblem::Syntax { message: e.message }.to_string()).at(
+                    path,
+                    &source,
+                    Some(e.position),
+                    1,
+                ));
+                return Err(r);
+            }
+        };
+        let unknown = schema::unknown_keys(&positions);
+        if !unknown.is_empty() {
+            return Err(diagnose(path, &source, &positions, unknown));
+        }
+        match serde_yaml::from_str::<Spec>(&source) {
+            Ok(spec) => Ok(SpecFile { path: path.to_path_buf(), source, positions, spec }),
+            Err(e) => {
+                let position = e.location().map(|l| Position { line: l.line(), column: l.column() });
+                let message = strip_location(&e.to_string());
+                let mut r = Report::default();
+                r.push(Diagnostic::error(message).at(path, &source, position, 1));
+                Err(r)
+            }
+        }
+    }
+
+    /// The folder that relative paths in the spec are resolved against.
+    pub fn dir(&self) -> PathBuf {
+        match self.path.parent() {
+            Some(p) if !p.as_os_str().is_empty() => p.to_path_buf(),
+            _ => PathBuf::from("."),
+        }
+    }
+
+    /// A path from the spec, resolved relative to the spec's folder.
+    pub fn resolve(&self, relative: &Path) -> PathBuf {
+        if relative.is_absolute() { relative.to_path_buf() } else { self.dir().join(relative) }
+    }
+
+    /// Turns findings into positioned diagnostics.
+    pub fn diagnose(&self, findings: Vec<Finding>) -> Report {
+        diagnose(&self.path, &self.source, &self.positions, findings)
+    }
+}
+
+fn diagnose(path: &Path, source: &str, positions: &Positions, findings: Vec<Finding>) -> Report {
+    let mut report = Report::default();
+    for f in findings {
+        let position = if f.on_key { positions.key(&f.path) } else { positions.value(&f.path) };
+        let width = if f.on_key {
+            f.path.rsplit('.').next().map_or(1, |k| k.chars().count())
+        } else {
+            positions.width(&f.path).unwrap_or(1)
+        };
+        let base = if f.problem.is_warning() {
+            Diagnostic::warning(f.problem.to_string())
+        } else {
+            Diagnostic::error(f.problem.to_string())
+        };
+        report.push(base.at(path, source, position, width).with_help_opt(f.problem.help()));
+    }
+    report.sort();
+    report
+}
+
+/// serde_yaml appends " at line L column C" to messages; the diagnostic shows that itself.
+fn strip_location(message: &str) -> String {
+    match message.rfind(" at line ") {
+        Some(i) => message[..i].to_string(),
+        None => message.to_string(),
+    }
+}

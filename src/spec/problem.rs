@@ -1,0 +1,127 @@
+//! Everything that can be wrong with a spec, as typed values. Central type: `SpecProblem`.
+//! Only `Display` writes words; `help` gives the optional hint line. Each problem is found
+//! together with the key path it blames (`Finding`), which `positions` turns into line:col.
+
+use std::path::PathBuf;
+
+use thiserror::Error;
+
+#[derive(Debug, Clone, PartialEq, Error)]
+pub enum SpecProblem {
+    #[error("the spec is not valid YAML: {message}")]
+    Syntax { message: String },
+    #[error("unknown key `{key}` in {}", place(parent))]
+    UnknownKey { parent: String, key: String, suggestion: Option<String> },
+    #[error("{message}")]
+    Type { message: String },
+    #[error("spec format version {found} is not supported; this build reads version {supported}")]
+    WrongVersion { found: u32, supported: u32 },
+    #[error("`data` needs either `waves` or `matrix`")]
+    NoData,
+    #[error("`data` has both `waves` and `matrix`; use one")]
+    WavesAndMatrix,
+    #[error("wave id `{wave}` is used twice")]
+    DuplicateWave { wave: String },
+    #[error("data file `{}` of {} does not exist", path.display(), source_name(wave))]
+    MissingFile { wave: Option<String>, path: PathBuf },
+    #[error("cannot read the columns of `{}`: {reason}", path.display())]
+    UnreadableFile { path: PathBuf, reason: String },
+    #[error("data file `{}` has unsupported extension; use .csv or .parquet", path.display())]
+    UnsupportedFormat { path: PathBuf },
+    #[error("item `{item}` of construct `{construct}` is not a column of any data file")]
+    UnknownItem { construct: String, item: String, suggestion: Option<String> },
+    #[error("wave `{wave}` has no column `{column}` (file `{}`)", path.display())]
+    MissingColumn { wave: String, column: String, path: PathBuf, suggestion: Option<String> },
+    #[error("item `{item}` is in two constructs, `{first}` and `{second}`")]
+    ItemInTwoConstructs { item: String, first: String, second: String },
+    #[error("item `{item}` is listed twice in construct `{construct}`")]
+    DuplicateItem { construct: String, item: String },
+    #[error("construct `{construct}` has no items")]
+    EmptyConstruct { construct: String },
+    #[error("{place} names `{name}`, which is not a declared construct")]
+    UnknownConstruct { place: String, name: String, suggestion: Option<String> },
+    #[error("construct `{construct}` is in two tiers ({first} and {second})")]
+    ConstructInTwoTiers { construct: String, first: usize, second: usize },
+    #[error("required edge `{from}` -> `{to}` {reason}")]
+    ImpossibleRequirement { from: String, to: String, reason: String },
+    #[error("edge `{from}` -> `{to}` joins a construct to itself")]
+    SelfEdge { from: String, to: String },
+    #[error("{what} must lie in {range}, found {value}")]
+    OutOfRange { what: String, range: String, value: f64 },
+    #[error("`{item}` in {place} is not an item of the data")]
+    UnknownDataItem { place: String, item: String, suggestion: Option<String> },
+    #[error("reverse range of `{item}` must be [lowest, highest] with lowest < highest")]
+    BadReverseRange { item: String },
+    #[error("id column `{column}` is not in {}", path.display())]
+    MissingIdColumn { column: String, path: PathBuf },
+    #[error("id column `{column}` is also listed as an item")]
+    IdColumnIsItem { column: String },
+    #[error("analysis `{analysis}` needs respondent rows, but the data is a summary matrix")]
+    NeedsRows { analysis: String },
+    #[error("`report.formats` is empty; nothing would be written")]
+    NoReportFormats,
+    #[error("analysis `{analysis}` needs `{needs}` in the spec")]
+    MissingPrerequisite { analysis: String, needs: String },
+    #[error("analysis `{analysis}` is not available in this version of construe and will be skipped")]
+    NotYetAvailable { analysis: String },
+    #[error("construct `{construct}` has {} and no `reliability`, so it is not identified as a latent variable", crate::spec::diagnostic::plural(*count, "item"))]
+    TooFewItems { construct: String, count: usize },
+}
+
+impl SpecProblem {
+    /// The hint shown under the problem, if any.
+    pub fn help(&self) -> Option<String> {
+        use SpecProblem::*;
+        match self {
+            UnknownKey { suggestion, .. }
+            | UnknownItem { suggestion, .. }
+            | MissingColumn { suggestion, .. }
+            | UnknownConstruct { suggestion, .. }
+            | UnknownDataItem { suggestion, .. } => suggestion.clone(),
+            MissingFile { .. } => Some("paths are relative to the folder of the spec file".into()),
+            NoData => Some("list survey files under `data.waves`, or a published matrix under `data.matrix`".into()),
+            NeedsRows { .. } => Some("remove the analysis, or supply the respondent-level waves".into()),
+            NotYetAvailable { .. } => Some("remove the key to silence this warning".into()),
+            TooFewItems { .. } => Some("add items (at least 3), or give the single indicator a `reliability`".into()),
+            ItemInTwoConstructs { .. } => {
+                Some("an item can indicate only one declared construct; purification looks for cross-loadings".into())
+            }
+            ImpossibleRequirement { .. } => Some("drop the requirement, or change the tiers or `forbid`".into()),
+            _ => None,
+        }
+    }
+
+    /// Problems that do not stop a run.
+    pub fn is_warning(&self) -> bool {
+        matches!(self, SpecProblem::NotYetAvailable { .. } | SpecProblem::TooFewItems { .. })
+    }
+}
+
+/// A problem and the spec path it blames (`on_key`: underline the key rather than its value).
+#[derive(Debug, Clone, PartialEq)]
+pub struct Finding {
+    pub problem: SpecProblem,
+    pub path: String,
+    pub on_key: bool,
+}
+
+impl Finding {
+    pub fn value(problem: SpecProblem, path: impl Into<String>) -> Self {
+        Finding { problem, path: path.into(), on_key: false }
+    }
+
+    pub fn key(problem: SpecProblem, path: impl Into<String>) -> Self {
+        Finding { problem, path: path.into(), on_key: true }
+    }
+}
+
+fn place(parent: &str) -> String {
+    if parent.is_empty() { "the spec's top level".into() } else { format!("`{parent}`") }
+}
+
+fn source_name(wave: &Option<String>) -> String {
+    match wave {
+        Some(w) => format!("wave `{w}`"),
+        None => "the summary matrix".into(),
+    }
+}

@@ -1,0 +1,397 @@
+//! Semantic checks of a parsed spec against itself and its data files' columns: items exist,
+//! no item in two constructs, knowledge names declared constructs, ranges hold.
+//! Central function: `validate`. It reads no file: the caller passes each source's columns,
+//! so checks stay fast and testable; every problem is returned, none stops the others.
+
+use std::collections::{HashMap, HashSet};
+use std::path::PathBuf;
+
+use super::diagnostic::suggest;
+use super::positions::{child, element};
+use super::problem::{Finding, SpecProblem};
+use super::types::{ItemPool, OrdinalSpec, Spec, TetradTest};
+
+/// What the caller found when reading a data source's header.
+#[derive(Debug, Clone, PartialEq)]
+pub enum ColumnsRead {
+    Columns(Vec<String>),
+    Missing,
+    Unsupported,
+    Unreadable(String),
+}
+
+/// One data source (a wave, or the summary matrix when `wave` is `None`) and its columns.
+#[derive(Debug, Clone, PartialEq)]
+pub struct SourceColumns {
+    pub wave: Option<String>,
+    /// Index in `data.waves`, for positions.
+    pub index: usize,
+    pub path: PathBuf,
+    pub columns: ColumnsRead,
+}
+
+/// Every semantic problem of `spec`, given the columns of its sources.
+pub fn validate(spec: &Spec, sources: &[SourceColumns]) -> Vec<Finding> {
+    let mut out = Vec::new();
+    if spec.construe != super::types::FORMAT_VERSION {
+        out.push(Finding::value(
+            SpecProblem::WrongVersion { found: spec.construe, supported: super::types::FORMAT_VERSION },
+            "construe",
+        ));
+    }
+    check_sources(spec, sources, &mut out);
+    let available = available_items(spec, sources);
+    check_constructs(spec, sources, available.as_ref(), &mut out);
+    check_data_options(spec, available.as_ref(), &mut out);
+    check_knowledge(spec, &mut out);
+    check_analyses(spec, available.as_ref(), &mut out);
+    if spec.report.formats.is_empty() {
+        out.push(Finding::value(SpecProblem::NoReportFormats, "report.formats"));
+    }
+    out
+}
+
+fn check_sources(spec: &Spec, sources: &[SourceColumns], out: &mut Vec<Finding>) {
+    let data = &spec.data;
+    match (data.waves.is_empty(), data.matrix.is_some()) {
+        (true, false) => out.push(Finding::key(SpecProblem::NoData, "data")),
+        (false, true) => out.push(Finding::key(SpecProblem::WavesAndMatrix, "data.matrix")),
+        _ => {}
+    }
+    let mut seen = HashSet::new();
+    for (i, w) in data.waves.iter().enumerate() {
+        if !seen.insert(w.id.as_str()) {
+            out.push(Finding::value(SpecProblem::DuplicateWave { wave: w.id.clone() }, format!("data.waves[{i}].id")));
+        }
+    }
+    for s in sources {
+        let path = match &s.wave {
+            Some(_) => format!("data.waves[{}].file", s.index),
+            None => "data.matrix.file".to_string(),
+        };
+        let problem = match &s.columns {
+            ColumnsRead::Columns(_) => continue,
+            ColumnsRead::Missing => SpecProblem::MissingFile { wave: s.wave.clone(), path: s.path.clone() },
+            ColumnsRead::Unsupported => SpecProblem::UnsupportedFormat { path: s.path.clone() },
+            ColumnsRead::Unreadable(reason) => {
+                SpecProblem::UnreadableFile { path: s.path.clone(), reason: reason.clone() }
+            }
+        };
+        out.push(Finding::value(problem, path));
+    }
+    if let Some(id) = &data.id_column {
+        for s in sources.iter().filter(|s| s.wave.is_some()) {
+            if let ColumnsRead::Columns(cols) = &s.columns {
+                if !cols.contains(id) {
+                    out.push(Finding::value(
+                        SpecProblem::MissingIdColumn { column: id.clone(), path: s.path.clone() },
+                        "data.id_column",
+                    ));
+                }
+            }
+        }
+    }
+}
+
+/// The union of analysable columns over readable sources; `None` when no source could be read
+/// (then item checks would only repeat the file problem).
+fn available_items(spec: &Spec, sources: &[SourceColumns]) -> Option<Vec<String>> {
+    let mut items: Vec<String> = Vec::new();
+    let mut any = false;
+    for s in sources {
+        if let ColumnsRead::Columns(cols) = &s.columns {
+            any = true;
+            for c in cols {
+                if Some(c) != spec.data.id_column.as_ref() && !items.contains(c) {
+                    items.push(c.clone());
+                }
+            }
+        }
+    }
+    any.then_some(items)
+}
+
+fn check_constructs(spec: &Spec, sources: &[SourceColumns], available: Option<&Vec<String>>, out: &mut Vec<Finding>) {
+    let mut owner: HashMap<&str, &str> = HashMap::new();
+    for (name, c) in &spec.constructs {
+        let base = child("constructs", name);
+        if c.items.is_empty() {
+            out.push(Finding::key(SpecProblem::EmptyConstruct { construct: name.clone() }, base.clone()));
+        }
+        if let Some(r) = c.reliability {
+            if !(r > 0.0 && r <= 1.0) {
+                out.push(Finding::value(
+                    SpecProblem::OutOfRange {
+                        what: format!("reliability of `{name}`"),
+                        range: "(0, 1]".into(),
+                        value: r,
+                    },
+                    child(&base, "reliability"),
+                ));
+            }
+        } else if !c.items.is_empty() && c.items.len() < 3 {
+            out.push(Finding::key(
+                SpecProblem::TooFewItems { construct: name.clone(), count: c.items.len() },
+                base.clone(),
+            ));
+        }
+        let mut in_this = HashSet::new();
+        for (i, item) in c.items.iter().enumerate() {
+            let path = element(&child(&base, "items"), i);
+            if !in_this.insert(item.as_str()) {
+                out.push(Finding::value(
+                    SpecProblem::DuplicateItem { construct: name.clone(), item: item.clone() },
+                    path,
+                ));
+                continue;
+            }
+            if let Some(first) = owner.insert(item, name) {
+                if first != name {
+                    out.push(Finding::value(
+                        SpecProblem::ItemInTwoConstructs {
+                            item: item.clone(),
+                            first: first.to_string(),
+                            second: name.clone(),
+                        },
+                        path.clone(),
+                    ));
+                }
+            }
+            if spec.data.id_column.as_deref() == Some(item) {
+                out.push(Finding::value(SpecProblem::IdColumnIsItem { column: item.clone() }, path.clone()));
+                continue;
+            }
+            let Some(all) = available else { continue };
+            if !all.contains(item) {
+                let problem = SpecProblem::UnknownItem {
+                    construct: name.clone(),
+                    item: item.clone(),
+                    suggestion: suggest(item, all.iter().map(String::as_str)),
+                };
+                out.push(Finding::value(problem, path));
+                continue;
+            }
+            for s in sources {
+                if let (Some(wave), ColumnsRead::Columns(cols)) = (&s.wave, &s.columns) {
+                    if !cols.contains(item) {
+                        let problem = SpecProblem::MissingColumn {
+                            wave: wave.clone(),
+                            column: item.clone(),
+                            path: s.path.clone(),
+                            suggestion: suggest(item, cols.iter().map(String::as_str)),
+                        };
+                        out.push(Finding::value(problem, path.clone()));
+                    }
+                }
+            }
+        }
+    }
+}
+
+fn check_data_options(spec: &Spec, available: Option<&Vec<String>>, out: &mut Vec<Finding>) {
+    let Some(all) = available else { return };
+    let unknown = |place: &str, item: &str| SpecProblem::UnknownDataItem {
+        place: place.to_string(),
+        item: item.to_string(),
+        suggestion: suggest(item, all.iter().map(String::as_str)),
+    };
+    for (item, [lo, hi]) in &spec.data.reverse {
+        let path = child("data.reverse", item);
+        if !all.contains(item) {
+            out.push(Finding::key(unknown("`data.reverse`", item), path));
+        } else if lo >= hi {
+            out.push(Finding::value(SpecProblem::BadReverseRange { item: item.clone() }, path));
+        }
+    }
+    if let OrdinalSpec::Items(items) = &spec.data.ordinal {
+        for (i, item) in items.iter().enumerate() {
+            if !all.contains(item) {
+                out.push(Finding::value(unknown("`data.ordinal`", item), element("data.ordinal", i)));
+            }
+        }
+    }
+}
+
+fn check_knowledge(spec: &Spec, out: &mut Vec<Finding>) {
+    let names: Vec<&str> = spec.constructs.keys().map(String::as_str).collect();
+    let known = |place: &str, name: &str, path: String, out: &mut Vec<Finding>| -> bool {
+        if names.contains(&name) {
+            return true;
+        }
+        let problem = SpecProblem::UnknownConstruct {
+            place: place.to_string(),
+            name: name.to_string(),
+            suggestion: suggest(name, names.iter().copied()),
+        };
+        out.push(Finding::value(problem, path));
+        false
+    };
+    let k = &spec.knowledge;
+    let mut tier_of: HashMap<&str, usize> = HashMap::new();
+    for (t, tier) in k.tiers.iter().enumerate() {
+        for (i, name) in tier.iter().enumerate() {
+            let path = element(&element("knowledge.tiers", t), i);
+            if !known(&format!("tier {}", t + 1), name, path.clone(), out) {
+                continue;
+            }
+            if let Some(first) = tier_of.insert(name, t) {
+                out.push(Finding::value(
+                    SpecProblem::ConstructInTwoTiers { construct: name.clone(), first: first + 1, second: t + 1 },
+                    path,
+                ));
+            }
+        }
+    }
+    let edges_ok = |list: &[[String; 2]], key: &str, out: &mut Vec<Finding>| -> Vec<bool> {
+        list.iter()
+            .enumerate()
+            .map(|(i, [from, to])| {
+                let base = element(&child("knowledge", key), i);
+                let a = known(&format!("`knowledge.{key}`"), from, element(&base, 0), out);
+                let b = known(&format!("`knowledge.{key}`"), to, element(&base, 1), out);
+                if a && b && from == to {
+                    out.push(Finding::value(SpecProblem::SelfEdge { from: from.clone(), to: to.clone() }, base));
+                    return false;
+                }
+                a && b
+            })
+            .collect()
+    };
+    edges_ok(&k.forbid, "forbid", out);
+    let require_ok = edges_ok(&k.require, "require", out);
+    for (i, ([from, to], ok)) in k.require.iter().zip(require_ok).enumerate() {
+        if !ok {
+            continue;
+        }
+        let path = element("knowledge.require", i);
+        let reason = if k.forbid.iter().any(|[f, t]| f == from && t == to) {
+            Some("is also forbidden".to_string())
+        } else {
+            match (tier_of.get(from.as_str()), tier_of.get(to.as_str())) {
+                (Some(&a), Some(&b)) if a > b => {
+                    Some(format!("goes from tier {} back to tier {}, which the tiers do not allow", a + 1, b + 1))
+                }
+                _ => None,
+            }
+        };
+        if let Some(reason) = reason {
+            out.push(Finding::value(
+                SpecProblem::ImpossibleRequirement { from: from.clone(), to: to.clone(), reason },
+                path,
+            ));
+        }
+    }
+}
+
+fn check_analyses(spec: &Spec, available: Option<&Vec<String>>, out: &mut Vec<Finding>) {
+    let a = &spec.analyses;
+    let rows = spec.data.matrix.is_none();
+    let alpha = |what: &str, value: f64, path: &str, out: &mut Vec<Finding>| {
+        if !(value > 0.0 && value < 1.0) {
+            out.push(Finding::value(
+                SpecProblem::OutOfRange { what: what.into(), range: "(0, 1)".into(), value },
+                path,
+            ));
+        }
+    };
+    if let Some(p) = &a.purify {
+        alpha("`purify.alpha`", p.alpha, "analyses.purify.alpha", out);
+        if p.test == TetradTest::Delta && !rows {
+            out.push(Finding::value(
+                SpecProblem::NeedsRows { analysis: "purify (test: delta)".into() },
+                "analyses.purify.test",
+            ));
+        }
+        if p.min_items < 3 {
+            out.push(Finding::value(
+                SpecProblem::OutOfRange {
+                    what: "`purify.min_items`".into(),
+                    range: "3 or more (a tetrad needs 4 items; a latent, 3)".into(),
+                    value: p.min_items as f64,
+                },
+                "analyses.purify.min_items",
+            ));
+        }
+    }
+    if let Some(d) = &a.discover {
+        alpha("`discover.alpha`", d.alpha, "analyses.discover.alpha", out);
+        if d.test == TetradTest::Delta && !rows {
+            out.push(Finding::value(
+                SpecProblem::NeedsRows { analysis: "discover (test: delta)".into() },
+                "analyses.discover.test",
+            ));
+        }
+        if let (ItemPool::Items(items), Some(all)) = (&d.items, available) {
+            for (i, item) in items.iter().enumerate() {
+                if !all.contains(item) {
+                    let problem = SpecProblem::UnknownDataItem {
+                        place: "`analyses.discover.items`".into(),
+                        item: item.clone(),
+                        suggestion: suggest(item, all.iter().map(String::as_str)),
+                    };
+                    out.push(Finding::value(problem, element("analyses.discover.items", i)));
+                }
+            }
+        }
+    }
+    if let Some(s) = &a.structure {
+        alpha("`structure.alpha`", s.alpha, "analyses.structure.alpha", out);
+    }
+    if let Some(s) = &a.sensitivity {
+        let names: Vec<&str> = spec.constructs.keys().map(String::as_str).collect();
+        for (name, grid) in &s.reliability {
+            let path = child("analyses.sensitivity.reliability", name);
+            if !names.contains(&name.as_str()) {
+                out.push(Finding::key(
+                    SpecProblem::UnknownConstruct {
+                        place: "`sensitivity.reliability`".into(),
+                        name: name.clone(),
+                        suggestion: suggest(name, names.iter().copied()),
+                    },
+                    path,
+                ));
+                continue;
+            }
+            for (i, &r) in grid.iter().enumerate() {
+                if !(r > 0.0 && r <= 1.0) {
+                    out.push(Finding::value(
+                        SpecProblem::OutOfRange {
+                            what: format!("reliability grid value for `{name}`"),
+                            range: "(0, 1]".into(),
+                            value: r,
+                        },
+                        element(&path, i),
+                    ));
+                }
+            }
+        }
+        for (name, prior) in &s.prior {
+            let path = child("analyses.sensitivity.prior", name);
+            if !names.contains(&name.as_str()) {
+                out.push(Finding::key(
+                    SpecProblem::UnknownConstruct {
+                        place: "`sensitivity.prior`".into(),
+                        name: name.clone(),
+                        suggestion: suggest(name, names.iter().copied()),
+                    },
+                    path,
+                ));
+            } else if prior.beta.iter().any(|&v| v <= 0.0) {
+                out.push(Finding::value(
+                    SpecProblem::OutOfRange {
+                        what: format!("beta prior parameters for `{name}`"),
+                        range: "(0, inf)".into(),
+                        value: prior.beta[0].min(prior.beta[1]),
+                    },
+                    child(&path, "beta"),
+                ));
+            }
+        }
+        for (i, &v) in s.alpha.iter().enumerate() {
+            alpha("a `sensitivity.alpha` value", v, &element("analyses.sensitivity.alpha", i), out);
+        }
+    }
+    if a.resample.is_some() && !rows {
+        out.push(Finding::key(SpecProblem::NeedsRows { analysis: "resample".into() }, "analyses.resample"));
+    }
+}

@@ -1,0 +1,372 @@
+//! `covariance`: the item correlation and covariance matrices the later analyses start from,
+//! with the estimator chosen per pair from the items' types, n per pair, and a definiteness
+//! check naming the items behind a singular or indefinite matrix.
+//! Central type: `CovarianceOutput` (the `covariance` block of results.json).
+
+use indexmap::IndexMap;
+use nalgebra::DMatrix;
+use serde::{Deserialize, Serialize};
+use serde_json::{Value, json};
+
+use super::load::{ItemKind, LoadOutput};
+use super::{Artifact, Inputs, Step, StepError, StepKind};
+use crate::data::Table;
+use crate::spec::types::{CovarianceSpec, MatrixKind, Missing, OrdinalEstimation};
+use crate::stats::mixed::{self, Column, mixed_correlation};
+use crate::stats::moments::{Deletion, pearson};
+use crate::stats::polychoric::OrdinalFit;
+use crate::stats::smoothing::smooth_correlation;
+
+/// Bump when the matrices change for the same loaded data and parameters.
+/// v2: polychoric / polyserial correlations for ordinal items, smoothing.
+pub const VERSION: u32 = 2;
+
+/// The estimator used for one item pair.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum PairMethod {
+    Pearson,
+    Polychoric,
+    Polyserial,
+    /// Taken from a published summary matrix.
+    Given,
+}
+
+/// Whether the correlation matrix is positive definite, and if not, which items are involved.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Definiteness {
+    pub positive_definite: bool,
+    pub min_eigenvalue: f64,
+    /// Items with the largest weights in the eigenvector of the smallest eigenvalue, when that
+    /// eigenvalue is not clearly positive: the items whose combination is (nearly) degenerate.
+    pub involved: Vec<String>,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct CovarianceOutput {
+    pub items: Vec<String>,
+    pub kind: IndexMap<String, ItemKind>,
+    /// Keyed `"a|b"` for a < b in item order.
+    pub method: IndexMap<String, PairMethod>,
+    pub correlation: Vec<Vec<f64>>,
+    pub covariance: Vec<Vec<f64>>,
+    pub n: Vec<Vec<usize>>,
+    pub smoothed: bool,
+    pub missing: Missing,
+    pub definiteness: Definiteness,
+    /// Standard error of each pair's correlation (`"a|b"`), where defined.
+    pub se: IndexMap<String, Option<f64>>,
+    /// Categories empty among a pair's complete rows, merged with a neighbour for that pair.
+    pub merges: Vec<Merge>,
+    /// How much smoothing changed the matrix, when it did.
+    pub smoothing: Option<SmoothingSummary>,
+    /// Pairs whose polychoric or polyserial estimate reached the bound |rho| = 0.9999.
+    pub at_bound: Vec<String>,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Merge {
+    pub pair: String,
+    pub item: String,
+    /// The empty category and the one it was merged into, as response values.
+    pub empty: f64,
+    pub into: f64,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct SmoothingSummary {
+    pub method: String,
+    pub min_eigenvalue_before: f64,
+    pub min_eigenvalue_after: f64,
+    pub max_abs_change: f64,
+    pub frobenius_change: f64,
+}
+
+impl CovarianceOutput {
+    pub fn correlation_matrix(&self) -> DMatrix<f64> {
+        to_matrix(&self.correlation)
+    }
+
+    pub fn covariance_matrix(&self) -> DMatrix<f64> {
+        to_matrix(&self.covariance)
+    }
+
+    /// The smallest pairwise n: the conservative sample size for tests on the whole matrix.
+    pub fn min_n(&self) -> usize {
+        self.n.iter().flatten().copied().min().unwrap_or(0)
+    }
+}
+
+fn to_matrix(rows: &[Vec<f64>]) -> DMatrix<f64> {
+    let p = rows.len();
+    DMatrix::from_fn(p, p, |r, c| rows[r][c])
+}
+
+fn to_rows(m: &DMatrix<f64>) -> Vec<Vec<f64>> {
+    (0..m.nrows()).map(|r| (0..m.ncols()).map(|c| m[(r, c)]).collect()).collect()
+}
+
+pub struct CovarianceStep {
+    missing: Missing,
+    ordinal: OrdinalEstimation,
+}
+
+impl CovarianceStep {
+    pub fn from_spec(spec: &CovarianceSpec) -> CovarianceStep {
+        CovarianceStep { missing: spec.missing, ordinal: spec.ordinal }
+    }
+}
+
+/// Eigenvalues at or below this (relative to the matrix size) count as not positive definite.
+const EIGEN_TOLERANCE: f64 = 1e-10;
+
+pub fn definiteness(correlation: &DMatrix<f64>, items: &[String]) -> Definiteness {
+    let eig = correlation.clone().symmetric_eigen();
+    let (imin, &min) = eig.eigenvalues.iter().enumerate().min_by(|a, b| a.1.total_cmp(b.1)).unwrap_or((0, &f64::NAN));
+    let positive_definite = min > EIGEN_TOLERANCE * items.len().max(1) as f64;
+    let involved = if positive_definite {
+        Vec::new()
+    } else {
+        let v = eig.eigenvectors.column(imin);
+        let mut weights: Vec<(f64, &String)> = v.iter().map(|w| w.abs()).zip(items).filter(|(w, _)| *w > 0.2).collect();
+        weights.sort_by(|a, b| b.0.total_cmp(&a.0));
+        weights.into_iter().map(|(_, i)| i.clone()).collect()
+    };
+    Definiteness { positive_definite, min_eigenvalue: min, involved }
+}
+
+impl CovarianceStep {
+    /// Correlations from a published matrix, as given.
+    fn from_matrix(m: &super::load::SummaryMatrix, items: &[String]) -> Estimates {
+        let p = items.len();
+        let given = to_matrix(&m.values);
+        let (correlation, covariance) = match m.kind {
+            MatrixKind::Correlation => (given.clone(), given),
+            MatrixKind::Covariance => {
+                let sd: Vec<f64> = (0..p).map(|i| given[(i, i)].sqrt()).collect();
+                (DMatrix::from_fn(p, p, |r, c| given[(r, c)] / (sd[r] * sd[c])), given)
+            }
+        };
+        let mut e = Estimates::new(correlation, covariance, vec![vec![m.n; p]; p]);
+        for a in 0..p {
+            for b in a + 1..p {
+                let key = pair_key(items, a, b);
+                e.method.insert(key.clone(), PairMethod::Given);
+                e.se.insert(key, None);
+            }
+        }
+        e
+    }
+
+    /// Per pair Pearson, polychoric or polyserial (Olsson 1979; Olsson, Drasgow & Dorans 1982)
+    /// on the pair's complete rows. Covariances: product-moment for two continuous items (so
+    /// they equal the usual sample covariance); otherwise r_ab x sd_a x sd_b with each item's
+    /// standard deviation on its response scale, the scaling of the underlying response.
+    fn from_rows(&self, load: &LoadOutput, table: &Table) -> Result<Estimates, StepError> {
+        let items = &table.items;
+        let p = items.len();
+        let kinds = load.item_kinds();
+        let complete: Vec<bool> = match self.missing {
+            Missing::Pairwise => vec![true; table.rows()],
+            Missing::Listwise => (0..table.rows()).map(|r| table.columns.iter().all(|c| !c[r].is_nan())).collect(),
+        };
+        let columns: Vec<Column> = (0..p)
+            .map(|k| {
+                let values =
+                    table.columns[k].iter().zip(&complete).map(|(&v, &keep)| (keep && !v.is_nan()).then_some(v));
+                match (&kinds[k], &load.summary.items[k].categories) {
+                    (ItemKind::Ordinal, Some(levels)) => Column::Ordinal {
+                        codes: values
+                            .map(|v| v.and_then(|v| levels.iter().position(|&l| l == v)).map(|i| i as u32))
+                            .collect(),
+                        levels: levels.len(),
+                    },
+                    _ => Column::Continuous(values.collect()),
+                }
+            })
+            .collect();
+        let fit = match self.ordinal {
+            OrdinalEstimation::TwoStep => OrdinalFit::TwoStep,
+            OrdinalEstimation::Full => OrdinalFit::Full,
+        };
+        let mixed = mixed_correlation(&columns, fit)
+            .map_err(|source| StepError::Stats { context: pair_context(items, &source), source })?;
+        let continuous: Vec<Vec<Option<f64>>> = (0..p)
+            .map(|k| table.optional(k))
+            .map(|c| c.into_iter().zip(&complete).map(|(v, &keep)| v.filter(|_| keep)).collect())
+            .collect();
+        let deletion = match self.missing {
+            Missing::Pairwise => Deletion::Pairwise,
+            Missing::Listwise => Deletion::Listwise,
+        };
+        let moments = pearson(&continuous, deletion)
+            .map_err(|source| StepError::Stats { context: "product-moment covariances".into(), source })?;
+        let sd: Vec<f64> = (0..p).map(|k| moments.covariance[(k, k)].sqrt()).collect();
+        let correlation = mixed.matrix.clone();
+        let covariance = DMatrix::from_fn(p, p, |a, b| {
+            if kinds[a] == ItemKind::Continuous && kinds[b] == ItemKind::Continuous {
+                moments.covariance[(a, b)]
+            } else if a == b {
+                moments.covariance[(a, a)]
+            } else {
+                correlation[(a, b)] * sd[a] * sd[b]
+            }
+        });
+        let n = (0..p).map(|r| (0..p).map(|c| mixed.n[(r, c)]).collect()).collect();
+        let mut e = Estimates::new(correlation, covariance, n);
+        for pair in &mixed.pairs {
+            let key = pair_key(items, pair.first, pair.second);
+            let method = match pair.method {
+                mixed::PairMethod::Pearson => PairMethod::Pearson,
+                mixed::PairMethod::Polychoric => PairMethod::Polychoric,
+                mixed::PairMethod::Polyserial => PairMethod::Polyserial,
+            };
+            e.method.insert(key.clone(), method);
+            e.se.insert(key.clone(), pair.se);
+            if pair.at_bound {
+                e.at_bound.push(key.clone());
+            }
+            for m in &pair.merged {
+                let levels = load.summary.items[m.column].categories.clone().unwrap_or_default();
+                let value = |code: u32| levels.get(code as usize).copied().unwrap_or(f64::NAN);
+                e.merges.push(Merge {
+                    pair: key.clone(),
+                    item: items[m.column].clone(),
+                    empty: value(m.empty),
+                    into: value(m.into),
+                });
+            }
+        }
+        Ok(e)
+    }
+}
+
+/// The matrices and per-pair facts before the definiteness check.
+struct Estimates {
+    correlation: DMatrix<f64>,
+    covariance: DMatrix<f64>,
+    n: Vec<Vec<usize>>,
+    method: IndexMap<String, PairMethod>,
+    se: IndexMap<String, Option<f64>>,
+    merges: Vec<Merge>,
+    at_bound: Vec<String>,
+}
+
+impl Estimates {
+    fn new(correlation: DMatrix<f64>, covariance: DMatrix<f64>, n: Vec<Vec<usize>>) -> Estimates {
+        Estimates {
+            correlation,
+            covariance,
+            n,
+            method: IndexMap::new(),
+            se: IndexMap::new(),
+            merges: Vec::new(),
+            at_bound: Vec::new(),
+        }
+    }
+}
+
+fn pair_key(items: &[String], a: usize, b: usize) -> String {
+    format!("{}|{}", items[a], items[b])
+}
+
+/// Names the items of a failing pair instead of their column indices.
+fn pair_context(items: &[String], e: &crate::stats::StatsError) -> String {
+    match e {
+        crate::stats::StatsError::Pair { first, second, .. } => {
+            format!(
+                "the correlation of `{}` and `{}`",
+                items.get(*first).map_or("?", String::as_str),
+                items.get(*second).map_or("?", String::as_str)
+            )
+        }
+        _ => "item correlations".into(),
+    }
+}
+
+impl Step for CovarianceStep {
+    fn kind(&self) -> StepKind {
+        StepKind::Covariance
+    }
+
+    fn version(&self) -> u32 {
+        VERSION
+    }
+
+    fn params(&self) -> Value {
+        json!({"missing": self.missing, "ordinal": self.ordinal})
+    }
+
+    fn inputs(&self) -> Vec<StepKind> {
+        vec![StepKind::Load]
+    }
+
+    fn run(&self, inputs: &Inputs<'_>) -> Result<Artifact, StepError> {
+        let load = inputs.load()?;
+        let items: Vec<String> = load.summary.items.iter().map(|i| i.name.clone()).collect();
+        let mut e = match (&load.matrix, &load.table) {
+            (Some(m), _) => Self::from_matrix(m, &items),
+            (None, Some(table)) => self.from_rows(load, table)?,
+            (None, None) => return Err(StepError::MissingInput { step: StepKind::Covariance, needs: StepKind::Load }),
+        };
+        let mut definiteness = definiteness(&e.correlation, &items);
+        let mut smoothing = None;
+        if !definiteness.positive_definite && load.matrix.is_none() {
+            let s = smooth_correlation(&e.correlation)
+                .map_err(|source| StepError::Stats { context: "smoothing the correlation matrix".into(), source })?;
+            if s.changed {
+                let sd: Vec<f64> = (0..items.len()).map(|k| e.covariance[(k, k)].sqrt()).collect();
+                e.covariance = DMatrix::from_fn(items.len(), items.len(), |a, b| s.matrix[(a, b)] * sd[a] * sd[b]);
+                e.correlation = s.matrix.clone();
+                smoothing = Some(SmoothingSummary {
+                    method: "nearest correlation matrix by alternating projections (Higham 2002)".into(),
+                    min_eigenvalue_before: s.min_eigenvalue_before,
+                    min_eigenvalue_after: s.min_eigenvalue_after,
+                    max_abs_change: s.max_abs_change,
+                    frobenius_change: s.frobenius_change,
+                });
+                // Keep the diagnosis of the unsmoothed matrix (which items were involved).
+                definiteness.min_eigenvalue = s.min_eigenvalue_before;
+            }
+        }
+        Ok(Artifact::Covariance(Box::new(CovarianceOutput {
+            kind: items.iter().cloned().zip(load.item_kinds()).collect(),
+            items,
+            method: e.method,
+            correlation: to_rows(&e.correlation),
+            covariance: to_rows(&e.covariance),
+            n: e.n,
+            smoothed: smoothing.is_some(),
+            missing: self.missing,
+            definiteness,
+            se: e.se,
+            merges: e.merges,
+            smoothing,
+            at_bound: e.at_bound,
+        })))
+    }
+
+    fn describe(&self, artifact: &Artifact) -> String {
+        let Artifact::Covariance(c) = artifact else { return String::new() };
+        let p = c.items.len();
+        let count = |m: PairMethod| c.method.values().filter(|&&x| x == m).count();
+        let mut parts = Vec::new();
+        for (m, label) in [
+            (PairMethod::Pearson, "Pearson"),
+            (PairMethod::Polychoric, "polychoric"),
+            (PairMethod::Polyserial, "polyserial"),
+            (PairMethod::Given, "given"),
+        ] {
+            let k = count(m);
+            if k > 0 {
+                parts.push(format!("{k} {label}"));
+            }
+        }
+        let pd = match (&c.smoothing, c.definiteness.positive_definite) {
+            (Some(s), _) => format!("smoothed to positive definite (max change {:.4})", s.max_abs_change),
+            (None, true) => "positive definite".to_string(),
+            (None, false) => format!("NOT positive definite (items {})", c.definiteness.involved.join(", ")),
+        };
+        format!("{p}x{p} matrix, {} pairs: {}; {pd}", p * p.saturating_sub(1) / 2, parts.join(", "))
+    }
+}

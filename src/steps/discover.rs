@@ -1,0 +1,133 @@
+//! `discover`: pure one-factor clusters found from vanishing tetrads alone over an item pool,
+//! ignoring the declared constructs, then set beside them. Central type: `DiscoverOutput`.
+
+use indexmap::IndexMap;
+use serde::{Deserialize, Serialize};
+use serde_json::{Value, json};
+
+use super::purify::{complete_rows, tetrad_kind};
+use super::{Artifact, Inputs, Step, StepError, StepKind};
+use crate::spec::types::{DiscoverSpec, ItemPool, TetradTest};
+use crate::stats::cluster::{ClusterOptions, find_clusters};
+use crate::stats::tetrad::TetradTester;
+
+/// Bump when clusters change for the same covariances and parameters.
+pub const VERSION: u32 = 1;
+
+/// Smallest cluster reported: three items identify a one-factor model.
+const MIN_CLUSTER: usize = 3;
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct ClusterOrigin {
+    pub items: Vec<String>,
+    /// Declared construct -> how many of the cluster's items it claims.
+    pub declared: IndexMap<String, usize>,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct DiscoverOutput {
+    pub clusters: Vec<Vec<String>>,
+    pub unclustered: Vec<String>,
+    pub origins: Vec<ClusterOrigin>,
+    pub alpha: f64,
+    pub test: TetradTest,
+    pub n: usize,
+}
+
+pub struct DiscoverStep {
+    params: DiscoverSpec,
+    /// item -> declared construct, for the comparison.
+    declared: Vec<(String, String)>,
+}
+
+impl DiscoverStep {
+    pub fn from_spec(file: &crate::spec::SpecFile, params: &DiscoverSpec) -> DiscoverStep {
+        let declared = file
+            .spec
+            .constructs
+            .iter()
+            .flat_map(|(c, s)| s.items.iter().map(move |i| (i.clone(), c.clone())))
+            .collect();
+        DiscoverStep { params: params.clone(), declared }
+    }
+}
+
+impl Step for DiscoverStep {
+    fn kind(&self) -> StepKind {
+        StepKind::Discover
+    }
+
+    fn version(&self) -> u32 {
+        VERSION
+    }
+
+    fn params(&self) -> Value {
+        json!({"items": self.params.items, "alpha": self.params.alpha, "test": self.params.test, "declared": self.declared})
+    }
+
+    fn inputs(&self) -> Vec<StepKind> {
+        vec![StepKind::Load, StepKind::Covariance]
+    }
+
+    fn run(&self, inputs: &Inputs<'_>) -> Result<Artifact, StepError> {
+        let cov = inputs.covariance()?;
+        let items = &cov.items;
+        let pool: Vec<usize> = match &self.params.items {
+            ItemPool::All => (0..items.len()).collect(),
+            ItemPool::Items(list) => list.iter().filter_map(|n| items.iter().position(|i| i == n)).collect(),
+        };
+        let n = cov.min_n();
+        let data = match self.params.test {
+            TetradTest::Delta => {
+                let table = inputs
+                    .load()?
+                    .table
+                    .as_ref()
+                    .ok_or(StepError::MissingInput { step: StepKind::Discover, needs: StepKind::Load })?;
+                Some(complete_rows(table, &(0..items.len()).collect::<Vec<_>>()))
+            }
+            TetradTest::Wishart => None,
+        };
+        let stats_err = |source| StepError::Stats { context: "cluster discovery".into(), source };
+        let tester = TetradTester::new(tetrad_kind(self.params.test), &cov.correlation_matrix(), n, data.as_ref())
+            .map_err(stats_err)?;
+        let found = find_clusters(&tester, &pool, &ClusterOptions { alpha: self.params.alpha, min_size: MIN_CLUSTER })
+            .map_err(stats_err)?;
+        let names = |idx: &[usize]| idx.iter().map(|&i| items[i].clone()).collect::<Vec<_>>();
+        let clusters: Vec<Vec<String>> = found.clusters.iter().map(|c| names(c)).collect();
+        let origins = clusters
+            .iter()
+            .map(|c| {
+                let mut declared: IndexMap<String, usize> = IndexMap::new();
+                for item in c {
+                    let construct = self
+                        .declared
+                        .iter()
+                        .find(|(i, _)| i == item)
+                        .map_or("(undeclared)".to_string(), |(_, c)| c.clone());
+                    *declared.entry(construct).or_default() += 1;
+                }
+                ClusterOrigin { items: c.clone(), declared }
+            })
+            .collect();
+        Ok(Artifact::Discover(Box::new(DiscoverOutput {
+            clusters,
+            unclustered: names(&found.unclustered),
+            origins,
+            alpha: self.params.alpha,
+            test: self.params.test,
+            n,
+        })))
+    }
+
+    fn describe(&self, artifact: &Artifact) -> String {
+        let Artifact::Discover(d) = artifact else { return String::new() };
+        let sizes: Vec<String> = d.clusters.iter().map(|c| c.len().to_string()).collect();
+        format!(
+            "{} (sizes {}), {} unclustered",
+            crate::spec::diagnostic::plural(d.clusters.len(), "pure cluster"),
+            sizes.join(", "),
+            crate::spec::diagnostic::plural(d.unclustered.len(), "item")
+        )
+    }
+}

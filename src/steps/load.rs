@@ -1,0 +1,355 @@
+//! `load`: read every wave (or the summary matrix), stack rows with their wave, apply missing
+//! codes and reverse coding, decide each item's type, and summarise each item.
+//! Central type: `LoadOutput`. Its table is the only place respondent rows live; `results`
+//! exposes the summary alone.
+
+use std::path::PathBuf;
+
+use indexmap::IndexMap;
+use serde::{Deserialize, Serialize};
+use serde_json::{Value, json};
+
+use super::{Artifact, Inputs, Step, StepError, StepKind};
+use crate::data::matrix::read_matrix;
+use crate::data::{DataError, Table, read_numeric_columns};
+use crate::spec::SpecFile;
+use crate::spec::types::{AUTO_MAX_LEVELS, MatrixKind, OrdinalSpec};
+
+/// Bump when the loaded table or summary changes for the same files and parameters.
+pub const VERSION: u32 = 1;
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum ItemKind {
+    Continuous,
+    Ordinal,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct ItemSummary {
+    pub name: String,
+    pub construct: String,
+    pub kind: ItemKind,
+    pub n: usize,
+    pub missing: usize,
+    /// Distinct observed values (ordinal items: their categories, in order).
+    pub levels: usize,
+    pub categories: Option<Vec<f64>>,
+    /// `None` for a summary matrix, which carries no means or ranges.
+    pub mean: Option<f64>,
+    pub sd: Option<f64>,
+    pub min: Option<f64>,
+    pub max: Option<f64>,
+    pub reversed: bool,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct WaveSummary {
+    pub id: String,
+    pub file: String,
+    pub rows: usize,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct SummaryMatrix {
+    pub kind: MatrixKind,
+    pub n: usize,
+    /// In the order of `DataSummary::items`.
+    pub values: Vec<Vec<f64>>,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct DataSummary {
+    /// `waves` (respondent rows) or `matrix` (a published summary matrix).
+    pub source: String,
+    pub waves: Vec<WaveSummary>,
+    pub rows: usize,
+    pub items: Vec<ItemSummary>,
+}
+
+#[derive(Debug, Clone)]
+pub struct LoadOutput {
+    pub summary: DataSummary,
+    pub table: Option<Table>,
+    pub matrix: Option<SummaryMatrix>,
+}
+
+#[derive(Serialize, Deserialize)]
+struct Envelope {
+    summary: DataSummary,
+    matrix: Option<SummaryMatrix>,
+}
+
+impl LoadOutput {
+    /// `u64 length || JSON(summary, matrix) || table bytes`.
+    pub fn encode(&self) -> Vec<u8> {
+        let head = serde_json::to_vec(&Envelope { summary: self.summary.clone(), matrix: self.matrix.clone() })
+            .unwrap_or_default();
+        let mut out = (head.len() as u64).to_le_bytes().to_vec();
+        out.extend_from_slice(&head);
+        if let Some(t) = &self.table {
+            out.extend_from_slice(&t.to_bytes());
+        }
+        out
+    }
+
+    pub fn decode(bytes: &[u8]) -> Option<LoadOutput> {
+        let (len, rest) = bytes.split_first_chunk::<8>()?;
+        let len = usize::try_from(u64::from_le_bytes(*len)).ok()?;
+        let env: Envelope = serde_json::from_slice(rest.get(..len)?).ok()?;
+        let tail = rest.get(len..)?;
+        let table = if tail.is_empty() { None } else { Some(Table::from_bytes(tail)?) };
+        Some(LoadOutput { summary: env.summary, table, matrix: env.matrix })
+    }
+
+    pub fn item_kinds(&self) -> Vec<ItemKind> {
+        self.summary.items.iter().map(|i| i.kind).collect()
+    }
+}
+
+#[derive(Debug, Clone, Serialize)]
+struct WaveFile {
+    id: String,
+    #[serde(skip)]
+    path: PathBuf,
+    #[serde(skip)]
+    shown: String,
+}
+
+/// What `load` reads and how, resolved from the spec.
+pub struct LoadStep {
+    waves: Vec<WaveFile>,
+    matrix: Option<(PathBuf, String, MatrixKind, usize)>,
+    /// (item, construct) in spec order.
+    items: Vec<(String, String)>,
+    missing_codes: Vec<f64>,
+    ordinal: OrdinalSpec,
+    reverse: IndexMap<String, [f64; 2]>,
+}
+
+impl LoadStep {
+    pub fn from_spec(file: &SpecFile) -> LoadStep {
+        let data = &file.spec.data;
+        let waves = data
+            .waves
+            .iter()
+            .map(|w| WaveFile { id: w.id.clone(), path: file.resolve(&w.file), shown: w.file.display().to_string() })
+            .collect();
+        let matrix = data.matrix.as_ref().map(|m| (file.resolve(&m.file), m.file.display().to_string(), m.kind, m.n));
+        let items = file
+            .spec
+            .constructs
+            .iter()
+            .flat_map(|(c, spec)| spec.items.iter().map(move |i| (i.clone(), c.clone())))
+            .collect();
+        LoadStep {
+            waves,
+            matrix,
+            items,
+            missing_codes: data.missing_codes.clone(),
+            ordinal: data.ordinal.clone(),
+            reverse: data.reverse.clone(),
+        }
+    }
+
+    fn item_names(&self) -> Vec<String> {
+        self.items.iter().map(|(i, _)| i.clone()).collect()
+    }
+
+    fn load_waves(&self) -> Result<LoadOutput, StepError> {
+        let names = self.item_names();
+        let mut columns: Vec<Vec<f64>> = vec![Vec::new(); names.len()];
+        let mut wave_of_row = Vec::new();
+        let mut waves = Vec::new();
+        for (w, wave) in self.waves.iter().enumerate() {
+            let mut cols = read_numeric_columns(&wave.path, &names)?;
+            let rows = cols.first().map_or(0, Vec::len);
+            for (k, col) in cols.iter_mut().enumerate() {
+                self.recode(&names[k], col, &wave.path)?;
+            }
+            for (all, col) in columns.iter_mut().zip(cols) {
+                all.extend(col);
+            }
+            wave_of_row.extend(std::iter::repeat_n(w as u32, rows));
+            waves.push(WaveSummary { id: wave.id.clone(), file: wave.shown.clone(), rows });
+        }
+        let mut items = Vec::with_capacity(names.len());
+        for (k, (name, construct)) in self.items.iter().enumerate() {
+            items.push(self.summarise(name, construct, &columns[k])?);
+        }
+        let rows = wave_of_row.len();
+        let table = Table { items: names, waves: waves.iter().map(|w| w.id.clone()).collect(), wave_of_row, columns };
+        Ok(LoadOutput {
+            summary: DataSummary { source: "waves".into(), waves, rows, items },
+            table: Some(table),
+            matrix: None,
+        })
+    }
+
+    /// Missing codes become NaN; reversed items become lowest + highest - value.
+    fn recode(&self, item: &str, col: &mut [f64], path: &std::path::Path) -> Result<(), DataError> {
+        let reverse = self.reverse.get(item).copied();
+        for (row, v) in col.iter_mut().enumerate() {
+            if v.is_nan() {
+                continue;
+            }
+            if self.missing_codes.iter().any(|c| c == v) {
+                *v = f64::NAN;
+                continue;
+            }
+            if let Some([lo, hi]) = reverse {
+                if *v < lo || *v > hi {
+                    return Err(DataError::OutsideReverseRange {
+                        item: item.into(),
+                        value: *v,
+                        lo,
+                        hi,
+                        path: path.into(),
+                        row: row + 1,
+                    });
+                }
+                *v = lo + hi - *v;
+            }
+        }
+        Ok(())
+    }
+
+    fn summarise(&self, name: &str, construct: &str, col: &[f64]) -> Result<ItemSummary, DataError> {
+        let present: Vec<f64> = col.iter().copied().filter(|v| !v.is_nan()).collect();
+        let n = present.len();
+        if n == 0 {
+            return Err(DataError::EmptyItem { item: name.into() });
+        }
+        let mut distinct = present.clone();
+        distinct.sort_by(f64::total_cmp);
+        distinct.dedup();
+        if distinct.len() == 1 {
+            return Err(DataError::ConstantItem { item: name.into(), value: distinct[0] });
+        }
+        let integer = distinct.iter().all(|v| v.fract() == 0.0);
+        let kind = match &self.ordinal {
+            OrdinalSpec::Auto if integer && distinct.len() <= AUTO_MAX_LEVELS => ItemKind::Ordinal,
+            OrdinalSpec::Items(list) if list.iter().any(|i| i == name) => {
+                if let Some(v) = distinct.iter().find(|v| v.fract() != 0.0) {
+                    return Err(DataError::NonIntegerOrdinal { item: name.into(), value: *v });
+                }
+                ItemKind::Ordinal
+            }
+            _ => ItemKind::Continuous,
+        };
+        let mean = present.iter().sum::<f64>() / n as f64;
+        let var = present.iter().map(|v| (v - mean).powi(2)).sum::<f64>() / (n as f64 - 1.0).max(1.0);
+        Ok(ItemSummary {
+            name: name.into(),
+            construct: construct.into(),
+            kind,
+            n,
+            missing: col.len() - n,
+            levels: distinct.len(),
+            categories: (kind == ItemKind::Ordinal).then(|| distinct.clone()),
+            mean: Some(mean),
+            sd: Some(var.sqrt()),
+            min: Some(distinct[0]),
+            max: Some(distinct[distinct.len() - 1]),
+            reversed: self.reverse.contains_key(name),
+        })
+    }
+
+    fn load_matrix(&self, path: &std::path::Path, kind: MatrixKind, n: usize) -> Result<LoadOutput, StepError> {
+        let m = read_matrix(path)?;
+        let names = self.item_names();
+        let index: Vec<usize> = names
+            .iter()
+            .map(|i| {
+                m.names
+                    .iter()
+                    .position(|c| c == i)
+                    .ok_or_else(|| DataError::MissingColumn { path: path.into(), column: i.clone() })
+            })
+            .collect::<Result<_, _>>()?;
+        let values: Vec<Vec<f64>> = index.iter().map(|&r| index.iter().map(|&c| m.values[r][c]).collect()).collect();
+        let items = self
+            .items
+            .iter()
+            .enumerate()
+            .map(|(k, (name, construct))| {
+                let var = values[k][k];
+                ItemSummary {
+                    name: name.clone(),
+                    construct: construct.clone(),
+                    kind: ItemKind::Continuous,
+                    n,
+                    missing: 0,
+                    levels: 0,
+                    categories: None,
+                    mean: None,
+                    sd: Some(if kind == MatrixKind::Covariance { var.sqrt() } else { 1.0 }),
+                    min: None,
+                    max: None,
+                    reversed: false,
+                }
+            })
+            .collect();
+        Ok(LoadOutput {
+            summary: DataSummary { source: "matrix".into(), waves: Vec::new(), rows: n, items },
+            table: None,
+            matrix: Some(SummaryMatrix { kind, n, values }),
+        })
+    }
+}
+
+impl Step for LoadStep {
+    fn kind(&self) -> StepKind {
+        StepKind::Load
+    }
+
+    fn version(&self) -> u32 {
+        VERSION
+    }
+
+    fn params(&self) -> Value {
+        json!({
+            "waves": self.waves.iter().map(|w| &w.id).collect::<Vec<_>>(),
+            "matrix": self.matrix.as_ref().map(|(_, _, kind, n)| json!({"kind": kind, "n": n})),
+            "items": self.items,
+            "missing_codes": self.missing_codes,
+            "ordinal": self.ordinal,
+            "reverse": self.reverse,
+        })
+    }
+
+    fn inputs(&self) -> Vec<StepKind> {
+        Vec::new()
+    }
+
+    fn files(&self) -> Vec<PathBuf> {
+        let mut files: Vec<PathBuf> = self.waves.iter().map(|w| w.path.clone()).collect();
+        files.extend(self.matrix.iter().map(|m| m.0.clone()));
+        files
+    }
+
+    fn run(&self, _inputs: &Inputs<'_>) -> Result<Artifact, StepError> {
+        let out = match &self.matrix {
+            Some((path, _, kind, n)) => self.load_matrix(path, *kind, *n)?,
+            None => self.load_waves()?,
+        };
+        Ok(Artifact::Load(Box::new(out)))
+    }
+
+    fn describe(&self, artifact: &Artifact) -> String {
+        let Artifact::Load(a) = artifact else { return String::new() };
+        let s = &a.summary;
+        let ordinal = s.items.iter().filter(|i| i.kind == ItemKind::Ordinal).count();
+        if s.source == "matrix" {
+            format!("{} from a summary matrix, n = {}", crate::spec::diagnostic::plural(s.items.len(), "item"), s.rows)
+        } else {
+            format!(
+                "{} from {}, {} ({} ordinal)",
+                crate::spec::diagnostic::plural(s.rows, "row"),
+                crate::spec::diagnostic::plural(s.waves.len(), "wave"),
+                crate::spec::diagnostic::plural(s.items.len(), "item"),
+                ordinal
+            )
+        }
+    }
+}

@@ -1,0 +1,354 @@
+//! `measure`: the maximum-likelihood CFA of the (purified) constructs, with single indicators'
+//! error variances fixed from their stated reliability, fit indices beside the unpurified
+//! model's, and reliability per construct. Central type: `MeasureOutput` (also what the
+//! structure search reads: the latent covariance and its asymptotic covariance).
+
+use indexmap::IndexMap;
+use nalgebra::DMatrix;
+use serde::{Deserialize, Serialize};
+use serde_json::{Value, json};
+
+use super::{Artifact, Inputs, Step, StepError, StepKind};
+use crate::spec::SpecFile;
+use crate::spec::types::{Identification, MeasureSpec};
+use crate::stats::StatsError;
+use crate::stats::reliability::{cronbach_alpha, mcdonald_omega};
+use crate::stats::sem::{self, FitOptions, Matrix, ParameterKind, SemFit, SemModel};
+
+/// Bump when the fit changes for the same covariances, purification and parameters.
+pub const VERSION: u32 = 1;
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct FitSummary {
+    pub chisq: f64,
+    pub df: usize,
+    pub p: f64,
+    pub rmsea: f64,
+    pub rmsea_ci: [f64; 2],
+    pub cfi: f64,
+    pub tli: f64,
+    pub srmr: f64,
+}
+
+impl FitSummary {
+    pub fn of(fit: &SemFit) -> FitSummary {
+        FitSummary {
+            chisq: fit.chisq,
+            df: fit.df,
+            p: fit.p_value,
+            rmsea: fit.rmsea,
+            rmsea_ci: [fit.rmsea_ci.0, fit.rmsea_ci.1],
+            cfi: fit.cfi,
+            tli: fit.tli,
+            srmr: fit.srmr,
+        }
+    }
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Estimate {
+    pub est: f64,
+    pub se: Option<f64>,
+    pub std: Option<f64>,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct ErrorVariance {
+    pub est: f64,
+    pub se: Option<f64>,
+    /// Fixed from a stated reliability rather than estimated.
+    pub fixed: bool,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct NamedMatrix {
+    pub names: Vec<String>,
+    pub matrix: Vec<Vec<f64>>,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Reliability {
+    pub omega: Option<f64>,
+    pub alpha: Option<f64>,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct HeywoodRecord {
+    pub kind: String,
+    pub parameter: String,
+    pub value: f64,
+}
+
+/// The latent covariance with the delta-method covariance of its lower-triangle elements,
+/// for the structure search's Wald tests.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct LatentCovariance {
+    pub names: Vec<String>,
+    pub matrix: Vec<Vec<f64>>,
+    /// (i, j), i >= j, column-major lower triangle: the order of `acov`.
+    pub pairs: Vec<(usize, usize)>,
+    pub acov: Vec<Vec<f64>>,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct MeasureOutput {
+    pub converged: bool,
+    pub iterations: usize,
+    pub identification: Identification,
+    pub n: usize,
+    pub constructs: IndexMap<String, Vec<String>>,
+    pub fit: FitSummary,
+    pub loadings: IndexMap<String, IndexMap<String, Estimate>>,
+    pub error_variances: IndexMap<String, ErrorVariance>,
+    pub latent_correlation: NamedMatrix,
+    pub latent_covariance: LatentCovariance,
+    pub reliability: IndexMap<String, Reliability>,
+    pub heywood: Vec<HeywoodRecord>,
+    /// The declared (unpurified) model's fit, when purification dropped items.
+    pub unpurified: Option<UnpurifiedFit>,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct UnpurifiedFit {
+    pub converged: bool,
+    pub fit: FitSummary,
+}
+
+/// A construct as the measurement model sees it.
+#[derive(Debug, Clone, Serialize)]
+struct ConstructModel {
+    name: String,
+    items: Vec<String>,
+    reliability: Option<f64>,
+}
+
+pub struct MeasureStep {
+    params: MeasureSpec,
+    declared: Vec<ConstructModel>,
+    purified: bool,
+}
+
+impl MeasureStep {
+    pub fn from_spec(file: &SpecFile, params: &MeasureSpec) -> MeasureStep {
+        let declared = file
+            .spec
+            .constructs
+            .iter()
+            .map(|(n, c)| ConstructModel { name: n.clone(), items: c.items.clone(), reliability: c.reliability })
+            .collect();
+        MeasureStep { params: params.clone(), declared, purified: file.spec.analyses.purify.is_some() }
+    }
+}
+
+fn identification(i: Identification) -> sem::Identification {
+    match i {
+        Identification::UnitVariance => sem::Identification::UnitLatentVariance,
+        Identification::FirstLoading => sem::Identification::UnitFirstLoading,
+    }
+}
+
+fn rows(m: &DMatrix<f64>) -> Vec<Vec<f64>> {
+    (0..m.nrows()).map(|r| (0..m.ncols()).map(|c| m[(r, c)]).collect()).collect()
+}
+
+/// Fits the CFA of `constructs` on the covariance of the named items.
+pub fn fit_constructs(
+    constructs: &[(String, Vec<String>, Option<f64>)],
+    all_items: &[String],
+    covariance: &DMatrix<f64>,
+    n: usize,
+    ident: Identification,
+    paths: &[(usize, usize)],
+) -> Result<(SemFit, Vec<String>), StatsError> {
+    let observed: Vec<String> = constructs.iter().flat_map(|(_, items, _)| items.iter().cloned()).collect();
+    let index: Vec<usize> =
+        observed.iter().map(|i| all_items.iter().position(|a| a == i).unwrap_or(usize::MAX)).collect();
+    if index.contains(&usize::MAX) {
+        return Err(StatsError::InvalidInput("an item of the model is not in the covariance matrix".into()));
+    }
+    let s = DMatrix::from_fn(index.len(), index.len(), |r, c| covariance[(index[r], index[c])]);
+    let mut offset = 0;
+    let groups: Vec<Vec<usize>> = constructs
+        .iter()
+        .map(|(_, items, _)| {
+            let g = (offset..offset + items.len()).collect();
+            offset += items.len();
+            g
+        })
+        .collect();
+    let names: Vec<String> = constructs.iter().map(|(n, _, _)| n.clone()).collect();
+    let mut model = if paths.is_empty() {
+        SemModel::cfa(&groups, index.len(), identification(ident))?
+    } else {
+        SemModel::sem(&groups, index.len(), identification(ident), paths)?
+    };
+    for ((name, _, reliability), g) in constructs.iter().zip(&groups) {
+        match (reliability, g.as_slice()) {
+            (Some(r), [single]) => {
+                model.fix_error_variance(*single, (1.0 - r) * s[(*single, *single)]);
+            }
+            (None, [_]) => {
+                return Err(StatsError::InvalidInput(format!("construct `{name}` has one item and no reliability")));
+            }
+            _ => {}
+        }
+    }
+    let model = model.with_names(observed.clone(), names)?;
+    let fit = model.fit(&s, n, &FitOptions::default())?;
+    Ok((fit, observed))
+}
+
+impl MeasureStep {
+    fn constructs(&self, kept: Option<IndexMap<String, Vec<String>>>) -> Vec<(String, Vec<String>, Option<f64>)> {
+        self.declared
+            .iter()
+            .map(|c| {
+                let items = kept.as_ref().and_then(|k| k.get(&c.name).cloned()).unwrap_or_else(|| c.items.clone());
+                (c.name.clone(), items, c.reliability)
+            })
+            .collect()
+    }
+}
+
+impl Step for MeasureStep {
+    fn kind(&self) -> StepKind {
+        StepKind::Measure
+    }
+
+    fn version(&self) -> u32 {
+        VERSION
+    }
+
+    fn params(&self) -> Value {
+        json!({"identification": self.params.identification, "constructs": self.declared})
+    }
+
+    fn inputs(&self) -> Vec<StepKind> {
+        if self.purified { vec![StepKind::Covariance, StepKind::Purify] } else { vec![StepKind::Covariance] }
+    }
+
+    fn run(&self, inputs: &Inputs<'_>) -> Result<Artifact, StepError> {
+        let cov = inputs.covariance()?;
+        let kept = if self.purified { Some(inputs.purify()?.kept()) } else { None };
+        let constructs = self.constructs(kept);
+        let n = cov.min_n();
+        let s = cov.covariance_matrix();
+        let err = |context: &'static str| move |source| StepError::Stats { context: context.to_string(), source };
+        let (fit, observed) = fit_constructs(&constructs, &cov.items, &s, n, self.params.identification, &[])
+            .map_err(err("the measurement model"))?;
+        let unpurified = if self.purified && constructs.iter().zip(&self.declared).any(|(c, d)| c.1 != d.items) {
+            let declared = self.constructs(None);
+            fit_constructs(&declared, &cov.items, &s, n, self.params.identification, &[])
+                .ok()
+                .map(|(f, _)| UnpurifiedFit { converged: f.converged, fit: FitSummary::of(&f) })
+        } else {
+            None
+        };
+        Ok(Artifact::Measure(Box::new(summarise(
+            &fit,
+            &constructs,
+            &observed,
+            &s,
+            &cov.items,
+            n,
+            self.params.identification,
+            unpurified,
+        ))))
+    }
+
+    fn describe(&self, artifact: &Artifact) -> String {
+        let Artifact::Measure(m) = artifact else { return String::new() };
+        let f = &m.fit;
+        let status = if m.converged { "converged" } else { "DID NOT CONVERGE" };
+        let heywood =
+            if m.heywood.is_empty() { String::new() } else { format!(", {} Heywood case(s)", m.heywood.len()) };
+        format!(
+            "{status} in {} iterations; chisq {:.1} on {} df, RMSEA {:.3}, CFI {:.3}{heywood}",
+            m.iterations, f.chisq, f.df, f.rmsea, f.cfi
+        )
+    }
+}
+
+/// Turns a fit into the `measure` block of results.json.
+#[allow(clippy::too_many_arguments)] // one call site; a parameter struct would only rename these
+pub fn summarise(
+    fit: &SemFit,
+    constructs: &[(String, Vec<String>, Option<f64>)],
+    observed: &[String],
+    s_full: &DMatrix<f64>,
+    all_items: &[String],
+    n: usize,
+    ident: Identification,
+    unpurified: Option<UnpurifiedFit>,
+) -> MeasureOutput {
+    let names: Vec<String> = constructs.iter().map(|c| c.0.clone()).collect();
+    let mut loadings: IndexMap<String, IndexMap<String, Estimate>> =
+        names.iter().map(|n| (n.clone(), IndexMap::new())).collect();
+    let mut error_variances = IndexMap::new();
+    for p in &fit.parameters {
+        match (p.kind, p.matrix) {
+            (ParameterKind::Loading, Matrix::Lambda) if p.free.is_some() || p.est != 0.0 => {
+                if let Some(map) = loadings.get_mut(&names[p.col]) {
+                    map.insert(observed[p.row].clone(), Estimate { est: p.est, se: p.se, std: p.std });
+                }
+            }
+            (ParameterKind::ErrorVariance, Matrix::Theta) => {
+                error_variances
+                    .insert(observed[p.row].clone(), ErrorVariance { est: p.est, se: p.se, fixed: p.free.is_none() });
+            }
+            _ => {}
+        }
+    }
+    let moments = fit.latent_moments();
+    let mut offset = 0;
+    let reliability = constructs
+        .iter()
+        .enumerate()
+        .map(|(j, (name, items, _))| {
+            let idx: Vec<usize> = (offset..offset + items.len()).collect();
+            offset += items.len();
+            let sd = moments.covariance[(j, j)].max(0.0).sqrt();
+            let lambda: Vec<f64> = idx.iter().map(|&i| fit.matrices.lambda[(i, j)] * sd).collect();
+            let theta: Vec<f64> = idx.iter().map(|&i| fit.matrices.theta[(i, i)]).collect();
+            let omega = if items.len() >= 2 { mcdonald_omega(&lambda, &theta).ok() } else { None };
+            let full: Vec<usize> = items.iter().filter_map(|i| all_items.iter().position(|a| a == i)).collect();
+            let alpha = if items.len() >= 2 { cronbach_alpha(s_full, &full).ok() } else { None };
+            (name.clone(), Reliability { omega, alpha })
+        })
+        .collect();
+    let heywood = fit
+        .heywood
+        .iter()
+        .map(|h| HeywoodRecord {
+            kind: format!("{:?}", h.kind),
+            parameter: match h.entry {
+                Some((Matrix::Theta, r, c)) if r == c => format!("error variance of `{}`", observed[r]),
+                Some((Matrix::Lambda, r, c)) => format!("loading of `{}` on `{}`", observed[r], names[c]),
+                Some((Matrix::Psi, r, c)) => format!("latent (co)variance `{}`, `{}`", names[r], names[c]),
+                Some((m, r, c)) => format!("{m:?}[{r}, {c}]"),
+                None => "latent covariance matrix".into(),
+            },
+            value: h.value,
+        })
+        .collect();
+    MeasureOutput {
+        converged: fit.converged,
+        iterations: fit.iterations,
+        identification: ident,
+        n,
+        constructs: constructs.iter().map(|(n, i, _)| (n.clone(), i.clone())).collect(),
+        fit: FitSummary::of(fit),
+        loadings,
+        error_variances,
+        latent_correlation: NamedMatrix { names: names.clone(), matrix: rows(&moments.correlation) },
+        latent_covariance: LatentCovariance {
+            names,
+            matrix: rows(&moments.covariance),
+            pairs: moments.pairs.clone(),
+            acov: rows(&moments.covariance_acov),
+        },
+        reliability,
+        heywood,
+        unpurified,
+    }
+}

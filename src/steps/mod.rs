@@ -1,0 +1,215 @@
+//! One file per step kind: turn the step's parameters and input artifacts into its artifact by
+//! calling `stats/`. Central trait: `Step`; central enum: `Artifact`. Steps are thin: no
+//! numerics of their own, no cache or report logic. Adding a kind = one file here, one variant
+//! in `StepKind` and `Artifact`, one line in `build_steps`.
+
+pub mod covariance;
+pub mod discover;
+pub mod load;
+pub mod measure;
+pub mod purify;
+pub mod structure;
+
+use std::collections::BTreeMap;
+use std::path::PathBuf;
+
+use serde::{Deserialize, Serialize};
+use serde_json::Value;
+use thiserror::Error;
+
+use crate::data::DataError;
+use crate::spec::SpecFile;
+use crate::stats::StatsError;
+
+pub use covariance::{CovarianceOutput, CovarianceStep};
+pub use discover::{DiscoverOutput, DiscoverStep};
+pub use load::{LoadOutput, LoadStep};
+pub use measure::{MeasureOutput, MeasureStep};
+pub use purify::{PurifyOutput, PurifyStep};
+pub use structure::{StructureOutput, StructureStep};
+
+/// The kinds of step, in plan order. One name everywhere: spec key, file, variant, report block.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Hash, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum StepKind {
+    Load,
+    Covariance,
+    Purify,
+    Discover,
+    Measure,
+    Structure,
+}
+
+impl StepKind {
+    pub fn name(self) -> &'static str {
+        match self {
+            StepKind::Load => "load",
+            StepKind::Covariance => "covariance",
+            StepKind::Purify => "purify",
+            StepKind::Discover => "discover",
+            StepKind::Measure => "measure",
+            StepKind::Structure => "structure",
+        }
+    }
+}
+
+impl std::fmt::Display for StepKind {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(self.name())
+    }
+}
+
+/// Why a step could not produce its artifact.
+#[derive(Debug, Error)]
+pub enum StepError {
+    #[error(transparent)]
+    Data(#[from] DataError),
+    #[error("{context}: {source}")]
+    Stats { context: String, source: StatsError },
+    #[error("step `{step}` needs the output of `{needs}`, which is not in the plan")]
+    MissingInput { step: StepKind, needs: StepKind },
+}
+
+impl StepError {
+    /// Whether the user's data (not construe) is at fault: exit code 1 rather than 2.
+    pub fn is_input_problem(&self) -> bool {
+        matches!(self, StepError::Data(_))
+    }
+}
+
+/// The typed result of a step; its bytes are what the cache stores and the manifest hashes.
+#[derive(Debug, Clone)]
+pub enum Artifact {
+    Load(Box<LoadOutput>),
+    Covariance(Box<CovarianceOutput>),
+    Purify(Box<PurifyOutput>),
+    Discover(Box<DiscoverOutput>),
+    Measure(Box<MeasureOutput>),
+    Structure(Box<StructureOutput>),
+}
+
+impl Artifact {
+    pub fn encode(&self) -> Vec<u8> {
+        match self {
+            Artifact::Load(a) => a.encode(),
+            Artifact::Covariance(a) => serde_json::to_vec(a).unwrap_or_default(),
+            Artifact::Purify(a) => serde_json::to_vec(a).unwrap_or_default(),
+            Artifact::Discover(a) => serde_json::to_vec(a).unwrap_or_default(),
+            Artifact::Measure(a) => serde_json::to_vec(a).unwrap_or_default(),
+            Artifact::Structure(a) => serde_json::to_vec(a).unwrap_or_default(),
+        }
+    }
+
+    /// Decodes cached bytes; `None` if they do not parse (then the step is recomputed).
+    pub fn decode(kind: StepKind, bytes: &[u8]) -> Option<Artifact> {
+        match kind {
+            StepKind::Load => LoadOutput::decode(bytes).map(|a| Artifact::Load(Box::new(a))),
+            StepKind::Covariance => serde_json::from_slice(bytes).ok().map(|a| Artifact::Covariance(Box::new(a))),
+            StepKind::Purify => serde_json::from_slice(bytes).ok().map(|a| Artifact::Purify(Box::new(a))),
+            StepKind::Discover => serde_json::from_slice(bytes).ok().map(|a| Artifact::Discover(Box::new(a))),
+            StepKind::Measure => serde_json::from_slice(bytes).ok().map(|a| Artifact::Measure(Box::new(a))),
+            StepKind::Structure => serde_json::from_slice(bytes).ok().map(|a| Artifact::Structure(Box::new(a))),
+        }
+    }
+
+    /// The aggregate, respondent-free form of the artifact for results.json and the report.
+    pub fn results(&self) -> Value {
+        match self {
+            Artifact::Load(a) => serde_json::to_value(&a.summary).unwrap_or(Value::Null),
+            Artifact::Covariance(a) => serde_json::to_value(a.as_ref()).unwrap_or(Value::Null),
+            Artifact::Purify(a) => serde_json::to_value(a.as_ref()).unwrap_or(Value::Null),
+            Artifact::Discover(a) => serde_json::to_value(a.as_ref()).unwrap_or(Value::Null),
+            Artifact::Measure(a) => serde_json::to_value(a.as_ref()).unwrap_or(Value::Null),
+            Artifact::Structure(a) => serde_json::to_value(a.as_ref()).unwrap_or(Value::Null),
+        }
+    }
+}
+
+/// The artifacts computed so far, handed to a step for its inputs.
+pub struct Inputs<'a> {
+    pub step: StepKind,
+    pub artifacts: &'a BTreeMap<StepKind, Artifact>,
+}
+
+impl Inputs<'_> {
+    pub fn load(&self) -> Result<&LoadOutput, StepError> {
+        match self.artifacts.get(&StepKind::Load) {
+            Some(Artifact::Load(a)) => Ok(a),
+            _ => Err(StepError::MissingInput { step: self.step, needs: StepKind::Load }),
+        }
+    }
+
+    pub fn purify(&self) -> Result<&PurifyOutput, StepError> {
+        match self.artifacts.get(&StepKind::Purify) {
+            Some(Artifact::Purify(a)) => Ok(a),
+            _ => Err(StepError::MissingInput { step: self.step, needs: StepKind::Purify }),
+        }
+    }
+
+    pub fn measure(&self) -> Result<&MeasureOutput, StepError> {
+        match self.artifacts.get(&StepKind::Measure) {
+            Some(Artifact::Measure(a)) => Ok(a),
+            _ => Err(StepError::MissingInput { step: self.step, needs: StepKind::Measure }),
+        }
+    }
+
+    pub fn covariance(&self) -> Result<&CovarianceOutput, StepError> {
+        match self.artifacts.get(&StepKind::Covariance) {
+            Some(Artifact::Covariance(a)) => Ok(a),
+            _ => Err(StepError::MissingInput { step: self.step, needs: StepKind::Covariance }),
+        }
+    }
+}
+
+/// A unit of cached work. Its key is BLAKE3 over kind, `VERSION`, `params` and its inputs' keys.
+pub trait Step: Send + Sync {
+    fn kind(&self) -> StepKind;
+    /// Bumped whenever the step's results change for the same inputs.
+    fn version(&self) -> u32;
+    /// Everything that determines the result besides the inputs, as JSON (canonicalised later).
+    fn params(&self) -> Value;
+    fn inputs(&self) -> Vec<StepKind>;
+    /// Files whose bytes are inputs (only `load` has any).
+    fn files(&self) -> Vec<PathBuf> {
+        Vec::new()
+    }
+    fn run(&self, inputs: &Inputs<'_>) -> Result<Artifact, StepError>;
+    /// One line saying what the step did, for the run log.
+    fn describe(&self, artifact: &Artifact) -> String;
+}
+
+/// The steps a spec asks for, in plan order.
+pub fn build_steps(spec: &SpecFile) -> Vec<Box<dyn Step>> {
+    let mut steps: Vec<Box<dyn Step>> = vec![Box::new(LoadStep::from_spec(spec))];
+    let a = &spec.spec.analyses;
+    // Every analysis after `load` starts from the item covariances, so they run whenever any
+    // analysis is requested, with default settings if `covariance` itself is absent.
+    // `structure` needs the measurement model, so it brings `measure` with defaults too.
+    let measure = a.measure.clone().or_else(|| a.structure.as_ref().map(|_| Default::default()));
+    let needs_covariance = a.covariance.is_some() || a.purify.is_some() || a.discover.is_some() || measure.is_some();
+    if needs_covariance {
+        steps.push(Box::new(CovarianceStep::from_spec(&a.covariance.clone().unwrap_or_default())));
+    }
+    if let Some(p) = &a.purify {
+        steps.push(Box::new(PurifyStep::from_spec(spec, p)));
+    }
+    if let Some(d) = &a.discover {
+        steps.push(Box::new(DiscoverStep::from_spec(spec, d)));
+    }
+    if let Some(m) = &measure {
+        steps.push(Box::new(MeasureStep::from_spec(spec, m)));
+    }
+    if let Some(st) = &a.structure {
+        steps.push(Box::new(StructureStep::from_spec(spec, st)));
+    }
+    steps
+}
+
+/// Analyses the spec names that this build cannot run yet (warned about, then skipped).
+pub fn unavailable_analyses(spec: &crate::spec::Spec) -> Vec<&'static str> {
+    let a = &spec.analyses;
+    [("sensitivity", a.sensitivity.is_some()), ("resample", a.resample.is_some())]
+        .into_iter()
+        .filter_map(|(name, present)| present.then_some(name))
+        .collect()
+}

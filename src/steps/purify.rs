@@ -1,0 +1,194 @@
+//! `purify`: within and across the declared constructs, drop the items that vanishing-tetrad
+//! tests condemn (an item that also measures another construct, or shares error with another
+//! item), keeping at least `min_items` per construct. Central type: `PurifyOutput`.
+//! Constructs with fewer than two items take part only as partners in cross-construct tetrads.
+
+use indexmap::IndexMap;
+use nalgebra::DMatrix;
+use serde::{Deserialize, Serialize};
+use serde_json::{Value, json};
+
+use super::{Artifact, Inputs, Step, StepError, StepKind};
+use crate::spec::SpecFile;
+use crate::spec::types::{PurifySpec, TetradTest};
+use crate::stats::purify::{PurifyOptions, TetradEvidence, purify};
+use crate::stats::tetrad::TetradTestKind;
+
+/// Bump when purification results change for the same covariances and parameters.
+pub const VERSION: u32 = 1;
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct TetradRecord {
+    pub items: [String; 4],
+    /// Which of the three tetrad differences (1, 2 or 3; see `stats::tetrad`).
+    pub which: usize,
+    pub diff: f64,
+    pub stat: f64,
+    pub p: f64,
+    /// Benjamini–Hochberg adjusted over the round's family of tests.
+    pub p_adjusted: f64,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct DroppedRecord {
+    pub item: String,
+    pub round: usize,
+    pub tetrads: Vec<TetradRecord>,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct ConstructPurity {
+    pub kept: Vec<String>,
+    pub dropped: Vec<DroppedRecord>,
+    /// Purification stopped here because dropping more would leave fewer than `min_items`.
+    pub min_items_reached: bool,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct PurifyOutput {
+    pub constructs: IndexMap<String, ConstructPurity>,
+    pub test: TetradTest,
+    pub alpha: f64,
+    pub min_items: usize,
+    pub n: usize,
+    /// Tests per round (the false-discovery-rate family of each round).
+    pub family_sizes: Vec<usize>,
+    /// Violations left when a construct reached `min_items`.
+    pub unresolved: Vec<TetradRecord>,
+}
+
+impl PurifyOutput {
+    /// The kept items of each construct, in construct order.
+    pub fn kept(&self) -> IndexMap<String, Vec<String>> {
+        self.constructs.iter().map(|(c, p)| (c.clone(), p.kept.clone())).collect()
+    }
+}
+
+pub struct PurifyStep {
+    params: PurifySpec,
+    /// (construct, items) in spec order.
+    constructs: Vec<(String, Vec<String>)>,
+}
+
+impl PurifyStep {
+    pub fn from_spec(file: &SpecFile, params: &PurifySpec) -> PurifyStep {
+        let constructs = file.spec.constructs.iter().map(|(n, c)| (n.clone(), c.items.clone())).collect();
+        PurifyStep { params: params.clone(), constructs }
+    }
+}
+
+/// The complete rows of `items` as an n x p matrix (for the distribution-free test).
+pub fn complete_rows(table: &crate::data::Table, items: &[usize]) -> DMatrix<f64> {
+    let rows: Vec<usize> =
+        (0..table.rows()).filter(|&r| items.iter().all(|&k| !table.columns[k][r].is_nan())).collect();
+    DMatrix::from_fn(rows.len(), items.len(), |r, c| table.columns[items[c]][rows[r]])
+}
+
+pub fn tetrad_kind(test: TetradTest) -> TetradTestKind {
+    match test {
+        TetradTest::Wishart => TetradTestKind::Wishart,
+        TetradTest::Delta => TetradTestKind::Delta,
+    }
+}
+
+fn record(items: &[String], t: &TetradEvidence) -> TetradRecord {
+    TetradRecord {
+        items: t.items.map(|i| items[i].clone()),
+        which: t.which + 1,
+        diff: t.diff,
+        stat: t.stat,
+        p: t.p,
+        p_adjusted: t.p_adjusted,
+    }
+}
+
+impl Step for PurifyStep {
+    fn kind(&self) -> StepKind {
+        StepKind::Purify
+    }
+
+    fn version(&self) -> u32 {
+        VERSION
+    }
+
+    fn params(&self) -> Value {
+        json!({"test": self.params.test, "alpha": self.params.alpha, "min_items": self.params.min_items, "constructs": self.constructs})
+    }
+
+    fn inputs(&self) -> Vec<StepKind> {
+        vec![StepKind::Load, StepKind::Covariance]
+    }
+
+    fn run(&self, inputs: &Inputs<'_>) -> Result<Artifact, StepError> {
+        let cov = inputs.covariance()?;
+        let items = &cov.items;
+        let index = |name: &String| items.iter().position(|i| i == name).unwrap_or(usize::MAX);
+        let groups: Vec<Vec<usize>> =
+            self.constructs.iter().map(|(_, list)| list.iter().map(index).collect()).collect();
+        let n = cov.min_n();
+        let data = match self.params.test {
+            TetradTest::Delta => {
+                let table = inputs
+                    .load()?
+                    .table
+                    .as_ref()
+                    .ok_or(StepError::MissingInput { step: StepKind::Purify, needs: StepKind::Load })?;
+                Some(complete_rows(table, &(0..items.len()).collect::<Vec<_>>()))
+            }
+            TetradTest::Wishart => None,
+        };
+        let options = PurifyOptions {
+            test: tetrad_kind(self.params.test),
+            alpha: self.params.alpha,
+            min_items: self.params.min_items,
+        };
+        let result = purify(&cov.correlation_matrix(), n, data.as_ref(), &groups, &options)
+            .map_err(|source| StepError::Stats { context: "tetrad purification".into(), source })?;
+        let constructs = self
+            .constructs
+            .iter()
+            .zip(&result.groups)
+            .map(|((name, _), g)| {
+                let purity = ConstructPurity {
+                    kept: g.kept.iter().map(|&i| items[i].clone()).collect(),
+                    dropped: g
+                        .dropped
+                        .iter()
+                        .map(|d| DroppedRecord {
+                            item: items[d.item].clone(),
+                            round: d.round,
+                            tetrads: d.tetrads.iter().map(|t| record(items, t)).collect(),
+                        })
+                        .collect(),
+                    min_items_reached: g.min_items_reached,
+                };
+                (name.clone(), purity)
+            })
+            .collect();
+        Ok(Artifact::Purify(Box::new(PurifyOutput {
+            constructs,
+            test: self.params.test,
+            alpha: self.params.alpha,
+            min_items: self.params.min_items,
+            n,
+            family_sizes: result.family_sizes,
+            unresolved: result.unresolved.iter().map(|t| record(items, t)).collect(),
+        })))
+    }
+
+    fn describe(&self, artifact: &Artifact) -> String {
+        let Artifact::Purify(p) = artifact else { return String::new() };
+        let dropped: Vec<&str> =
+            p.constructs.values().flat_map(|c| c.dropped.iter().map(|d| d.item.as_str())).collect();
+        let tests: usize = p.family_sizes.iter().sum();
+        if dropped.is_empty() {
+            format!("all items kept ({tests} tetrad tests)")
+        } else {
+            format!(
+                "dropped {} ({}) after {tests} tetrad tests",
+                crate::spec::diagnostic::plural(dropped.len(), "item"),
+                dropped.join(", ")
+            )
+        }
+    }
+}

@@ -1,0 +1,261 @@
+//! `structure`: the PC search among the latent constructs under tiers, forbidden and required
+//! edges, on conditional-independence tests that carry the measurement model's uncertainty,
+//! then the full SEM of each member of the resulting class. Central type: `StructureOutput`.
+
+use indexmap::IndexMap;
+use nalgebra::DMatrix;
+use serde::{Deserialize, Serialize};
+use serde_json::{Value, json};
+
+use super::measure::{FitSummary, fit_constructs};
+use super::{Artifact, Inputs, Step, StepError, StepKind};
+use crate::spec::SpecFile;
+use crate::spec::types::{CiTest as CiTestKind, Knowledge as KnowledgeSpec, StructureSpec};
+use crate::stats::StatsError;
+use crate::stats::search::{
+    CiTest, ColliderRule, FisherZ, Knowledge, PcOptions, Reason, WaldPartial, enumerate_dags, pc,
+};
+use crate::stats::sem::{Matrix, ParameterKind};
+
+/// Bump when search or fit results change for the same measurement model and parameters.
+pub const VERSION: u32 = 1;
+
+/// Class members fitted at most (the rest are counted, not fitted).
+const MAX_MEMBERS: usize = 8;
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct EdgeRecord {
+    pub from: String,
+    pub to: String,
+    /// `directed` or `undirected` (the data cannot orient it).
+    pub kind: String,
+    pub reason: String,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct RemovedRecord {
+    pub a: String,
+    pub b: String,
+    pub sepset: Vec<String>,
+    pub p: Option<f64>,
+    pub by_knowledge: bool,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct EffectRecord {
+    pub from: String,
+    pub to: String,
+    pub est: f64,
+    pub se: Option<f64>,
+    pub ci: [Option<f64>; 2],
+    pub std: Option<f64>,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct MemberFit {
+    pub edges: Vec<[String; 2]>,
+    pub converged: bool,
+    pub fit: FitSummary,
+    pub effects: Vec<EffectRecord>,
+    pub r_squared: IndexMap<String, f64>,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct StructureOutput {
+    pub test: CiTestKind,
+    pub alpha: f64,
+    pub n: usize,
+    pub edges: Vec<EdgeRecord>,
+    pub removed: Vec<RemovedRecord>,
+    pub tests_run: usize,
+    /// Effects and fit of the first DAG of the class (the one the report draws).
+    pub effects: Vec<EffectRecord>,
+    pub fit: Option<FitSummary>,
+    pub r_squared: IndexMap<String, f64>,
+    pub members: Vec<MemberFit>,
+    /// Members of the equivalence class consistent with the knowledge (at most the cap).
+    pub class_size: usize,
+    pub class_complete: bool,
+}
+
+pub struct StructureStep {
+    params: StructureSpec,
+    knowledge: KnowledgeSpec,
+    reliabilities: Vec<(String, Option<f64>)>,
+}
+
+impl StructureStep {
+    pub fn from_spec(file: &SpecFile, params: &StructureSpec) -> StructureStep {
+        let reliabilities = file.spec.constructs.iter().map(|(n, c)| (n.clone(), c.reliability)).collect();
+        StructureStep { params: params.clone(), knowledge: file.spec.knowledge.clone(), reliabilities }
+    }
+
+    fn knowledge(&self, names: &[String]) -> Result<Knowledge, StatsError> {
+        let idx = |n: &String| {
+            names
+                .iter()
+                .position(|x| x == n)
+                .ok_or_else(|| StatsError::InvalidInput(format!("unknown construct `{n}`")))
+        };
+        let mut k = Knowledge::new(names.len());
+        let tiers: Vec<Vec<usize>> = self
+            .knowledge
+            .tiers
+            .iter()
+            .map(|t| t.iter().map(idx).collect::<Result<_, _>>())
+            .collect::<Result<_, _>>()?;
+        k.set_tiers(&tiers)?;
+        for [a, b] in &self.knowledge.forbid {
+            k.forbid(idx(a)?, idx(b)?)?;
+        }
+        for [a, b] in &self.knowledge.require {
+            k.require(idx(a)?, idx(b)?)?;
+        }
+        Ok(k)
+    }
+}
+
+fn reason(r: Option<Reason>) -> String {
+    match r {
+        None => "no orientation follows from the data or the knowledge".into(),
+        Some(Reason::Collider) => "collider (unshielded, not in the separating set)".into(),
+        Some(Reason::Meek(k)) => format!("Meek rule {k}"),
+        Some(Reason::Tier) => "tier order".into(),
+        Some(Reason::Required) => "required by the spec".into(),
+        Some(Reason::ForbiddenImplied) => "the other direction is forbidden".into(),
+    }
+}
+
+fn matrix(rows: &[Vec<f64>]) -> DMatrix<f64> {
+    let (r, c) = (rows.len(), rows.first().map_or(0, Vec::len));
+    DMatrix::from_fn(r, c, |i, j| rows[i][j])
+}
+
+impl Step for StructureStep {
+    fn kind(&self) -> StepKind {
+        StepKind::Structure
+    }
+
+    fn version(&self) -> u32 {
+        VERSION
+    }
+
+    fn params(&self) -> Value {
+        json!({"alpha": self.params.alpha, "test": self.params.test, "knowledge": self.knowledge, "reliabilities": self.reliabilities})
+    }
+
+    fn inputs(&self) -> Vec<StepKind> {
+        vec![StepKind::Covariance, StepKind::Measure]
+    }
+
+    fn run(&self, inputs: &Inputs<'_>) -> Result<Artifact, StepError> {
+        let measure = inputs.measure()?;
+        let cov = inputs.covariance()?;
+        let err = |context: &'static str| move |source| StepError::Stats { context: context.into(), source };
+        let names = measure.latent_covariance.names.clone();
+        let c = matrix(&measure.latent_covariance.matrix);
+        let test: Box<dyn CiTest> = match self.params.test {
+            CiTestKind::Wald => {
+                Box::new(WaldPartial::new(c, matrix(&measure.latent_covariance.acov)).map_err(err("the Wald tests"))?)
+            }
+            CiTestKind::Fisher => Box::new(FisherZ::new(c, measure.n as f64).map_err(err("the Fisher-z tests"))?),
+        };
+        let knowledge = self.knowledge(&names).map_err(err("background knowledge"))?;
+        let options = PcOptions { alpha: self.params.alpha, max_cond: None, colliders: ColliderRule::Standard };
+        let result = pc(test.as_ref(), &knowledge, &options).map_err(err("the PC search"))?;
+        let edges = result
+            .edges
+            .iter()
+            .map(|e| EdgeRecord {
+                from: names[e.from].clone(),
+                to: names[e.to].clone(),
+                kind: if e.directed { "directed".into() } else { "undirected".into() },
+                reason: reason(e.reason),
+            })
+            .collect();
+        let removed = result
+            .removed
+            .iter()
+            .map(|r| RemovedRecord {
+                a: names[r.a].clone(),
+                b: names[r.b].clone(),
+                sepset: r.sepset.iter().flatten().map(|&i| names[i].clone()).collect(),
+                p: r.test.as_ref().map(|t| t.p),
+                by_knowledge: r.by_knowledge,
+            })
+            .collect();
+        let class =
+            enumerate_dags(&result.graph, &knowledge, MAX_MEMBERS).map_err(err("enumerating the equivalence class"))?;
+        let constructs: Vec<(String, Vec<String>, Option<f64>)> = measure
+            .constructs
+            .iter()
+            .map(|(n, items)| {
+                (n.clone(), items.clone(), self.reliabilities.iter().find(|(c, _)| c == n).and_then(|(_, r)| *r))
+            })
+            .collect();
+        let s = cov.covariance_matrix();
+        let mut members = Vec::new();
+        for dag in &class.dags {
+            let paths: Vec<(usize, usize)> =
+                dag.edges().iter().filter(|e| e.directed).map(|e| (e.from, e.to)).collect();
+            let (fit, _) = fit_constructs(&constructs, &cov.items, &s, measure.n, measure.identification, &paths)
+                .map_err(err("the structural model"))?;
+            let z = 1.959_963_984_540_054;
+            let effects = fit
+                .parameters
+                .iter()
+                .filter(|p| p.kind == ParameterKind::Path && p.matrix == Matrix::Beta && p.free.is_some())
+                .map(|p| EffectRecord {
+                    from: names[p.col].clone(),
+                    to: names[p.row].clone(),
+                    est: p.est,
+                    se: p.se,
+                    ci: [p.se.map(|se| p.est - z * se), p.se.map(|se| p.est + z * se)],
+                    std: p.std,
+                })
+                .collect();
+            let moments = fit.latent_moments();
+            let r_squared = paths
+                .iter()
+                .map(|&(_, to)| to)
+                .collect::<std::collections::BTreeSet<_>>()
+                .into_iter()
+                .map(|j| (names[j].clone(), 1.0 - fit.matrices.psi[(j, j)] / moments.covariance[(j, j)]))
+                .collect();
+            members.push(MemberFit {
+                edges: paths.iter().map(|&(a, b)| [names[a].clone(), names[b].clone()]).collect(),
+                converged: fit.converged,
+                fit: FitSummary::of(&fit),
+                effects,
+                r_squared,
+            });
+        }
+        let first = members.first();
+        Ok(Artifact::Structure(Box::new(StructureOutput {
+            test: self.params.test,
+            alpha: self.params.alpha,
+            n: measure.n,
+            edges,
+            removed,
+            tests_run: result.tests_run,
+            effects: first.map(|m| m.effects.clone()).unwrap_or_default(),
+            fit: first.map(|m| m.fit.clone()),
+            r_squared: first.map(|m| m.r_squared.clone()).unwrap_or_default(),
+            class_size: class.dags.len(),
+            class_complete: class.complete,
+            members,
+        })))
+    }
+
+    fn describe(&self, artifact: &Artifact) -> String {
+        let Artifact::Structure(s) = artifact else { return String::new() };
+        let directed = s.edges.iter().filter(|e| e.kind == "directed").count();
+        format!(
+            "{} ({directed} directed) after {} tests; class of {}{}",
+            crate::spec::diagnostic::plural(s.edges.len(), "edge"),
+            s.tests_run,
+            crate::spec::diagnostic::plural(s.class_size, "DAG"),
+            if s.class_complete { "" } else { " or more" }
+        )
+    }
+}

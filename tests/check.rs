@@ -1,0 +1,185 @@
+//! Bad specs and bad data: each gets a clear message naming the place, exit code 1, and no
+//! report folder. Diagnostics are compared verbatim where their wording is the contract.
+
+use crate::harness::{Case, SMALL_COLUMNS, SMALL_SPEC, small_case, synthetic_csv};
+
+fn with_spec(spec: &str) -> Case {
+    Case::new().spec(spec).file("w1.csv", synthetic_csv(120, 3, SMALL_COLUMNS))
+}
+
+#[test]
+fn valid_spec_checks_clean() {
+    small_case().run(["check", "spec.yaml"]).success().stderr_contains("spec.yaml: ok (0 warnings)");
+}
+
+#[test]
+fn malformed_yaml_gives_line_and_column() {
+    let spec = SMALL_SPEC.replace("  alpha: {items: [a1, a2, a3]}", "  alpha: {items: [a1, a2, a3}");
+    let case = with_spec(&spec);
+    let out = case.run(["run", "spec.yaml"]);
+    out.failure(1).stderr_contains("error: the spec is not valid YAML").stderr_contains("at spec.yaml:9:").no_report();
+}
+
+#[test]
+fn unknown_key_is_shown_verbatim_with_a_suggestion() {
+    let spec = SMALL_SPEC.replace("covariance: {missing", "covariance: {mising");
+    let out = with_spec(&spec).run(["check", "spec.yaml"]);
+    out.failure(1);
+    let expected = "error: unknown key `mising` in `analyses.covariance`
+  at spec.yaml:13:16
+  13 |   covariance: {mising: pairwise}
+     |                ^^^^^^
+  hint: did you mean `missing`?
+";
+    assert!(out.stderr.contains(expected), "{}", out.stderr);
+}
+
+#[test]
+fn all_unknown_keys_are_reported_at_once() {
+    let spec = SMALL_SPEC.replace("title:", "titel:").replace("id_column", "id_colum");
+    let out = with_spec(&spec).run(["check", "spec.yaml"]);
+    out.failure(1)
+        .stderr_contains("unknown key `titel` in the spec's top level")
+        .stderr_contains("did you mean `title`?")
+        .stderr_contains("unknown key `id_colum` in `data`")
+        .stderr_contains("did you mean `id_column`?")
+        .stderr_contains("2 errors and 0 warnings");
+}
+
+#[test]
+fn unknown_item_names_construct_and_suggests() {
+    let spec = SMALL_SPEC.replace("[b1, b2, b3, x]", "[b1, b2, bb3, x]");
+    let out = with_spec(&spec).run(["run", "spec.yaml"]);
+    let expected = "error: item `bb3` of construct `beta` is not a column of any data file
+  at spec.yaml:10:26
+  10 |   beta: {items: [b1, b2, bb3, x]}
+     |                          ^^^
+  hint: did you mean `b3`?
+";
+    out.failure(1).no_report();
+    assert!(out.stderr.contains(expected), "{}", out.stderr);
+}
+
+#[test]
+fn missing_data_file() {
+    let case = Case::new().spec(SMALL_SPEC);
+    case.run(["run", "spec.yaml"])
+        .failure(1)
+        .stderr_contains("data file `w1.csv` of wave `w1` does not exist")
+        .stderr_contains("at spec.yaml:5:")
+        .stderr_contains("paths are relative to the folder of the spec file")
+        .no_report();
+}
+
+#[test]
+fn non_numeric_value_names_file_row_and_column() {
+    let mut csv = synthetic_csv(50, 3, SMALL_COLUMNS);
+    let lines: Vec<String> = csv.lines().map(str::to_string).collect();
+    let mut fields: Vec<String> = lines[4].split(',').map(str::to_string).collect();
+    fields[2] = "often".into();
+    let mut lines = lines;
+    lines[4] = fields.join(",");
+    csv = lines.join("\n") + "\n";
+    let case = Case::new().spec(SMALL_SPEC).file("w1.csv", csv);
+    case.run(["run", "spec.yaml"])
+        .failure(1)
+        .stderr_contains("error: `./w1.csv` row 4 (line 5), column `a2`: `often` is not a number")
+        .stderr_contains("hint: fix the value")
+        .no_report();
+}
+
+#[test]
+fn column_missing_from_one_wave_names_the_wave() {
+    let spec = SMALL_SPEC
+        .replace("    - {id: w1, file: w1.csv}\n", "    - {id: w1, file: w1.csv}\n    - {id: w2, file: w2.csv}\n");
+    let cols: Vec<&str> = SMALL_COLUMNS.iter().copied().filter(|c| *c != "b2").collect();
+    let case = Case::new()
+        .spec(&spec)
+        .file("w1.csv", synthetic_csv(60, 3, SMALL_COLUMNS))
+        .file("w2.csv", synthetic_csv(60, 4, &cols));
+    case.run(["run", "spec.yaml"])
+        .failure(1)
+        .stderr_contains("error: wave `w2` has no column `b2` (file `./w2.csv`)")
+        .no_report();
+}
+
+#[test]
+fn constant_item_is_refused() {
+    let csv = synthetic_csv(40, 3, SMALL_COLUMNS);
+    let csv: String = csv
+        .lines()
+        .enumerate()
+        .map(|(i, l)| {
+            if i == 0 {
+                return format!("{l}\n");
+            }
+            let mut f: Vec<&str> = l.split(',').collect();
+            f[1] = "3";
+            format!("{}\n", f.join(","))
+        })
+        .collect();
+    Case::new()
+        .spec(SMALL_SPEC)
+        .file("w1.csv", csv)
+        .run(["run", "spec.yaml"])
+        .failure(1)
+        .stderr_contains("item `a1` is constant (3 in every row with a value)")
+        .no_report();
+}
+
+#[test]
+fn tier_naming_unknown_construct() {
+    let spec = format!("{SMALL_SPEC}knowledge:\n  tiers: [[alpha], [betta]]\n");
+    let out = with_spec(&spec).run(["run", "spec.yaml"]);
+    out.failure(1)
+        .stderr_contains("error: tier 2 names `betta`, which is not a declared construct")
+        .stderr_contains("at spec.yaml:15:21")
+        .stderr_contains("did you mean `beta`?")
+        .no_report();
+}
+
+#[test]
+fn semantic_problems_are_all_reported_sorted() {
+    let spec =
+        SMALL_SPEC.replace("[b1, b2, b3, x]", "[b1, a2, b3, x]").replace("title: Small panel", "title: Small panel")
+            + "knowledge:\n  tiers: [[beta], [alpha]]\n  require: [[alpha, beta]]\n  forbid: [[alpha, gamma]]\n";
+    let out = with_spec(&spec).run(["check", "spec.yaml"]);
+    out.failure(1)
+        .stderr_contains("item `a2` is in two constructs, `alpha` and `beta`")
+        .stderr_contains("`knowledge.forbid` names `gamma`")
+        .stderr_contains("required edge `alpha` -> `beta` goes from tier 2 back to tier 1")
+        .stderr_contains("3 errors");
+    let a = out.stderr.find("two constructs").unwrap();
+    let b = out.stderr.find("gamma").unwrap();
+    assert!(a < b, "sorted by line");
+}
+
+#[test]
+fn ranges_are_checked() {
+    let spec = SMALL_SPEC.replace("beta: {items: [b1, b2, b3, x]}", "beta: {items: [b1, b2, b3, x], reliability: 1.5}")
+        + "  structure: {alpha: 0}\n";
+    with_spec(&spec)
+        .run(["check", "spec.yaml"])
+        .failure(1)
+        .stderr_contains("reliability of `beta` must lie in (0, 1], found 1.5")
+        .stderr_contains("`structure.alpha` must lie in (0, 1), found 0");
+}
+
+#[test]
+fn type_errors_have_positions() {
+    let spec = SMALL_SPEC.replace("construe: 1", "construe: one");
+    with_spec(&spec)
+        .run(["check", "spec.yaml"])
+        .failure(1)
+        .stderr_contains("construe: invalid type")
+        .stderr_contains("at spec.yaml:1:");
+}
+
+#[test]
+fn unavailable_analyses_warn_but_run() {
+    let spec = format!("{SMALL_SPEC}  purify: {{alpha: 0.01}}\n");
+    with_spec(&spec)
+        .run(["check", "spec.yaml"])
+        .success()
+        .stderr_contains("warning: analysis `purify` is not available in this version of construe and will be skipped");
+}

@@ -1,0 +1,10 @@
+//! construe's one integration-test binary: one module per feature, all driving the real CLI
+//! through the `Case` harness (each case in its own temporary folder, `CONSTRUE_*` cleared).
+
+mod harness;
+
+mod caching;
+mod check;
+mod demo;
+mod reference;
+mod report;
