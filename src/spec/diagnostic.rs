@@ -145,14 +145,18 @@ pub fn plural(n: usize, word: &str) -> String {
     if n == 1 { format!("1 {word}") } else { format!("{n} {word}s") }
 }
 
-/// The closest candidate to `word` when it is close enough to be a likely typo.
+/// The closest candidate to `word` when it is close enough to be a likely typo: at most one
+/// edit per three characters (Damerau–Levenshtein, so a swapped pair counts once), ties broken
+/// by Jaro–Winkler similarity.
 pub fn suggest<'a>(word: &str, candidates: impl IntoIterator<Item = &'a str>) -> Option<String> {
+    let budget = (word.chars().count() / 3).max(1);
     candidates
         .into_iter()
-        .map(|c| (strsim::jaro_winkler(word, c), c))
-        .filter(|(score, _)| *score >= 0.8)
-        .max_by(|a, b| a.0.total_cmp(&b.0))
-        .map(|(_, c)| format!("did you mean `{c}`?"))
+        .filter(|c| *c != word)
+        .map(|c| (strsim::damerau_levenshtein(word, c), -strsim::jaro_winkler(word, c), c))
+        .filter(|(d, _, _)| *d <= budget)
+        .min_by(|a, b| a.0.cmp(&b.0).then(a.1.total_cmp(&b.1)))
+        .map(|(_, _, c)| format!("did you mean `{c}`?"))
 }
 
 #[cfg(test)]
@@ -173,6 +177,8 @@ mod tests {
     fn suggestions_only_for_near_misses() {
         assert_eq!(suggest("purfy", ["purify", "measure"]), Some("did you mean `purify`?".into()));
         assert_eq!(suggest("zzz", ["purify", "measure"]), None);
+        assert_eq!(suggest("bb3", ["b1", "b2", "b3", "x"]), Some("did you mean `b3`?".into()));
+        assert_eq!(suggest("puncutality", ["punctuality", "trust"]), Some("did you mean `punctuality`?".into()));
     }
 
     #[test]

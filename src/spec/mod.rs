@@ -79,7 +79,10 @@ impl SpecFile {
 
     /// A path from the spec, resolved relative to the spec's folder.
     pub fn resolve(&self, relative: &Path) -> PathBuf {
-        if relative.is_absolute() { relative.to_path_buf() } else { self.dir().join(relative) }
+        match self.path.parent() {
+            Some(p) if !p.as_os_str().is_empty() && !relative.is_absolute() => p.join(relative),
+            _ => relative.to_path_buf(),
+        }
     }
 
     /// Turns findings into positioned diagnostics.
