@@ -30,7 +30,7 @@ fn plan_lines(stdout: &str) -> Vec<(String, String, String)> {
 fn second_run_computes_nothing_and_writes_no_version() {
     let case = small_case();
     let first = case.run(["run", "spec.yaml"]);
-    first.success().stderr_contains("wrote report v1");
+    first.success().stderr_contains("wrote report v1").stdout_contains("reports/small-panel/v1");
     assert_eq!(statuses(&first.stderr), [("load".into(), "computed".into()), ("covariance".into(), "computed".into())]);
     let second = case.run(["run", "spec.yaml"]);
     second.success().stderr_contains("nothing changed since v1");

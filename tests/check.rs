@@ -9,7 +9,11 @@ fn with_spec(spec: &str) -> Case {
 
 #[test]
 fn valid_spec_checks_clean() {
-    small_case().run(["check", "spec.yaml"]).success().stderr_contains("spec.yaml: ok (0 warnings)");
+    small_case()
+        .run(["check", "spec.yaml"])
+        .success()
+        .stderr_contains("spec.yaml: ok (0 warnings)")
+        .stderr_lacks("warning:");
 }
 
 #[test]
@@ -17,7 +21,10 @@ fn malformed_yaml_gives_line_and_column() {
     let spec = SMALL_SPEC.replace("  alpha: {items: [a1, a2, a3]}", "  alpha: {items: [a1, a2, a3}");
     let case = with_spec(&spec);
     let out = case.run(["run", "spec.yaml"]);
-    out.failure(1).stderr_contains("error: the spec is not valid YAML").stderr_contains("at spec.yaml:8:29").no_report();
+    out.failure(1)
+        .stderr_contains("error: the spec is not valid YAML")
+        .stderr_contains("at spec.yaml:8:29")
+        .no_report();
 }
 
 #[test]
@@ -140,9 +147,8 @@ fn tier_naming_unknown_construct() {
 
 #[test]
 fn semantic_problems_are_all_reported_sorted() {
-    let spec =
-        SMALL_SPEC.replace("[b1, b2, b3, x]", "[b1, a2, b3, x]").replace("title: Small panel", "title: Small panel")
-            + "knowledge:\n  tiers: [[beta], [alpha]]\n  require: [[alpha, beta]]\n  forbid: [[alpha, gamma]]\n";
+    let spec = SMALL_SPEC.replace("[b1, b2, b3, x]", "[b1, a2, b3, x]")
+        + "knowledge:\n  tiers: [[beta], [alpha]]\n  require: [[alpha, beta]]\n  forbid: [[alpha, gamma]]\n";
     let out = with_spec(&spec).run(["check", "spec.yaml"]);
     out.failure(1)
         .stderr_contains("item `a2` is in two constructs, `alpha` and `beta`")
@@ -178,8 +184,7 @@ fn type_errors_have_positions() {
 #[test]
 fn unavailable_analyses_warn_but_run() {
     let spec = format!("{SMALL_SPEC}  resample: {{replicates: 10}}\n");
-    with_spec(&spec)
-        .run(["check", "spec.yaml"])
-        .success()
-        .stderr_contains("warning: analysis `resample` is not available in this version of construe and will be skipped");
+    with_spec(&spec).run(["check", "spec.yaml"]).success().stderr_contains(
+        "warning: analysis `resample` is not available in this version of construe and will be skipped",
+    );
 }

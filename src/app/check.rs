@@ -21,7 +21,8 @@ pub fn check(path: &Path) -> Checked {
         Err(report) => return Checked { spec: None, report },
     };
     let sources = source_columns(&spec);
-    let mut findings = validate(&spec.spec, &sources);
+    let spec_dir = spec.resolve(std::path::Path::new(""));
+    let mut findings = validate(&spec.spec, &spec_dir, &sources);
     for name in unavailable_analyses(&spec.spec) {
         findings.push(Finding::key(SpecProblem::NotYetAvailable { analysis: name.into() }, format!("analyses.{name}")));
     }

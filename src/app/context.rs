@@ -7,6 +7,7 @@ use crate::pipeline::executor::Execution;
 use crate::report::diagram::{Link, Node, diagram};
 use crate::report::svg::heatmap;
 use crate::spec::SpecFile;
+use crate::stats::simulate::SimulationModel;
 use crate::steps::{Artifact, StepKind, unavailable_analyses};
 
 pub fn report_context(spec: &SpecFile, execution: &Execution, results: &Value) -> Value {
@@ -87,6 +88,7 @@ pub fn report_context(spec: &SpecFile, execution: &Execution, results: &Value) -
         "measure": results.get("measure"),
         "structure": results.get("structure"),
         "diagram": diagram,
+        "truth": truth_comparison(spec, execution),
         "skipped": unavailable_analyses(s),
         "steps": steps,
     })
@@ -132,4 +134,59 @@ fn structure_diagram(spec: &SpecFile, execution: &Execution) -> Option<String> {
         _ => Vec::new(),
     };
     Some(diagram(&nodes, &links, &dropped))
+}
+
+/// The known truth beside the findings, when the spec names the model the data came from.
+fn truth_comparison(spec: &SpecFile, execution: &Execution) -> Option<Value> {
+    let rel = spec.spec.report.truth_model.as_ref()?;
+    let path = spec.resolve(rel);
+    let truth = std::fs::read_to_string(&path)
+        .map_err(|e| e.to_string())
+        .and_then(|text| serde_yaml::from_str::<SimulationModel>(&text).map_err(|e| e.to_string()))
+        .and_then(|m| m.truth().map_err(|e| e.to_string()));
+    let truth = match truth {
+        Ok(t) => t,
+        Err(e) => return Some(json!({"file": rel.display().to_string(), "error": e})),
+    };
+    let dropped: Vec<String> = match execution.artifacts.get(&StepKind::Purify) {
+        Some(Artifact::Purify(p)) => {
+            p.constructs.values().flat_map(|c| c.dropped.iter().map(|d| d.item.clone())).collect()
+        }
+        _ => Vec::new(),
+    };
+    let structure = match execution.artifacts.get(&StepKind::Structure) {
+        Some(Artifact::Structure(s)) => Some(s),
+        _ => None,
+    };
+    let mut rows: Vec<Value> = Vec::new();
+    let found = |a: &str, b: &str| {
+        structure.and_then(|s| s.edges.iter().find(|e| (e.from == a && e.to == b) || (e.from == b && e.to == a)))
+    };
+    for p in &truth.paths {
+        let edge = found(&p.from, &p.to);
+        let est =
+            structure.and_then(|s| s.effects.iter().find(|f| f.from == p.from && f.to == p.to)).and_then(|f| f.std);
+        let status = match edge {
+            Some(e) if e.kind == "directed" && e.from == p.from => "found, oriented as true",
+            Some(e) if e.kind == "directed" => "found, reversed",
+            Some(_) => "found, unoriented",
+            None => "missed",
+        };
+        rows.push(json!({"from": p.from, "to": p.to, "true_std": p.standardized, "est_std": est, "status": status}));
+    }
+    if let Some(s) = structure {
+        for e in &s.edges {
+            if !truth.paths.iter().any(|p| (p.from == e.from && p.to == e.to) || (p.from == e.to && p.to == e.from)) {
+                let est = s.effects.iter().find(|f| f.from == e.from && f.to == e.to).and_then(|f| f.std);
+                rows.push(json!({"from": e.from, "to": e.to, "true_std": 0.0, "est_std": est, "status": "spurious (not in the model)"}));
+            }
+        }
+    }
+    Some(json!({
+        "file": rel.display().to_string(),
+        "impure": truth.impure,
+        "dropped": dropped,
+        "paths": rows,
+        "searched": structure.is_some(),
+    }))
 }

@@ -79,8 +79,16 @@ fn spec_info(spec: &SpecFile) -> SpecInfo {
     }
 }
 
+/// What besides the steps shapes the written report: the formats, and the truth model's bytes.
 fn report_settings(spec: &SpecFile) -> Value {
-    serde_json::to_value(&spec.spec.report.formats).unwrap_or(Value::Null)
+    let truth = spec
+        .spec
+        .report
+        .truth_model
+        .as_ref()
+        .and_then(|p| std::fs::read(spec.resolve(p)).ok())
+        .map(|b| Key::of_bytes(&b).hex());
+    serde_json::json!({"formats": spec.spec.report.formats, "truth_model": truth})
 }
 
 fn seeds(spec: &SpecFile) -> BTreeMap<String, u64> {

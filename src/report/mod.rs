@@ -98,10 +98,10 @@ pub fn write_version(
     std::fs::create_dir_all(root).map_err(io("create report folder", root))?;
     versions::remove_stale_partials(root);
     let existing = versions::latest(root);
-    if let Some((n, latest)) = &existing {
-        if latest.fingerprint == manifest.fingerprint {
-            return Ok(WriteOutcome::Unchanged { version: *n, dir: root.join(format!("v{n}")) });
-        }
+    if let Some((n, latest)) = &existing
+        && latest.fingerprint == manifest.fingerprint
+    {
+        return Ok(WriteOutcome::Unchanged { version: *n, dir: root.join(format!("v{n}")) });
     }
     let version = existing.map_or(1, |(n, _)| n + 1);
     manifest.report_version = version;

@@ -69,18 +69,10 @@ impl SpecFile {
         }
     }
 
-    /// The folder that relative paths in the spec are resolved against.
-    pub fn dir(&self) -> PathBuf {
-        match self.path.parent() {
-            Some(p) if !p.as_os_str().is_empty() => p.to_path_buf(),
-            _ => PathBuf::from("."),
-        }
-    }
-
     /// A path from the spec, resolved relative to the spec's folder.
     pub fn resolve(&self, relative: &Path) -> PathBuf {
         match self.path.parent() {
-            Some(p) if !p.as_os_str().is_empty() && !relative.is_absolute() => p.join(relative),
+            Some(p) if !p.as_os_str().is_empty() && !relative.is_absolute() => lexical_clean(&p.join(relative)),
             _ => relative.to_path_buf(),
         }
     }
@@ -111,10 +103,41 @@ fn diagnose(path: &Path, source: &str, positions: &Positions, findings: Vec<Find
     report
 }
 
+/// Removes `.` and folds `name/..` without touching the file system, so messages show
+/// `reports/x` rather than `pipelines/demo/../../reports/x`. A leading `..` is kept.
+pub fn lexical_clean(path: &Path) -> PathBuf {
+    use std::path::Component;
+    let mut out: Vec<Component<'_>> = Vec::new();
+    for c in path.components() {
+        match c {
+            Component::CurDir => {}
+            Component::ParentDir if matches!(out.last(), Some(Component::Normal(_))) => {
+                out.pop();
+            }
+            other => out.push(other),
+        }
+    }
+    if out.is_empty() { PathBuf::from(".") } else { out.iter().collect() }
+}
+
 /// serde_yaml appends " at line L column C" to messages; the diagnostic shows that itself.
 fn strip_location(message: &str) -> String {
     match message.rfind(" at line ") {
         Some(i) => message[..i].to_string(),
         None => message.to_string(),
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::lexical_clean;
+    use std::path::{Path, PathBuf};
+
+    #[test]
+    fn lexical_clean_folds_parent_steps() {
+        assert_eq!(lexical_clean(Path::new("pipelines/transit/../../reports")), PathBuf::from("reports"));
+        assert_eq!(lexical_clean(Path::new("./a/./b")), PathBuf::from("a/b"));
+        assert_eq!(lexical_clean(Path::new("../x")), PathBuf::from("../x"));
+        assert_eq!(lexical_clean(Path::new("a/..")), PathBuf::from("."));
     }
 }

@@ -24,6 +24,8 @@ pub enum SpecProblem {
     DuplicateWave { wave: String },
     #[error("data file `{}` of {} does not exist", path.display(), source_name(wave))]
     MissingFile { wave: Option<String>, path: PathBuf },
+    #[error("truth model `{}` does not exist", path.display())]
+    MissingTruthModel { path: PathBuf },
     #[error("cannot read the columns of `{}`: {reason}", path.display())]
     UnreadableFile { path: PathBuf, reason: String },
     #[error("data file `{}` has unsupported extension; use .csv or .parquet", path.display())]
@@ -78,7 +80,9 @@ impl SpecProblem {
             | MissingColumn { suggestion, .. }
             | UnknownConstruct { suggestion, .. }
             | UnknownDataItem { suggestion, .. } => suggestion.clone(),
-            MissingFile { .. } => Some("paths are relative to the folder of the spec file".into()),
+            MissingFile { .. } | MissingTruthModel { .. } => {
+                Some("paths are relative to the folder of the spec file".into())
+            }
             NoData => Some("list survey files under `data.waves`, or a published matrix under `data.matrix`".into()),
             NeedsRows { .. } => Some("remove the analysis, or supply the respondent-level waves".into()),
             NotYetAvailable { .. } => Some("remove the key to silence this warning".into()),

@@ -21,7 +21,7 @@ const STRUCTURE: &[&str] = &["alpha", "test"];
 const SENSITIVITY: &[&str] = &["reliability", "prior", "draws", "alpha", "seed"];
 const PRIOR: &[&str] = &["beta"];
 const RESAMPLE: &[&str] = &["replicates", "seed"];
-const REPORT: &[&str] = &["formats", "dir"];
+const REPORT: &[&str] = &["formats", "dir", "truth_model"];
 
 /// What keys a mapping at a given path may have.
 enum Allowed {
@@ -112,7 +112,7 @@ analyses:
   structure: {alpha: 0.05, test: wald}
   sensitivity: {reliability: {f: [0.5]}, prior: {f: {beta: [7, 3]}}, draws: 10, alpha: [0.01], seed: 3}
   resample: {replicates: 10, seed: 11}
-report: {formats: [html, markdown], dir: reports}
+report: {formats: [html, markdown], dir: reports, truth_model: model.yaml}
 "#;
 
     #[test]

@@ -318,11 +318,15 @@ pub struct ReportSpec {
     pub formats: Vec<ReportFormat>,
     #[serde(default = "default_report_dir")]
     pub dir: PathBuf,
+    /// A `construe simulate` model file the data were drawn from (relative to the spec): the
+    /// report then sets the findings beside the known truth. For demos and power checks.
+    #[serde(default)]
+    pub truth_model: Option<PathBuf>,
 }
 
 impl Default for ReportSpec {
     fn default() -> Self {
-        ReportSpec { formats: default_formats(), dir: default_report_dir() }
+        ReportSpec { formats: default_formats(), dir: default_report_dir(), truth_model: None }
     }
 }
 

@@ -31,7 +31,7 @@ pub struct SourceColumns {
 }
 
 /// Every semantic problem of `spec`, given the columns of its sources.
-pub fn validate(spec: &Spec, sources: &[SourceColumns]) -> Vec<Finding> {
+pub fn validate(spec: &Spec, spec_dir: &std::path::Path, sources: &[SourceColumns]) -> Vec<Finding> {
     let mut out = Vec::new();
     if spec.construe != super::types::FORMAT_VERSION {
         out.push(Finding::value(
@@ -45,6 +45,12 @@ pub fn validate(spec: &Spec, sources: &[SourceColumns]) -> Vec<Finding> {
     check_data_options(spec, available.as_ref(), &mut out);
     check_knowledge(spec, &mut out);
     check_analyses(spec, available.as_ref(), &mut out);
+    if let Some(model) = &spec.report.truth_model {
+        let path = if model.is_absolute() { model.clone() } else { spec_dir.join(model) };
+        if !path.exists() {
+            out.push(Finding::value(SpecProblem::MissingTruthModel { path: model.clone() }, "report.truth_model"));
+        }
+    }
     if spec.report.formats.is_empty() {
         out.push(Finding::value(SpecProblem::NoReportFormats, "report.formats"));
     }
@@ -81,13 +87,13 @@ fn check_sources(spec: &Spec, sources: &[SourceColumns], out: &mut Vec<Finding>)
     }
     if let Some(id) = &data.id_column {
         for s in sources.iter().filter(|s| s.wave.is_some()) {
-            if let ColumnsRead::Columns(cols) = &s.columns {
-                if !cols.contains(id) {
-                    out.push(Finding::value(
-                        SpecProblem::MissingIdColumn { column: id.clone(), path: s.path.clone() },
-                        "data.id_column",
-                    ));
-                }
+            if let ColumnsRead::Columns(cols) = &s.columns
+                && !cols.contains(id)
+            {
+                out.push(Finding::value(
+                    SpecProblem::MissingIdColumn { column: id.clone(), path: s.path.clone() },
+                    "data.id_column",
+                ));
             }
         }
     }
@@ -145,17 +151,17 @@ fn check_constructs(spec: &Spec, sources: &[SourceColumns], available: Option<&V
                 ));
                 continue;
             }
-            if let Some(first) = owner.insert(item, name) {
-                if first != name {
-                    out.push(Finding::value(
-                        SpecProblem::ItemInTwoConstructs {
-                            item: item.clone(),
-                            first: first.to_string(),
-                            second: name.clone(),
-                        },
-                        path.clone(),
-                    ));
-                }
+            if let Some(first) = owner.insert(item, name)
+                && first != name
+            {
+                out.push(Finding::value(
+                    SpecProblem::ItemInTwoConstructs {
+                        item: item.clone(),
+                        first: first.to_string(),
+                        second: name.clone(),
+                    },
+                    path.clone(),
+                ));
             }
             if spec.data.id_column.as_deref() == Some(item) {
                 out.push(Finding::value(SpecProblem::IdColumnIsItem { column: item.clone() }, path.clone()));
@@ -172,16 +178,16 @@ fn check_constructs(spec: &Spec, sources: &[SourceColumns], available: Option<&V
                 continue;
             }
             for s in sources {
-                if let (Some(wave), ColumnsRead::Columns(cols)) = (&s.wave, &s.columns) {
-                    if !cols.contains(item) {
-                        let problem = SpecProblem::MissingColumn {
-                            wave: wave.clone(),
-                            column: item.clone(),
-                            path: s.path.clone(),
-                            suggestion: suggest(item, cols.iter().map(String::as_str)),
-                        };
-                        out.push(Finding::value(problem, path.clone()));
-                    }
+                if let (Some(wave), ColumnsRead::Columns(cols)) = (&s.wave, &s.columns)
+                    && !cols.contains(item)
+                {
+                    let problem = SpecProblem::MissingColumn {
+                        wave: wave.clone(),
+                        column: item.clone(),
+                        path: s.path.clone(),
+                        suggestion: suggest(item, cols.iter().map(String::as_str)),
+                    };
+                    out.push(Finding::value(problem, path.clone()));
                 }
             }
         }

@@ -162,7 +162,7 @@ impl CovarianceStep {
     /// on the pair's complete rows. Covariances: product-moment for two continuous items (so
     /// they equal the usual sample covariance); otherwise r_ab x sd_a x sd_b with each item's
     /// standard deviation on its response scale, the scaling of the underlying response.
-    fn from_rows(&self, load: &LoadOutput, table: &Table) -> Result<Estimates, StepError> {
+    fn estimate_from_rows(&self, load: &LoadOutput, table: &Table) -> Result<Estimates, StepError> {
         let items = &table.items;
         let p = items.len();
         let kinds = load.item_kinds();
@@ -306,7 +306,7 @@ impl Step for CovarianceStep {
         let items: Vec<String> = load.summary.items.iter().map(|i| i.name.clone()).collect();
         let mut e = match (&load.matrix, &load.table) {
             (Some(m), _) => Self::from_matrix(m, &items),
-            (None, Some(table)) => self.from_rows(load, table)?,
+            (None, Some(table)) => self.estimate_from_rows(load, table)?,
             (None, None) => return Err(StepError::MissingInput { step: StepKind::Covariance, needs: StepKind::Load }),
         };
         let mut definiteness = definiteness(&e.correlation, &items);
