@@ -50,12 +50,52 @@ fn boundary((cx, cy): (f64, f64), (tx, ty): (f64, f64)) -> (f64, f64) {
 
 pub fn diagram(nodes: &[Node], links: &[Link], dropped: &[String]) -> String {
     let (centres, width, height) = layout(nodes);
-    let height = height + if dropped.is_empty() { 0.0 } else { 30.0 };
+    // Edges that skip a column, or join two nodes of one column, bow upwards (or leftwards)
+    // so they do not run through the constructs in between.
+    let top_margin =
+        links.iter().filter(|l| bows(nodes, l)).map(|l| bow_offset(nodes, l) / 2.0 + 12.0).fold(0.0, f64::max);
+    let centres: Vec<(f64, f64)> = centres.into_iter().map(|(x, y)| (x, y + top_margin)).collect();
+    let height = height + top_margin + if dropped.is_empty() { 0.0 } else { 30.0 };
     let mut s = String::new();
     let _ = write!(
         s,
         r##"<svg xmlns="http://www.w3.org/2000/svg" class="diagram" viewBox="0 0 {width:.0} {height:.0}" width="{width:.0}" height="{height:.0}" role="img" aria-label="path diagram"><defs><marker id="arrowhead" viewBox="0 0 10 10" refX="9" refY="5" markerWidth="7" markerHeight="7" orient="auto-start-reverse"><path d="M0,0 L10,5 L0,10 z" fill="#1d232a"/></marker></defs>"##
     );
+    let mut labels = String::new();
+    for l in links {
+        let (a, b) = (centres[l.from], centres[l.to]);
+        let marker = if l.directed { r#" marker-end="url(#arrowhead)""# } else { "" };
+        let colour = if l.directed { "#1d232a" } else { "#a84824" };
+        let (mx, my) = if bows(nodes, l) {
+            let control = ((a.0 + b.0) / 2.0, a.1.min(b.1) - bow_offset(nodes, l));
+            let (x1, y1) = boundary(a, control);
+            let (x2, y2) = boundary(b, control);
+            let _ = write!(
+                s,
+                r#"<path d="M{x1:.1},{y1:.1} Q{:.1},{:.1} {x2:.1},{y2:.1}" fill="none" stroke="{colour}" stroke-width="1.6"{marker}/>"#,
+                control.0, control.1
+            );
+            ((x1 + 2.0 * control.0 + x2) / 4.0, (y1 + 2.0 * control.1 + y2) / 4.0 - 4.0)
+        } else {
+            let (x1, y1) = boundary(a, b);
+            let (x2, y2) = boundary(b, a);
+            let _ = write!(
+                s,
+                r#"<line x1="{x1:.1}" y1="{y1:.1}" x2="{x2:.1}" y2="{y2:.1}" stroke="{colour}" stroke-width="1.6"{marker}/>"#
+            );
+            // Near the source: the gap before the target's item boxes is narrow.
+            let len = ((x2 - x1).powi(2) + (y2 - y1).powi(2)).sqrt().max(1.0);
+            let t = (26.0 / len).min(0.5);
+            (x1 + (x2 - x1) * t, y1 + (y2 - y1) * t - 5.0)
+        };
+        if let Some(label) = &l.label {
+            let _ = write!(
+                labels,
+                r##"<text x="{mx:.1}" y="{my:.1}" text-anchor="middle" class="dg-coef" paint-order="stroke" stroke="#fbfaf6" stroke-width="3">{}</text>"##,
+                escape(label)
+            );
+        }
+    }
     for (i, n) in nodes.iter().enumerate() {
         let (cx, cy) = centres[i];
         let top = cy - n.items.len() as f64 * ITEM_H / 2.0;
@@ -64,7 +104,7 @@ pub fn diagram(nodes: &[Node], links: &[Link], dropped: &[String]) -> String {
             let x = cx - RX - 96.0;
             let _ = write!(
                 s,
-                r##"<rect x="{x:.1}" y="{y:.1}" width="58" height="{h:.1}" fill="#fff" stroke="#8a8f96" stroke-width="0.8"/><text x="{tx:.1}" y="{ty:.1}" class="dg-item">{}</text><line x1="{lx:.1}" y1="{ly:.1}" x2="{ex:.1}" y2="{cy:.1}" stroke="#b9b4a8" stroke-width="0.7"/>"##,
+                r##"<line x1="{lx:.1}" y1="{ly:.1}" x2="{ex:.1}" y2="{cy:.1}" stroke="#b9b4a8" stroke-width="0.7"/><rect x="{x:.1}" y="{y:.1}" width="58" height="{h:.1}" fill="#fff" stroke="#8a8f96" stroke-width="0.8"/><text x="{tx:.1}" y="{ty:.1}" class="dg-item">{}</text>"##,
                 escape(item),
                 h = ITEM_H - 3.0,
                 tx = x + 4.0,
@@ -81,25 +121,7 @@ pub fn diagram(nodes: &[Node], links: &[Link], dropped: &[String]) -> String {
             ty = cy + 4.0
         );
     }
-    for l in links {
-        let (a, b) = (centres[l.from], centres[l.to]);
-        let (x1, y1) = boundary(a, b);
-        let (x2, y2) = boundary(b, a);
-        let marker = if l.directed { r#" marker-end="url(#arrowhead)""# } else { "" };
-        let colour = if l.directed { "#1d232a" } else { "#a84824" };
-        let _ = write!(
-            s,
-            r#"<line x1="{x1:.1}" y1="{y1:.1}" x2="{x2:.1}" y2="{y2:.1}" stroke="{colour}" stroke-width="1.6"{marker}/>"#
-        );
-        if let Some(label) = &l.label {
-            let (mx, my) = ((x1 + x2) / 2.0, (y1 + y2) / 2.0 - 5.0);
-            let _ = write!(
-                s,
-                r##"<text x="{mx:.1}" y="{my:.1}" text-anchor="middle" class="dg-coef" paint-order="stroke" stroke="#fbfaf6" stroke-width="3">{}</text>"##,
-                escape(label)
-            );
-        }
-    }
+    s.push_str(&labels);
     if !dropped.is_empty() {
         let list: Vec<String> = dropped.iter().map(|d| escape(d)).collect();
         let _ = write!(
@@ -111,6 +133,17 @@ pub fn diagram(nodes: &[Node], links: &[Link], dropped: &[String]) -> String {
     }
     s.push_str("</svg>");
     s
+}
+
+/// How far above the higher end a bowed link's control point lies (its apex is half that).
+fn bow_offset(nodes: &[Node], l: &Link) -> f64 {
+    let span = nodes[l.from].column.abs_diff(nodes[l.to].column) as f64;
+    2.0 * RY + 40.0 + 30.0 * span
+}
+
+/// Whether a link must curve around the constructs between its ends.
+fn bows(nodes: &[Node], l: &Link) -> bool {
+    nodes[l.from].column.abs_diff(nodes[l.to].column) != 1
 }
 
 #[cfg(test)]
