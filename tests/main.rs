@@ -8,3 +8,4 @@ mod check;
 mod demo;
 mod reference;
 mod report;
+mod verify;
