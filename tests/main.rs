@@ -8,4 +8,5 @@ mod check;
 mod demo;
 mod reference;
 mod report;
+mod simulate;
 mod verify;

@@ -18,4 +18,8 @@ pub mod simulate;
 pub mod smoothing;
 pub mod tetrad;
 
+/// Simulation checks of the measurement-error pitfalls, structure recovery and test calibration.
+#[cfg(test)]
+mod pitfalls;
+
 pub use error::StatsError;
