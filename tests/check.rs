@@ -183,8 +183,8 @@ fn type_errors_have_positions() {
 
 #[test]
 fn unavailable_analyses_warn_but_run() {
-    let spec = format!("{SMALL_SPEC}  resample: {{replicates: 10}}\n");
+    let spec = format!("{SMALL_SPEC}  sensitivity: {{reliability: {{beta: [0.8]}}}}\n");
     with_spec(&spec).run(["check", "spec.yaml"]).success().stderr_contains(
-        "warning: analysis `resample` is not available in this version of construe and will be skipped",
+        "warning: analysis `sensitivity` is not available in this version of construe and will be skipped",
     );
 }

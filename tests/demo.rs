@@ -1,7 +1,7 @@
 //! The shipped demo: every spec under `pipelines/` passes `check`, and the transit demo runs
 //! from a copy of its folder and writes `reports/<slug>/v1/report.html`.
 
-use crate::harness::Case;
+use crate::harness::{Case, demo_case};
 
 #[test]
 fn every_pipeline_spec_checks() {
@@ -21,7 +21,7 @@ fn every_pipeline_spec_checks() {
 
 #[test]
 fn transit_demo_writes_its_report() {
-    let case = Case::new().copy_dir("pipelines/transit", "pipelines/transit");
+    let case = demo_case(Some(8));
     let out = case.run(["run", "pipelines/transit/spec.yaml"]);
     out.success().stderr_contains("wrote report v1");
     assert!(case.exists("reports/transit-rider-panel/v1/report.html"));
@@ -42,7 +42,7 @@ fn transit_demo_writes_its_report() {
 /// punctuality -> trust, trust -> intent, with no direct crowding -> intent path.
 #[test]
 fn transit_demo_recovers_the_planted_model() {
-    let case = Case::new().copy_dir("pipelines/transit", "pipelines/transit");
+    let case = demo_case(None);
     case.run(["run", "pipelines/transit/spec.yaml"]).success();
     let r: serde_json::Value = serde_json::from_str(&case.read("reports/transit-rider-panel/v1/results.json")).unwrap();
     let dropped: Vec<String> = r["purify"]["constructs"]
@@ -86,4 +86,19 @@ fn transit_demo_recovers_the_planted_model() {
         .find(|e| e["from"] == "fare_burden" && e["to"] == "intent")
         .unwrap();
     assert!(effect["ci"][1].as_f64().unwrap() < 0.0);
+}
+
+/// Bootstrap results do not depend on the thread count (each replicate has its own seeded
+/// stream and results are gathered in replicate order).
+#[test]
+fn resampling_is_identical_across_thread_counts() {
+    let one = demo_case(Some(6));
+    one.run_env(["run", "pipelines/transit/spec.yaml"], &[("RAYON_NUM_THREADS", "1")]).success();
+    let two = demo_case(Some(6));
+    two.run_env(["run", "pipelines/transit/spec.yaml"], &[("RAYON_NUM_THREADS", "2")]).success();
+    let a: serde_json::Value = serde_json::from_str(&one.read("reports/transit-rider-panel/v1/results.json")).unwrap();
+    let b: serde_json::Value = serde_json::from_str(&two.read("reports/transit-rider-panel/v1/results.json")).unwrap();
+    assert_eq!(a["resample"], b["resample"]);
+    assert_eq!(a["resample"]["succeeded"], 6);
+    assert_eq!(a["resample"]["items_kept"]["fare_share"], 1.0);
 }

@@ -50,6 +50,15 @@ impl Case {
         I: IntoIterator<Item = S>,
         S: AsRef<std::ffi::OsStr>,
     {
+        self.run_env(args, &[])
+    }
+
+    /// Runs with extra environment variables.
+    pub fn run_env<I, S>(&self, args: I, env: &[(&str, &str)]) -> Outcome
+    where
+        I: IntoIterator<Item = S>,
+        S: AsRef<std::ffi::OsStr>,
+    {
         let mut cmd = Command::new(env!("CARGO_BIN_EXE_construe"));
         cmd.args(args).current_dir(self.dir.path());
         for (k, _) in std::env::vars() {
@@ -57,6 +66,7 @@ impl Case {
                 cmd.env_remove(k);
             }
         }
+        cmd.envs(env.iter().copied());
         let out = cmd.output().expect("run construe");
         Outcome {
             code: out.status.code(),
@@ -202,4 +212,17 @@ pub const SMALL_COLUMNS: &[&str] = &["a1", "a2", "a3", "b1", "b2", "b3", "x"];
 
 pub fn small_case() -> Case {
     Case::new().spec(SMALL_SPEC).file("w1.csv", synthetic_csv(200, 7, SMALL_COLUMNS))
+}
+
+/// The transit demo copied into a case; `replicates` replaces the spec's bootstrap count
+/// (`None` removes resampling, which keeps ordinary tests fast).
+pub fn demo_case(replicates: Option<usize>) -> Case {
+    let case = Case::new().copy_dir("pipelines/transit", "pipelines/transit");
+    let spec = case.read("pipelines/transit/spec.yaml");
+    let line = spec.lines().find(|l| l.trim_start().starts_with("resample:")).map(str::to_string).unwrap_or_default();
+    let spec = match replicates {
+        Some(r) => spec.replace(&line, &format!("  resample:   {{replicates: {r}, seed: 11}}")),
+        None => spec.replace(&format!("{line}\n"), ""),
+    };
+    case.file("pipelines/transit/spec.yaml", spec)
 }

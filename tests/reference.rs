@@ -1,7 +1,7 @@
 //! construe's covariances against numpy on the demo data (fixture from
 //! tests/reference/demo-moments/make_fixture.py; numpy and pyarrow versions recorded inside).
 
-use crate::harness::Case;
+use crate::harness::demo_case;
 
 fn matrix(v: &serde_json::Value) -> Vec<Vec<f64>> {
     v.as_array().unwrap().iter().map(|r| r.as_array().unwrap().iter().map(|x| x.as_f64().unwrap()).collect()).collect()
@@ -12,7 +12,7 @@ fn max_abs_diff(a: &[Vec<f64>], b: &[Vec<f64>]) -> f64 {
 }
 
 fn run_demo(missing: &str) -> serde_json::Value {
-    let case = Case::new().copy_dir("pipelines/transit", "pipelines/transit");
+    let case = demo_case(None);
     let spec = case
         .read("pipelines/transit/spec.yaml")
         .replace("missing: pairwise", &format!("missing: {missing}"))

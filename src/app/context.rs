@@ -87,6 +87,8 @@ pub fn report_context(spec: &SpecFile, execution: &Execution, results: &Value) -
         "discover": results.get("discover"),
         "measure": results.get("measure"),
         "structure": results.get("structure"),
+        "resample": results.get("resample"),
+        "edge_support": edge_support(execution),
         "diagram": diagram,
         "truth": truth_comparison(spec, execution),
         "skipped": unavailable_analyses(s),
@@ -118,12 +120,14 @@ fn structure_diagram(spec: &SpecFile, execution: &Execution) -> Option<String> {
         .edges
         .iter()
         .filter_map(|e| {
-            let label = st
-                .effects
-                .iter()
-                .find(|f| f.from == e.from && f.to == e.to)
-                .and_then(|f| f.std)
-                .map(|v| format!("{v:+.2}"));
+            let coefficient = st.effects.iter().find(|f| f.from == e.from && f.to == e.to).and_then(|f| f.std);
+            // With resampling, the share of replicates in which the edge appeared.
+            let label = match (coefficient, bootstrap_support(execution, &e.from, &e.to)) {
+                (Some(c), Some(p)) => Some(format!("{c:+.2} ({:.0}%)", p * 100.0)),
+                (Some(c), None) => Some(format!("{c:+.2}")),
+                (None, Some(p)) => Some(format!("{:.0}%", p * 100.0)),
+                (None, None) => None,
+            };
             Some(Link { from: index(&e.from)?, to: index(&e.to)?, directed: e.kind == "directed", label })
         })
         .collect();
@@ -189,4 +193,33 @@ fn truth_comparison(spec: &SpecFile, execution: &Execution) -> Option<Value> {
         "paths": rows,
         "searched": structure.is_some(),
     }))
+}
+
+/// The bootstrap share of replicates with `a` and `b` adjacent, when resampling ran.
+fn bootstrap_support(execution: &Execution, a: &str, b: &str) -> Option<f64> {
+    let Some(Artifact::Resample(r)) = execution.artifacts.get(&StepKind::Resample) else { return None };
+    Some(r.edges.iter().find(|e| (e.from == a && e.to == b) || (e.from == b && e.to == a)).map_or(0.0, |e| e.present))
+}
+
+/// For each edge of the structure, its bootstrap presence and orientation shares.
+fn edge_support(execution: &Execution) -> Value {
+    let (Some(Artifact::Structure(st)), Some(Artifact::Resample(r))) =
+        (execution.artifacts.get(&StepKind::Structure), execution.artifacts.get(&StepKind::Resample))
+    else {
+        return Value::Null;
+    };
+    let rows: Vec<Value> = st
+        .edges
+        .iter()
+        .map(|e| {
+            let f = r.edges.iter().find(|x| (x.from == e.from && x.to == e.to) || (x.from == e.to && x.to == e.from));
+            let (present, same, other) = match f {
+                Some(x) if x.from == e.from => (x.present, x.forward, x.backward),
+                Some(x) => (x.present, x.backward, x.forward),
+                None => (0.0, 0.0, 0.0),
+            };
+            json!({"key": format!("{}|{}", e.from, e.to), "present": present, "as_shown": same, "reversed": other})
+        })
+        .collect();
+    Value::Array(rows)
 }

@@ -181,9 +181,8 @@ fn replicate(model: &SimulationModel, seed: u64) -> Recovery {
     let mut without_pair: Vec<Vec<usize>> =
         got.iter().map(|c| c.iter().copied().filter(|i| !PAIR.contains(i)).collect()).collect();
     without_pair.sort();
-    let pair_in_own_group = PAIR.iter().all(|&i| {
-        got.iter().all(|c| !c.contains(&i) || c.iter().all(|&j| j == i || j / 5 == i / 5))
-    });
+    let pair_in_own_group =
+        PAIR.iter().all(|&i| got.iter().all(|c| !c.contains(&i) || c.iter().all(|&j| j == i || j / 5 == i / 5)));
     let clusters_recovered = pair_left <= 1 && pair_in_own_group && without_pair == exact;
     Recovery { impure_dropped, pure_kept, clusters_recovered, clusters_exact }
 }

@@ -8,6 +8,7 @@ pub mod discover;
 pub mod load;
 pub mod measure;
 pub mod purify;
+pub mod resample;
 pub mod structure;
 
 use std::collections::BTreeMap;
@@ -26,6 +27,7 @@ pub use discover::{DiscoverOutput, DiscoverStep};
 pub use load::{LoadOutput, LoadStep};
 pub use measure::{MeasureOutput, MeasureStep};
 pub use purify::{PurifyOutput, PurifyStep};
+pub use resample::{ResampleOutput, ResampleStep};
 pub use structure::{StructureOutput, StructureStep};
 
 /// The kinds of step, in plan order. One name everywhere: spec key, file, variant, report block.
@@ -38,6 +40,7 @@ pub enum StepKind {
     Discover,
     Measure,
     Structure,
+    Resample,
 }
 
 impl StepKind {
@@ -49,6 +52,7 @@ impl StepKind {
             StepKind::Discover => "discover",
             StepKind::Measure => "measure",
             StepKind::Structure => "structure",
+            StepKind::Resample => "resample",
         }
     }
 }
@@ -86,6 +90,7 @@ pub enum Artifact {
     Discover(Box<DiscoverOutput>),
     Measure(Box<MeasureOutput>),
     Structure(Box<StructureOutput>),
+    Resample(Box<ResampleOutput>),
 }
 
 impl Artifact {
@@ -97,6 +102,7 @@ impl Artifact {
             Artifact::Discover(a) => serde_json::to_vec(a).unwrap_or_default(),
             Artifact::Measure(a) => serde_json::to_vec(a).unwrap_or_default(),
             Artifact::Structure(a) => serde_json::to_vec(a).unwrap_or_default(),
+            Artifact::Resample(a) => serde_json::to_vec(a).unwrap_or_default(),
         }
     }
 
@@ -109,6 +115,7 @@ impl Artifact {
             StepKind::Discover => serde_json::from_slice(bytes).ok().map(|a| Artifact::Discover(Box::new(a))),
             StepKind::Measure => serde_json::from_slice(bytes).ok().map(|a| Artifact::Measure(Box::new(a))),
             StepKind::Structure => serde_json::from_slice(bytes).ok().map(|a| Artifact::Structure(Box::new(a))),
+            StepKind::Resample => serde_json::from_slice(bytes).ok().map(|a| Artifact::Resample(Box::new(a))),
         }
     }
 
@@ -121,6 +128,7 @@ impl Artifact {
             Artifact::Discover(a) => serde_json::to_value(a.as_ref()).unwrap_or(Value::Null),
             Artifact::Measure(a) => serde_json::to_value(a.as_ref()).unwrap_or(Value::Null),
             Artifact::Structure(a) => serde_json::to_value(a.as_ref()).unwrap_or(Value::Null),
+            Artifact::Resample(a) => serde_json::to_value(a.as_ref()).unwrap_or(Value::Null),
         }
     }
 }
@@ -181,6 +189,16 @@ pub trait Step: Send + Sync {
 /// The steps a spec asks for, in plan order.
 pub fn build_steps(spec: &SpecFile) -> Vec<Box<dyn Step>> {
     let mut steps: Vec<Box<dyn Step>> = vec![Box::new(LoadStep::from_spec(spec))];
+    steps.extend(analysis_steps(spec));
+    if let Some(r) = &spec.spec.analyses.resample {
+        steps.push(Box::new(ResampleStep::new(r, analysis_steps(spec))));
+    }
+    steps
+}
+
+/// The analyses after `load` (covariance to structure): what a bootstrap replicate reruns.
+pub fn analysis_steps(spec: &SpecFile) -> Vec<Box<dyn Step>> {
+    let mut steps: Vec<Box<dyn Step>> = Vec::new();
     let a = &spec.spec.analyses;
     // Every analysis after `load` starts from the item covariances, so they run whenever any
     // analysis is requested, with default settings if `covariance` itself is absent.
@@ -208,7 +226,7 @@ pub fn build_steps(spec: &SpecFile) -> Vec<Box<dyn Step>> {
 /// Analyses the spec names that this build cannot run yet (warned about, then skipped).
 pub fn unavailable_analyses(spec: &crate::spec::Spec) -> Vec<&'static str> {
     let a = &spec.analyses;
-    [("sensitivity", a.sensitivity.is_some()), ("resample", a.resample.is_some())]
+    [("sensitivity", a.sensitivity.is_some())]
         .into_iter()
         .filter_map(|(name, present)| present.then_some(name))
         .collect()

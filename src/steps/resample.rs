@@ -1,0 +1,303 @@
+//! `resample`: the nonparametric bootstrap of the whole analysis (Efron 1979). Each replicate
+//! draws respondents with replacement within each wave and reruns every analysis step after
+//! `load` with the spec's settings. Central type: `ResampleOutput`: how often each item is kept,
+//! each cluster found, each edge present and oriented, and percentile intervals of effects.
+//! Replicate r uses its own seeded stream, and results are collected in replicate order, so
+//! the output is identical whatever the thread count.
+
+use std::collections::BTreeMap;
+
+use indexmap::IndexMap;
+use rand::{Rng, SeedableRng};
+use rand_chacha::ChaCha8Rng;
+use rayon::prelude::*;
+use serde::{Deserialize, Serialize};
+use serde_json::{Value, json};
+
+use super::{Artifact, Inputs, LoadOutput, Step, StepError, StepKind};
+use crate::data::Table;
+use crate::spec::types::ResampleSpec;
+
+/// Bump when bootstrap results change for the same inputs and parameters.
+pub const VERSION: u32 = 1;
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct EdgeFrequency {
+    pub from: String,
+    pub to: String,
+    /// Share of successful replicates with the two constructs adjacent.
+    pub present: f64,
+    /// Share oriented `from -> to`, and `to -> from`.
+    pub forward: f64,
+    pub backward: f64,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct EffectInterval {
+    pub from: String,
+    pub to: String,
+    /// Percentile 95% interval of the estimate over the replicates that fitted this path.
+    pub ci: [f64; 2],
+    pub std_ci: [f64; 2],
+    pub replicates: usize,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct ResampleOutput {
+    pub replicates: usize,
+    pub seed: u64,
+    pub succeeded: usize,
+    /// Replicates whose analysis failed (non-convergence is counted, not dropped silently).
+    pub failed: usize,
+    pub failures: Vec<String>,
+    pub not_converged: usize,
+    pub items_kept: IndexMap<String, f64>,
+    pub clusters: Vec<ClusterFrequency>,
+    pub edges: Vec<EdgeFrequency>,
+    pub effects: Vec<EffectInterval>,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct ClusterFrequency {
+    pub items: Vec<String>,
+    pub frequency: f64,
+}
+
+pub struct ResampleStep {
+    params: ResampleSpec,
+    chain: Vec<Box<dyn Step>>,
+}
+
+impl ResampleStep {
+    pub fn new(params: &ResampleSpec, chain: Vec<Box<dyn Step>>) -> ResampleStep {
+        ResampleStep { params: params.clone(), chain }
+    }
+}
+
+/// What one replicate found.
+#[derive(Default)]
+struct Replicate {
+    kept: Vec<String>,
+    clusters: Vec<Vec<String>>,
+    /// (from, to, directed) with from < to for undirected ones.
+    edges: Vec<(String, String, bool)>,
+    effects: Vec<(String, String, f64, Option<f64>)>,
+    converged: bool,
+}
+
+/// Rows drawn with replacement within each wave (stratified), in wave order.
+pub fn bootstrap_rows(table: &Table, rng: &mut ChaCha8Rng) -> Vec<usize> {
+    let mut out = Vec::with_capacity(table.rows());
+    for w in 0..table.waves.len() as u32 {
+        let rows: Vec<usize> = (0..table.rows()).filter(|&r| table.wave_of_row[r] == w).collect();
+        for _ in 0..rows.len() {
+            out.push(rows[rng.random_range(0..rows.len())]);
+        }
+    }
+    out
+}
+
+fn resampled(load: &LoadOutput, rows: &[usize]) -> Option<LoadOutput> {
+    let table = load.table.as_ref()?;
+    let columns = table.columns.iter().map(|c| rows.iter().map(|&r| c[r]).collect()).collect();
+    let wave_of_row = rows.iter().map(|&r| table.wave_of_row[r]).collect();
+    let table = Table { items: table.items.clone(), waves: table.waves.clone(), wave_of_row, columns };
+    Some(LoadOutput { summary: load.summary.clone(), table: Some(table), matrix: None })
+}
+
+impl ResampleStep {
+    fn replicate(&self, load: &LoadOutput, r: usize) -> Result<Replicate, String> {
+        let mut rng = ChaCha8Rng::seed_from_u64(self.params.seed);
+        rng.set_stream(r as u64 + 1);
+        let rows = bootstrap_rows(load.table.as_ref().ok_or("no respondent rows")?, &mut rng);
+        let sample = resampled(load, &rows).ok_or("no respondent rows")?;
+        let mut artifacts = BTreeMap::new();
+        artifacts.insert(StepKind::Load, Artifact::Load(Box::new(sample)));
+        for step in &self.chain {
+            let out = step
+                .run(&Inputs { step: step.kind(), artifacts: &artifacts })
+                .map_err(|e| format!("{}: {e}", step.kind()))?;
+            artifacts.insert(step.kind(), out);
+        }
+        let mut rep = Replicate { converged: true, ..Replicate::default() };
+        if let Some(Artifact::Purify(p)) = artifacts.get(&StepKind::Purify) {
+            rep.kept = p.constructs.values().flat_map(|c| c.kept.iter().cloned()).collect();
+        }
+        if let Some(Artifact::Discover(d)) = artifacts.get(&StepKind::Discover) {
+            rep.clusters = d
+                .clusters
+                .iter()
+                .map(|c| {
+                    let mut c = c.clone();
+                    c.sort();
+                    c
+                })
+                .collect();
+        }
+        if let Some(Artifact::Measure(m)) = artifacts.get(&StepKind::Measure) {
+            rep.converged &= m.converged;
+        }
+        if let Some(Artifact::Structure(s)) = artifacts.get(&StepKind::Structure) {
+            rep.edges = s.edges.iter().map(|e| (e.from.clone(), e.to.clone(), e.kind == "directed")).collect();
+            rep.effects = s.effects.iter().map(|f| (f.from.clone(), f.to.clone(), f.est, f.std)).collect();
+            rep.converged &= s.members.iter().all(|m| m.converged);
+        }
+        Ok(rep)
+    }
+}
+
+/// The percentile interval [2.5%, 97.5%] of `values` (linear interpolation between order
+/// statistics, R's type 7; common practice).
+pub fn percentile_interval(values: &mut [f64]) -> [f64; 2] {
+    values.sort_by(f64::total_cmp);
+    let q = |p: f64| {
+        if values.is_empty() {
+            return f64::NAN;
+        }
+        let h = (values.len() - 1) as f64 * p;
+        let (lo, hi) = (h.floor() as usize, h.ceil() as usize);
+        values[lo] + (h - lo as f64) * (values[hi] - values[lo])
+    };
+    [q(0.025), q(0.975)]
+}
+
+impl Step for ResampleStep {
+    fn kind(&self) -> StepKind {
+        StepKind::Resample
+    }
+
+    fn version(&self) -> u32 {
+        VERSION
+    }
+
+    fn params(&self) -> Value {
+        let chain: Vec<Value> = self
+            .chain
+            .iter()
+            .map(|s| json!({"kind": s.kind(), "version": s.version(), "params": s.params()}))
+            .collect();
+        json!({"replicates": self.params.replicates, "seed": self.params.seed, "chain": chain})
+    }
+
+    fn inputs(&self) -> Vec<StepKind> {
+        vec![StepKind::Load]
+    }
+
+    fn run(&self, inputs: &Inputs<'_>) -> Result<Artifact, StepError> {
+        let load = inputs.load()?;
+        let results: Vec<Result<Replicate, String>> =
+            (0..self.params.replicates).into_par_iter().map(|r| self.replicate(load, r)).collect();
+        let ok: Vec<&Replicate> = results.iter().filter_map(|r| r.as_ref().ok()).collect();
+        let failures: Vec<String> = results
+            .iter()
+            .enumerate()
+            .filter_map(|(i, r)| r.as_ref().err().map(|e| format!("replicate {}: {e}", i + 1)))
+            .collect();
+        let share = |count: usize| if ok.is_empty() { 0.0 } else { count as f64 / ok.len() as f64 };
+        let items_kept = load
+            .summary
+            .items
+            .iter()
+            .map(|i| (i.name.clone(), share(ok.iter().filter(|r| r.kept.contains(&i.name)).count())))
+            .collect();
+        let mut cluster_counts: BTreeMap<Vec<String>, usize> = BTreeMap::new();
+        for r in &ok {
+            for c in &r.clusters {
+                *cluster_counts.entry(c.clone()).or_default() += 1;
+            }
+        }
+        let mut clusters: Vec<ClusterFrequency> =
+            cluster_counts.into_iter().map(|(items, k)| ClusterFrequency { items, frequency: share(k) }).collect();
+        clusters.sort_by(|a, b| b.frequency.total_cmp(&a.frequency).then(a.items.cmp(&b.items)));
+        clusters.truncate(20);
+        let mut pairs: BTreeMap<(String, String), (usize, usize, usize)> = BTreeMap::new();
+        for r in &ok {
+            for (from, to, directed) in &r.edges {
+                let (a, b) = if from < to { (from.clone(), to.clone()) } else { (to.clone(), from.clone()) };
+                let e = pairs.entry((a.clone(), b)).or_default();
+                e.0 += 1;
+                if *directed {
+                    if *from == a { e.1 += 1 } else { e.2 += 1 }
+                }
+            }
+        }
+        let edges = pairs
+            .into_iter()
+            .map(|((a, b), (p, f, bk))| EdgeFrequency {
+                from: a,
+                to: b,
+                present: share(p),
+                forward: share(f),
+                backward: share(bk),
+            })
+            .collect();
+        let mut paths: BTreeMap<(String, String), (Vec<f64>, Vec<f64>)> = BTreeMap::new();
+        for r in &ok {
+            for (from, to, est, std) in &r.effects {
+                let e = paths.entry((from.clone(), to.clone())).or_default();
+                e.0.push(*est);
+                if let Some(s) = std {
+                    e.1.push(*s);
+                }
+            }
+        }
+        let effects = paths
+            .into_iter()
+            .map(|((from, to), (mut est, mut std))| EffectInterval {
+                replicates: est.len(),
+                ci: percentile_interval(&mut est),
+                std_ci: percentile_interval(&mut std),
+                from,
+                to,
+            })
+            .collect();
+        Ok(Artifact::Resample(Box::new(ResampleOutput {
+            replicates: self.params.replicates,
+            seed: self.params.seed,
+            succeeded: ok.len(),
+            failed: failures.len(),
+            not_converged: ok.iter().filter(|r| !r.converged).count(),
+            failures: failures.into_iter().take(10).collect(),
+            items_kept,
+            clusters,
+            edges,
+            effects,
+        })))
+    }
+
+    fn describe(&self, artifact: &Artifact) -> String {
+        let Artifact::Resample(r) = artifact else { return String::new() };
+        format!(
+            "{} replicates: {} succeeded, {} failed, {} not converged",
+            r.replicates, r.succeeded, r.failed, r.not_converged
+        )
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    // R's quantile(c(1..10), c(.025, .975), type = 7): 1.225 and 9.775 (from memory of the
+    // type-7 definition: h = (n - 1) p + 1 on 1-based order statistics).
+    #[test]
+    fn percentile_interval_type_7() {
+        let mut v: Vec<f64> = (1..=10).map(f64::from).rev().collect();
+        let [lo, hi] = percentile_interval(&mut v);
+        assert!((lo - 1.225).abs() < 1e-12 && (hi - 9.775).abs() < 1e-12);
+    }
+
+    #[test]
+    fn bootstrap_stays_within_waves() {
+        let table = Table {
+            items: vec!["a".into()],
+            waves: vec!["w1".into(), "w2".into()],
+            wave_of_row: vec![0, 0, 0, 1, 1],
+            columns: vec![vec![1.0, 2.0, 3.0, 4.0, 5.0]],
+        };
+        let mut rng = ChaCha8Rng::seed_from_u64(3);
+        let rows = bootstrap_rows(&table, &mut rng);
+        assert_eq!(rows.len(), 5);
+        assert!(rows[..3].iter().all(|&r| r < 3) && rows[3..].iter().all(|&r| r >= 3));
+    }
+}
