@@ -182,9 +182,11 @@ fn type_errors_have_positions() {
 }
 
 #[test]
-fn unavailable_analyses_warn_but_run() {
+fn sensitivity_needs_structure_and_a_single_indicator() {
     let spec = format!("{SMALL_SPEC}  sensitivity: {{reliability: {{beta: [0.8]}}}}\n");
-    with_spec(&spec).run(["check", "spec.yaml"]).success().stderr_contains(
-        "warning: analysis `sensitivity` is not available in this version of construe and will be skipped",
-    );
+    with_spec(&spec)
+        .run(["check", "spec.yaml"])
+        .failure(1)
+        .stderr_contains("error: analysis `sensitivity` needs `structure` in the spec")
+        .stderr_contains("sensitivity to the reliability of `beta` needs a single-indicator construct; it has 4 items");
 }

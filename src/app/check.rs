@@ -4,10 +4,8 @@
 use std::path::Path;
 
 use crate::data::{FileKind, column_names};
-use crate::spec::problem::{Finding, SpecProblem};
 use crate::spec::validate::{ColumnsRead, SourceColumns, validate};
 use crate::spec::{Report, SpecFile};
-use crate::steps::unavailable_analyses;
 
 /// The parsed spec (when it parsed) and all diagnostics.
 pub struct Checked {
@@ -22,10 +20,7 @@ pub fn check(path: &Path) -> Checked {
     };
     let sources = source_columns(&spec);
     let spec_dir = spec.resolve(std::path::Path::new(""));
-    let mut findings = validate(&spec.spec, &spec_dir, &sources);
-    for name in unavailable_analyses(&spec.spec) {
-        findings.push(Finding::key(SpecProblem::NotYetAvailable { analysis: name.into() }, format!("analyses.{name}")));
-    }
+    let findings = validate(&spec.spec, &spec_dir, &sources);
     let report = spec.diagnose(findings);
     Checked { spec: Some(spec), report }
 }

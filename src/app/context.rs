@@ -8,7 +8,7 @@ use crate::report::diagram::{Link, Node, diagram};
 use crate::report::svg::heatmap;
 use crate::spec::SpecFile;
 use crate::stats::simulate::SimulationModel;
-use crate::steps::{Artifact, StepKind, unavailable_analyses};
+use crate::steps::{Artifact, StepKind};
 
 pub fn report_context(spec: &SpecFile, execution: &Execution, results: &Value) -> Value {
     let s = &spec.spec;
@@ -91,7 +91,8 @@ pub fn report_context(spec: &SpecFile, execution: &Execution, results: &Value) -
         "edge_support": edge_support(execution),
         "diagram": diagram,
         "truth": truth_comparison(spec, execution),
-        "skipped": unavailable_analyses(s),
+        "sensitivity": results.get("sensitivity"),
+        "sensitivity_plots": sensitivity_plots(execution),
         "steps": steps,
     })
 }
@@ -222,4 +223,18 @@ fn edge_support(execution: &Execution) -> Value {
         })
         .collect();
     Value::Array(rows)
+}
+
+/// One plot per effect and swept construct.
+fn sensitivity_plots(execution: &Execution) -> Vec<Value> {
+    let Some(Artifact::Sensitivity(s)) = execution.artifacts.get(&StepKind::Sensitivity) else { return Vec::new() };
+    s.curves
+        .iter()
+        .map(|c| {
+            json!({
+                "title": format!("{} → {} against the reliability of {}", c.from, c.to, c.construct),
+                "svg": crate::report::svg::sensitivity_plot(&c.reliability, &c.est, &c.lo, &c.hi, c.tipping),
+            })
+        })
+        .collect()
 }

@@ -64,8 +64,10 @@ pub enum SpecProblem {
     NoReportFormats,
     #[error("analysis `{analysis}` needs `{needs}` in the spec")]
     MissingPrerequisite { analysis: String, needs: String },
-    #[error("analysis `{analysis}` is not available in this version of construe and will be skipped")]
-    NotYetAvailable { analysis: String },
+    #[error(
+        "sensitivity to the reliability of `{construct}` needs a single-indicator construct; it has {count} items, whose measurement error the model estimates"
+    )]
+    NotSingleIndicator { construct: String, count: usize },
     #[error("construct `{construct}` has {} and no `reliability`, so it is not identified as a latent variable", crate::spec::diagnostic::plural(*count, "item"))]
     TooFewItems { construct: String, count: usize },
 }
@@ -85,7 +87,7 @@ impl SpecProblem {
             }
             NoData => Some("list survey files under `data.waves`, or a published matrix under `data.matrix`".into()),
             NeedsRows { .. } => Some("remove the analysis, or supply the respondent-level waves".into()),
-            NotYetAvailable { .. } => Some("remove the key to silence this warning".into()),
+            MissingPrerequisite { .. } => Some("add the analysis it needs under `analyses`".into()),
             TooFewItems { .. } => Some("add items (at least 3), or give the single indicator a `reliability`".into()),
             ItemInTwoConstructs { .. } => {
                 Some("an item can indicate only one declared construct; purification looks for cross-loadings".into())
@@ -97,7 +99,7 @@ impl SpecProblem {
 
     /// Problems that do not stop a run.
     pub fn is_warning(&self) -> bool {
-        matches!(self, SpecProblem::NotYetAvailable { .. } | SpecProblem::TooFewItems { .. })
+        matches!(self, SpecProblem::TooFewItems { .. })
     }
 }
 

@@ -344,6 +344,22 @@ fn check_analyses(spec: &Spec, available: Option<&Vec<String>>, out: &mut Vec<Fi
         alpha("`structure.alpha`", s.alpha, "analyses.structure.alpha", out);
     }
     if let Some(s) = &a.sensitivity {
+        if a.structure.is_none() {
+            out.push(Finding::key(
+                SpecProblem::MissingPrerequisite { analysis: "sensitivity".into(), needs: "structure".into() },
+                "analyses.sensitivity",
+            ));
+        }
+        let swept = s.reliability.keys().map(|n| (n, "analyses.sensitivity.reliability"));
+        for (name, path) in swept.chain(s.prior.keys().map(|n| (n, "analyses.sensitivity.prior"))) {
+            let count = spec.constructs.get(name).map_or(1, |c| c.items.len());
+            if count != 1 {
+                out.push(Finding::key(
+                    SpecProblem::NotSingleIndicator { construct: name.clone(), count },
+                    child(path, name),
+                ));
+            }
+        }
         let names: Vec<&str> = spec.constructs.keys().map(String::as_str).collect();
         for (name, grid) in &s.reliability {
             let path = child("analyses.sensitivity.reliability", name);

@@ -22,4 +22,8 @@ pub mod tetrad;
 #[cfg(test)]
 mod pitfalls;
 
+/// Acceptance checks: classic-matrix CFA against scipy, purification and cluster recovery.
+#[cfg(test)]
+mod acceptance;
+
 pub use error::StatsError;

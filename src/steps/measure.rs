@@ -122,6 +122,7 @@ struct ConstructModel {
     reliability: Option<f64>,
 }
 
+#[derive(Clone)]
 pub struct MeasureStep {
     params: MeasureSpec,
     declared: Vec<ConstructModel>,
@@ -137,6 +138,17 @@ impl MeasureStep {
             .map(|(n, c)| ConstructModel { name: n.clone(), items: c.items.clone(), reliability: c.reliability })
             .collect();
         MeasureStep { params: params.clone(), declared, purified: file.spec.analyses.purify.is_some() }
+    }
+}
+
+impl MeasureStep {
+    /// The same step with `construct`'s single-indicator reliability replaced (sensitivity).
+    pub fn with_reliability(&self, construct: &str, reliability: f64) -> MeasureStep {
+        let mut step = self.clone();
+        for c in step.declared.iter_mut().filter(|c| c.name == construct) {
+            c.reliability = Some(reliability);
+        }
+        step
     }
 }
 

@@ -9,6 +9,7 @@ pub mod load;
 pub mod measure;
 pub mod purify;
 pub mod resample;
+pub mod sensitivity;
 pub mod structure;
 
 use std::collections::BTreeMap;
@@ -28,6 +29,7 @@ pub use load::{LoadOutput, LoadStep};
 pub use measure::{MeasureOutput, MeasureStep};
 pub use purify::{PurifyOutput, PurifyStep};
 pub use resample::{ResampleOutput, ResampleStep};
+pub use sensitivity::{SensitivityOutput, SensitivityStep};
 pub use structure::{StructureOutput, StructureStep};
 
 /// The kinds of step, in plan order. One name everywhere: spec key, file, variant, report block.
@@ -40,6 +42,7 @@ pub enum StepKind {
     Discover,
     Measure,
     Structure,
+    Sensitivity,
     Resample,
 }
 
@@ -52,6 +55,7 @@ impl StepKind {
             StepKind::Discover => "discover",
             StepKind::Measure => "measure",
             StepKind::Structure => "structure",
+            StepKind::Sensitivity => "sensitivity",
             StepKind::Resample => "resample",
         }
     }
@@ -91,6 +95,7 @@ pub enum Artifact {
     Measure(Box<MeasureOutput>),
     Structure(Box<StructureOutput>),
     Resample(Box<ResampleOutput>),
+    Sensitivity(Box<SensitivityOutput>),
 }
 
 impl Artifact {
@@ -103,6 +108,7 @@ impl Artifact {
             Artifact::Measure(a) => serde_json::to_vec(a).unwrap_or_default(),
             Artifact::Structure(a) => serde_json::to_vec(a).unwrap_or_default(),
             Artifact::Resample(a) => serde_json::to_vec(a).unwrap_or_default(),
+            Artifact::Sensitivity(a) => serde_json::to_vec(a).unwrap_or_default(),
         }
     }
 
@@ -116,6 +122,7 @@ impl Artifact {
             StepKind::Measure => serde_json::from_slice(bytes).ok().map(|a| Artifact::Measure(Box::new(a))),
             StepKind::Structure => serde_json::from_slice(bytes).ok().map(|a| Artifact::Structure(Box::new(a))),
             StepKind::Resample => serde_json::from_slice(bytes).ok().map(|a| Artifact::Resample(Box::new(a))),
+            StepKind::Sensitivity => serde_json::from_slice(bytes).ok().map(|a| Artifact::Sensitivity(Box::new(a))),
         }
     }
 
@@ -129,6 +136,7 @@ impl Artifact {
             Artifact::Measure(a) => serde_json::to_value(a.as_ref()).unwrap_or(Value::Null),
             Artifact::Structure(a) => serde_json::to_value(a.as_ref()).unwrap_or(Value::Null),
             Artifact::Resample(a) => serde_json::to_value(a.as_ref()).unwrap_or(Value::Null),
+            Artifact::Sensitivity(a) => serde_json::to_value(a.as_ref()).unwrap_or(Value::Null),
         }
     }
 }
@@ -190,6 +198,16 @@ pub trait Step: Send + Sync {
 pub fn build_steps(spec: &SpecFile) -> Vec<Box<dyn Step>> {
     let mut steps: Vec<Box<dyn Step>> = vec![Box::new(LoadStep::from_spec(spec))];
     steps.extend(analysis_steps(spec));
+    let a = &spec.spec.analyses;
+    if let (Some(sens), Some(st)) = (&a.sensitivity, &a.structure) {
+        let measure = MeasureStep::from_spec(spec, &a.measure.clone().unwrap_or_default());
+        steps.push(Box::new(SensitivityStep::new(
+            sens,
+            measure,
+            StructureStep::from_spec(spec, st),
+            a.purify.is_some(),
+        )));
+    }
     if let Some(r) = &spec.spec.analyses.resample {
         steps.push(Box::new(ResampleStep::new(r, analysis_steps(spec))));
     }
@@ -221,13 +239,4 @@ pub fn analysis_steps(spec: &SpecFile) -> Vec<Box<dyn Step>> {
         steps.push(Box::new(StructureStep::from_spec(spec, st)));
     }
     steps
-}
-
-/// Analyses the spec names that this build cannot run yet (warned about, then skipped).
-pub fn unavailable_analyses(spec: &crate::spec::Spec) -> Vec<&'static str> {
-    let a = &spec.analyses;
-    [("sensitivity", a.sensitivity.is_some())]
-        .into_iter()
-        .filter_map(|(name, present)| present.then_some(name))
-        .collect()
 }

@@ -78,6 +78,7 @@ pub struct StructureOutput {
     pub class_complete: bool,
 }
 
+#[derive(Clone)]
 pub struct StructureStep {
     params: StructureSpec,
     knowledge: KnowledgeSpec,
@@ -88,6 +89,24 @@ impl StructureStep {
     pub fn from_spec(file: &SpecFile, params: &StructureSpec) -> StructureStep {
         let reliabilities = file.spec.constructs.iter().map(|(n, c)| (n.clone(), c.reliability)).collect();
         StructureStep { params: params.clone(), knowledge: file.spec.knowledge.clone(), reliabilities }
+    }
+
+    /// The same step with `construct`'s reliability replaced (sensitivity).
+    pub fn with_reliability(&self, construct: &str, reliability: f64) -> StructureStep {
+        let mut step = self.clone();
+        for (c, r) in step.reliabilities.iter_mut() {
+            if c == construct {
+                *r = Some(reliability);
+            }
+        }
+        step
+    }
+
+    /// The same step with another significance level (sensitivity to alpha).
+    pub fn with_alpha(&self, alpha: f64) -> StructureStep {
+        let mut step = self.clone();
+        step.params.alpha = alpha;
+        step
     }
 
     fn knowledge(&self, names: &[String]) -> Result<Knowledge, StatsError> {

@@ -1,0 +1,337 @@
+//! `sensitivity`: how each structural conclusion depends on assumed measurement error. For each
+//! single-indicator construct under `reliability`, the measurement and structural models are
+//! refitted with its error variance fixed at (1 - r) x variance for every grid value r; with a
+//! `prior`, reliabilities are drawn from independent beta distributions (seeded) and each
+//! conclusion gets its probability under the prior; an `alpha` list sweeps the search level.
+//! Central type: `SensitivityOutput`.
+
+use std::collections::BTreeMap;
+
+use indexmap::IndexMap;
+use rand::SeedableRng;
+use rand_chacha::ChaCha8Rng;
+use rand_distr::{Beta, Distribution};
+use rayon::prelude::*;
+use serde::{Deserialize, Serialize};
+use serde_json::{Value, json};
+
+use super::measure::MeasureStep;
+use super::structure::{StructureOutput, StructureStep};
+use super::{Artifact, Inputs, Step, StepError, StepKind};
+use crate::spec::types::SensitivitySpec;
+
+/// Bump when sensitivity results change for the same inputs and parameters.
+pub const VERSION: u32 = 1;
+
+/// A statement about the structure that a refit either repeats or contradicts.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Conclusion {
+    pub what: String,
+    /// Construct -> grid values at which the conclusion holds.
+    pub holds_for: IndexMap<String, Vec<f64>>,
+    /// Construct -> the largest grid value at which the conclusion's verdict differs from its
+    /// verdict at the largest grid value (`null`: the same verdict everywhere on the grid).
+    pub tipping: IndexMap<String, Option<f64>>,
+    pub prior_probability: Option<f64>,
+    /// Alpha values (from `sensitivity.alpha`) at which it holds.
+    pub holds_for_alpha: Vec<f64>,
+}
+
+/// One effect's estimate along one construct's reliability grid, for the plot.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct EffectCurve {
+    pub construct: String,
+    pub from: String,
+    pub to: String,
+    pub reliability: Vec<f64>,
+    /// `None` where the refit has no such path (the edge vanished or turned).
+    pub est: Vec<Option<f64>>,
+    pub lo: Vec<Option<f64>>,
+    pub hi: Vec<Option<f64>>,
+    pub tipping: Option<f64>,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct SensitivityOutput {
+    pub conclusions: Vec<Conclusion>,
+    pub curves: Vec<EffectCurve>,
+    pub draws: usize,
+    pub seed: u64,
+    /// Refits that failed (counted, never dropped silently), and the first few reasons.
+    pub failed: usize,
+    pub failures: Vec<String>,
+}
+
+pub struct SensitivityStep {
+    params: SensitivitySpec,
+    measure: MeasureStep,
+    structure: StructureStep,
+    purified: bool,
+}
+
+impl SensitivityStep {
+    pub fn new(
+        params: &SensitivitySpec,
+        measure: MeasureStep,
+        structure: StructureStep,
+        purified: bool,
+    ) -> SensitivityStep {
+        SensitivityStep { params: params.clone(), measure, structure, purified }
+    }
+
+    /// Refits measure and structure with the given reliabilities (and alpha).
+    fn refit(
+        &self,
+        inputs: &Inputs<'_>,
+        reliabilities: &[(String, f64)],
+        alpha: Option<f64>,
+    ) -> Result<StructureOutput, StepError> {
+        let mut measure = self.measure.clone();
+        let mut structure = self.structure.clone();
+        for (c, r) in reliabilities {
+            measure = measure.with_reliability(c, *r);
+            structure = structure.with_reliability(c, *r);
+        }
+        if let Some(a) = alpha {
+            structure = structure.with_alpha(a);
+        }
+        let mut artifacts = BTreeMap::new();
+        for kind in [StepKind::Load, StepKind::Covariance, StepKind::Purify] {
+            if let Some(a) = inputs.artifacts.get(&kind) {
+                artifacts.insert(kind, a.clone());
+            }
+        }
+        let m = measure.run(&Inputs { step: StepKind::Measure, artifacts: &artifacts })?;
+        artifacts.insert(StepKind::Measure, m);
+        match structure.run(&Inputs { step: StepKind::Structure, artifacts: &artifacts })? {
+            Artifact::Structure(s) => Ok(*s),
+            _ => Err(StepError::MissingInput { step: StepKind::Sensitivity, needs: StepKind::Structure }),
+        }
+    }
+}
+
+/// The verdicts a structure gives on each conclusion of the baseline, in baseline order.
+struct Verdicts;
+
+impl Verdicts {
+    /// Statements read off the baseline: each edge as found, each absent pair, and each
+    /// effect's sign and significance (95% interval excluding zero).
+    fn statements(base: &StructureOutput) -> Vec<String> {
+        let mut out: Vec<String> = base
+            .edges
+            .iter()
+            .map(|e| {
+                if e.kind == "directed" {
+                    format!("edge `{}` → `{}`", e.from, e.to)
+                } else {
+                    format!("edge `{}` — `{}`", e.from, e.to)
+                }
+            })
+            .collect();
+        out.extend(base.removed.iter().map(|r| format!("no edge between `{}` and `{}`", r.a, r.b)));
+        out.extend(
+            base.effects.iter().map(|f| format!("effect `{}` → `{}` is {}", f.from, f.to, effect_verdict(f.est, f.ci))),
+        );
+        out
+    }
+
+    fn of(s: &StructureOutput) -> Vec<String> {
+        Self::statements(s)
+    }
+}
+
+fn effect_verdict(est: f64, ci: [Option<f64>; 2]) -> &'static str {
+    let significant = matches!(ci, [Some(lo), Some(hi)] if lo > 0.0 || hi < 0.0);
+    match (significant, est > 0.0) {
+        (true, true) => "positive and significant",
+        (true, false) => "negative and significant",
+        (false, _) => "not significant",
+    }
+}
+
+/// Whether `what` (a baseline statement) holds in `refit`.
+fn holds(what: &str, refit: &[String]) -> bool {
+    refit.iter().any(|s| s == what)
+}
+
+impl Step for SensitivityStep {
+    fn kind(&self) -> StepKind {
+        StepKind::Sensitivity
+    }
+
+    fn version(&self) -> u32 {
+        VERSION
+    }
+
+    fn params(&self) -> Value {
+        json!({
+            "sensitivity": self.params,
+            "measure": self.measure.params(),
+            "structure": self.structure.params(),
+        })
+    }
+
+    fn inputs(&self) -> Vec<StepKind> {
+        let mut v = vec![StepKind::Covariance];
+        if self.purified {
+            v.push(StepKind::Purify);
+        }
+        v.extend([StepKind::Measure, StepKind::Structure]);
+        v
+    }
+
+    fn run(&self, inputs: &Inputs<'_>) -> Result<Artifact, StepError> {
+        let base = match inputs.artifacts.get(&StepKind::Structure) {
+            Some(Artifact::Structure(s)) => s.as_ref().clone(),
+            _ => return Err(StepError::MissingInput { step: StepKind::Sensitivity, needs: StepKind::Structure }),
+        };
+        let statements = Verdicts::statements(&base);
+        let mut failed = 0;
+        let failures = std::sync::Mutex::new(Vec::<String>::new());
+        let note = |label: String, r: Result<StructureOutput, StepError>| -> Option<StructureOutput> {
+            r.map_err(|e| {
+                if let Ok(mut f) = failures.lock()
+                    && f.len() < 5
+                {
+                    f.push(format!("{label}: {e}"));
+                }
+            })
+            .ok()
+        };
+        let mut conclusions: Vec<Conclusion> = statements
+            .iter()
+            .map(|w| Conclusion {
+                what: w.clone(),
+                holds_for: IndexMap::new(),
+                tipping: IndexMap::new(),
+                prior_probability: None,
+                holds_for_alpha: Vec::new(),
+            })
+            .collect();
+        let mut curves = Vec::new();
+        for (construct, grid) in &self.params.reliability {
+            let mut grid = grid.clone();
+            grid.sort_by(f64::total_cmp);
+            grid.dedup();
+            let fits: Vec<Option<StructureOutput>> = grid
+                .par_iter()
+                .map(|&r| note(format!("{construct} = {r}"), self.refit(inputs, &[(construct.clone(), r)], None)))
+                .collect();
+            failed += fits.iter().filter(|f| f.is_none()).count();
+            let verdicts: Vec<Option<Vec<String>>> = fits.iter().map(|f| f.as_ref().map(Verdicts::of)).collect();
+            for c in conclusions.iter_mut() {
+                let status: Vec<Option<bool>> =
+                    verdicts.iter().map(|v| v.as_ref().map(|v| holds(&c.what, v))).collect();
+                c.holds_for.insert(
+                    construct.clone(),
+                    grid.iter().zip(&status).filter(|(_, s)| **s == Some(true)).map(|(r, _)| *r).collect(),
+                );
+                c.tipping.insert(construct.clone(), tipping(&grid, &status));
+            }
+            for f in &base.effects {
+                let point = |fit: &Option<StructureOutput>| {
+                    fit.as_ref().and_then(|s| s.effects.iter().find(|e| e.from == f.from && e.to == f.to).cloned())
+                };
+                let pts: Vec<_> = fits.iter().map(point).collect();
+                let what = format!("effect `{}` → `{}` is {}", f.from, f.to, effect_verdict(f.est, f.ci));
+                let tip = conclusions
+                    .iter()
+                    .find(|c| c.what == what)
+                    .and_then(|c| c.tipping.get(construct).copied().flatten());
+                curves.push(EffectCurve {
+                    construct: construct.clone(),
+                    from: f.from.clone(),
+                    to: f.to.clone(),
+                    reliability: grid.clone(),
+                    est: pts.iter().map(|p| p.as_ref().map(|e| e.est)).collect(),
+                    lo: pts.iter().map(|p| p.as_ref().and_then(|e| e.ci[0])).collect(),
+                    hi: pts.iter().map(|p| p.as_ref().and_then(|e| e.ci[1])).collect(),
+                    tipping: tip,
+                });
+            }
+        }
+        if !self.params.alpha.is_empty() {
+            let fits: Vec<Option<Vec<String>>> = self
+                .params
+                .alpha
+                .par_iter()
+                .map(|&a| note(format!("alpha = {a}"), self.refit(inputs, &[], Some(a))).map(|s| Verdicts::of(&s)))
+                .collect();
+            failed += fits.iter().filter(|f| f.is_none()).count();
+            for c in conclusions.iter_mut() {
+                c.holds_for_alpha = self
+                    .params
+                    .alpha
+                    .iter()
+                    .zip(&fits)
+                    .filter(|(_, v)| v.as_ref().is_some_and(|v| holds(&c.what, v)))
+                    .map(|(a, _)| *a)
+                    .collect();
+            }
+        }
+        if !self.params.prior.is_empty() {
+            let priors: Vec<(String, Beta<f64>)> = self
+                .params
+                .prior
+                .iter()
+                .filter_map(|(c, p)| Beta::new(p.beta[0], p.beta[1]).ok().map(|b| (c.clone(), b)))
+                .collect();
+            let draws: Vec<Option<Vec<String>>> = (0..self.params.draws)
+                .into_par_iter()
+                .map(|d| {
+                    let mut rng = ChaCha8Rng::seed_from_u64(self.params.seed);
+                    rng.set_stream(d as u64 + 1);
+                    // A reliability of exactly 0 would leave the single indicator pure error.
+                    let rs: Vec<(String, f64)> =
+                        priors.iter().map(|(c, b)| (c.clone(), b.sample(&mut rng).clamp(1e-3, 1.0))).collect();
+                    note(format!("prior draw {}", d + 1), self.refit(inputs, &rs, None)).map(|s| Verdicts::of(&s))
+                })
+                .collect();
+            let ok: Vec<&Vec<String>> = draws.iter().flatten().collect();
+            failed += draws.len() - ok.len();
+            for c in conclusions.iter_mut() {
+                c.prior_probability =
+                    (!ok.is_empty()).then(|| ok.iter().filter(|v| holds(&c.what, v)).count() as f64 / ok.len() as f64);
+            }
+        }
+        let mut failures = failures.into_inner().unwrap_or_default();
+        failures.sort();
+        Ok(Artifact::Sensitivity(Box::new(SensitivityOutput {
+            conclusions,
+            curves,
+            draws: self.params.draws,
+            seed: self.params.seed,
+            failed,
+            failures,
+        })))
+    }
+
+    fn describe(&self, artifact: &Artifact) -> String {
+        let Artifact::Sensitivity(s) = artifact else { return String::new() };
+        let fragile = s.conclusions.iter().filter(|c| c.tipping.values().any(Option::is_some)).count();
+        format!(
+            "{} tracked, {fragile} change within the grid, {} failed refits",
+            crate::spec::diagnostic::plural(s.conclusions.len(), "conclusion"),
+            s.failed
+        )
+    }
+}
+
+/// The largest grid value whose verdict differs from the verdict at the largest grid value.
+fn tipping(grid: &[f64], status: &[Option<bool>]) -> Option<f64> {
+    let top = (*status.last()?)?;
+    grid.iter().zip(status).rev().find(|(_, s)| s.is_some_and(|s| s != top)).map(|(r, _)| *r)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::tipping;
+
+    #[test]
+    fn tipping_is_the_largest_value_with_the_other_verdict() {
+        let grid = [0.5, 0.6, 0.7, 0.8, 0.9, 1.0];
+        let status = [Some(false), Some(false), Some(false), Some(true), Some(true), Some(true)];
+        assert_eq!(tipping(&grid, &status), Some(0.7));
+        assert_eq!(tipping(&grid, &[Some(true); 6]), None);
+    }
+}
