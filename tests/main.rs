@@ -8,5 +8,6 @@ mod check;
 mod demo;
 mod reference;
 mod report;
+mod sensitivity;
 mod simulate;
 mod verify;
