@@ -71,7 +71,7 @@ fn spurious_effect_vanishes_at_the_true_reliability() {
         .as_array()
         .unwrap()
         .iter()
-        .find(|c| c["what"] == "effect `x` → `y` is positive and significant")
+        .find(|c| c["what"] == "effect x → y is positive and significant")
         .unwrap()
         .clone();
     let tipping = conclusion["tipping"]["z"].as_f64().unwrap();

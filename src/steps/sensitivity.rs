@@ -21,7 +21,7 @@ use super::{Artifact, Inputs, Step, StepError, StepKind};
 use crate::spec::types::SensitivitySpec;
 
 /// Bump when sensitivity results change for the same inputs and parameters.
-pub const VERSION: u32 = 1;
+pub const VERSION: u32 = 2;
 
 /// A statement about the structure that a refit either repeats or contradicts.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -122,15 +122,15 @@ impl Verdicts {
             .iter()
             .map(|e| {
                 if e.kind == "directed" {
-                    format!("edge `{}` → `{}`", e.from, e.to)
+                    format!("edge {} → {}", e.from, e.to)
                 } else {
-                    format!("edge `{}` — `{}`", e.from, e.to)
+                    format!("edge {} — {}", e.from, e.to)
                 }
             })
             .collect();
-        out.extend(base.removed.iter().map(|r| format!("no edge between `{}` and `{}`", r.a, r.b)));
+        out.extend(base.removed.iter().map(|r| format!("no edge between {} and {}", r.a, r.b)));
         out.extend(
-            base.effects.iter().map(|f| format!("effect `{}` → `{}` is {}", f.from, f.to, effect_verdict(f.est, f.ci))),
+            base.effects.iter().map(|f| format!("effect {} → {} is {}", f.from, f.to, effect_verdict(f.est, f.ci))),
         );
         out
     }
@@ -233,7 +233,7 @@ impl Step for SensitivityStep {
                     fit.as_ref().and_then(|s| s.effects.iter().find(|e| e.from == f.from && e.to == f.to).cloned())
                 };
                 let pts: Vec<_> = fits.iter().map(point).collect();
-                let what = format!("effect `{}` → `{}` is {}", f.from, f.to, effect_verdict(f.est, f.ci));
+                let what = format!("effect {} → {} is {}", f.from, f.to, effect_verdict(f.est, f.ci));
                 let tip = conclusions
                     .iter()
                     .find(|c| c.what == what)
