@@ -5,6 +5,7 @@ mod harness;
 
 mod caching;
 mod check;
+mod coverage;
 mod demo;
 mod reference;
 mod report;
