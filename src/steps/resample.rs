@@ -146,6 +146,22 @@ impl ResampleStep {
     }
 }
 
+/// A progress bar on stderr when it is a terminal (hidden otherwise, so logs and tests stay
+/// clean). Drawing never affects results: replicates are still gathered in order.
+fn progress_bar(replicates: usize) -> indicatif::ProgressBar {
+    use std::io::IsTerminal;
+    if !std::io::stderr().is_terminal() {
+        return indicatif::ProgressBar::hidden();
+    }
+    let bar = indicatif::ProgressBar::new(replicates as u64);
+    if let Ok(style) =
+        indicatif::ProgressStyle::with_template("resample     {bar:30} {pos}/{len} replicates, {eta} left")
+    {
+        bar.set_style(style);
+    }
+    bar
+}
+
 /// The percentile interval [2.5%, 97.5%] of `values` (linear interpolation between order
 /// statistics, R's type 7; common practice).
 pub fn percentile_interval(values: &mut [f64]) -> [f64; 2] {
@@ -185,8 +201,16 @@ impl Step for ResampleStep {
 
     fn run(&self, inputs: &Inputs<'_>) -> Result<Artifact, StepError> {
         let load = inputs.load()?;
-        let results: Vec<Result<Replicate, String>> =
-            (0..self.params.replicates).into_par_iter().map(|r| self.replicate(load, r)).collect();
+        let progress = progress_bar(self.params.replicates);
+        let results: Vec<Result<Replicate, String>> = (0..self.params.replicates)
+            .into_par_iter()
+            .map(|r| {
+                let out = self.replicate(load, r);
+                progress.inc(1);
+                out
+            })
+            .collect();
+        progress.finish_and_clear();
         let ok: Vec<&Replicate> = results.iter().filter_map(|r| r.as_ref().ok()).collect();
         let failures: Vec<String> = results
             .iter()
