@@ -58,6 +58,13 @@ pub enum Command {
         #[command(flatten)]
         cache: CacheArgs,
     },
+    /// What changed between two report versions (Markdown, fit for a review comment)
+    Diff {
+        /// The older version folder
+        from: PathBuf,
+        /// The newer version folder
+        to: PathBuf,
+    },
     /// Draw survey data from a declared latent model (see docs/simulate.md)
     Simulate {
         /// The model file (YAML)
@@ -100,6 +107,10 @@ pub fn dispatch(cli: Cli) -> Exit {
         Command::Check { spec } => check_command(&spec),
         Command::Plan { spec, cache } => plan_command(&spec, &cache.resolve()),
         Command::Verify { report_dir } => verify_command(&report_dir),
+        Command::Diff { from, to } => crate::app::diff::diff_dirs(&from, &to).map(|c| {
+            print!("{}", c.markdown(&from.display().to_string(), &to.display().to_string()));
+            Exit::Ok
+        }),
         Command::Simulate { model, out, n, seed, set } => {
             let req = crate::app::simulate::SimulateRequest { model: &model, out: &out, n, seed, set: &set };
             crate::app::simulate::simulate(&req).map_err(AppError::from).map(|rows| {

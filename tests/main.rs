@@ -7,6 +7,7 @@ mod caching;
 mod check;
 mod coverage;
 mod demo;
+mod diff;
 mod reference;
 mod report;
 mod sensitivity;

@@ -4,6 +4,7 @@
 
 pub mod check;
 pub mod context;
+pub mod diff;
 pub mod plan;
 pub mod run;
 pub mod simulate;

@@ -4,13 +4,14 @@
 //! rerun (same manifest fingerprint as the latest version) writes nothing.
 
 pub mod diagram;
+pub mod diff;
 pub mod svg;
 pub mod versions;
 
 use std::path::{Path, PathBuf};
 
 use minijinja::{Environment, Value as TemplateValue};
-use serde_json::Value;
+use serde_json::{Value, json};
 use thiserror::Error;
 
 use crate::pipeline::manifest::Manifest;
@@ -103,6 +104,7 @@ pub fn write_version(
     {
         return Ok(WriteOutcome::Unchanged { version: *n, dir: root.join(format!("v{n}")) });
     }
+    let previous = existing.as_ref().map(|(n, m)| (*n, m.clone()));
     let version = existing.map_or(1, |(n, _)| n + 1);
     manifest.report_version = version;
     let final_dir = root.join(format!("v{version}"));
@@ -110,6 +112,19 @@ pub fn write_version(
         map.insert("version".into(), Value::from(version));
         map.insert("report_dir".into(), Value::String(final_dir.display().to_string()));
         map.insert("manifest".into(), serde_json::to_value(&*manifest).unwrap_or(Value::Null));
+        if let Some((n, old_manifest)) = &previous {
+            let old_results = std::fs::read_to_string(root.join(format!("v{n}")).join("results.json"))
+                .ok()
+                .and_then(|t| serde_json::from_str::<Value>(&t).ok())
+                .unwrap_or(Value::Null);
+            let old = serde_json::to_value(old_manifest).unwrap_or(Value::Null);
+            let new = serde_json::to_value(&*manifest).unwrap_or(Value::Null);
+            let changes = diff::diff(&old_results, &old, results, &new);
+            map.insert(
+                "changes".into(),
+                json!({"from": format!("v{n}"), "sections": changes.sections, "empty": changes.is_empty()}),
+            );
+        }
     }
     let staging =
         tempfile::Builder::new().prefix(".partial-v").tempdir_in(root).map_err(io("create staging folder in", root))?;

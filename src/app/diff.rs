@@ -1,0 +1,29 @@
+//! `construe diff A B`: reads two version folders and prints their differences as Markdown.
+
+use std::path::Path;
+
+use serde_json::Value;
+
+use super::AppError;
+use crate::pipeline::PipelineError;
+use crate::report::diff::{Changes, diff};
+
+fn read_json(path: &Path) -> Result<Value, AppError> {
+    let text = std::fs::read_to_string(path).map_err(|source| PipelineError::Io {
+        action: "read",
+        path: path.to_path_buf(),
+        source,
+    })?;
+    serde_json::from_str(&text).map_err(|e| {
+        let mut r = crate::spec::Report::default();
+        r.push(crate::spec::Diagnostic::error(format!("`{}` is not valid JSON: {e}", path.display())));
+        AppError::Invalid(r)
+    })
+}
+
+/// Compares two version folders.
+pub fn diff_dirs(a: &Path, b: &Path) -> Result<Changes, AppError> {
+    let (ra, ma) = (read_json(&a.join("results.json"))?, read_json(&a.join("manifest.json"))?);
+    let (rb, mb) = (read_json(&b.join("results.json"))?, read_json(&b.join("manifest.json"))?);
+    Ok(diff(&ra, &ma, &rb, &mb))
+}

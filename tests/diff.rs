@@ -1,0 +1,34 @@
+//! Wave-to-wave comparison: the demo on its first wave alone, then on both waves. The second
+//! version's report and `construe diff` list the added wave and the new row count.
+
+use crate::harness::demo_case;
+
+#[test]
+fn adding_a_wave_is_reported_as_a_change() {
+    let case = demo_case(None);
+    let both = case.read("pipelines/transit/spec.yaml");
+    let autumn = "    - {id: autumn, file: data/riders-autumn.parquet}\n";
+    assert!(both.contains(autumn));
+    let case = case.file("pipelines/transit/spec.yaml", both.replace(autumn, ""));
+    case.run(["run", "pipelines/transit/spec.yaml"]).success().stderr_contains("wrote report v1");
+    let case = case.file("pipelines/transit/spec.yaml", both);
+    let second = case.run(["run", "pipelines/transit/spec.yaml"]);
+    second.success().stderr_contains("wrote report v2");
+    // Only `load` and what follows recompute; nothing is cached from v1 because every step
+    // depends on the data.
+    assert!(second.stderr.contains("load         computed"));
+    let md = case.read("reports/transit-rider-panel/v2/report.md");
+    assert!(md.contains("## Changes since the previous version (v1)"), "{md}");
+    assert!(md.contains("- added input data/riders-autumn.parquet (autumn)"), "{md}");
+    assert!(md.contains("- rows: 600 → 1100"), "{md}");
+    assert!(md.contains("- the spec's content changed"));
+    let html = case.read("reports/transit-rider-panel/v2/report.html");
+    assert!(html.contains("Changes since the previous version (v1)"));
+    let v1 = case.read("reports/transit-rider-panel/v1/report.md");
+    assert!(!v1.contains("Changes since the previous version"));
+    let out = case.run(["diff", "reports/transit-rider-panel/v1", "reports/transit-rider-panel/v2"]);
+    out.success()
+        .stdout_contains("## Changes from reports/transit-rider-panel/v1 to reports/transit-rider-panel/v2")
+        .stdout_contains("- added input data/riders-autumn.parquet (autumn)")
+        .stdout_contains("- rows: 600 → 1100");
+}
