@@ -193,10 +193,10 @@ fn estimates(ra: &Value, rb: &Value) -> Vec<String> {
         if beyond {
             out.push(format!("measurement RMSEA: {old:.3} → {new:.3}, beyond its 90% interval"));
         }
-        if let (Some(ca), Some(cb)) = (f(&fa["cfi"]), f(&fb["cfi"])) {
-            if (ca - cb).abs() >= 0.01 {
-                out.push(format!("measurement CFI: {ca:.3} → {cb:.3}"));
-            }
+        if let (Some(ca), Some(cb)) = (f(&fa["cfi"]), f(&fb["cfi"]))
+            && (ca - cb).abs() >= 0.01
+        {
+            out.push(format!("measurement CFI: {ca:.3} → {cb:.3}"));
         }
     }
     out
