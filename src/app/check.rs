@@ -20,7 +20,8 @@ pub fn check(path: &Path) -> Checked {
     };
     let sources = source_columns(&spec);
     let spec_dir = spec.resolve(std::path::Path::new(""));
-    let findings = validate(&spec.spec, &spec_dir, &sources);
+    let mut findings = spec.early.clone();
+    findings.extend(validate(&spec.spec, &spec_dir, &sources));
     let report = spec.diagnose(findings);
     Checked { spec: Some(spec), report }
 }

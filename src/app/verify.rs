@@ -56,6 +56,9 @@ pub fn verify(report_dir: &Path) -> Result<Verification, AppError> {
     let spec_path = locate_spec(report_dir, &manifest)
         .ok_or_else(|| invalid(format!("cannot find the spec `{}` recorded in the manifest", manifest.spec.path)))?;
     let spec = SpecFile::read(&spec_path).map_err(AppError::Invalid)?;
+    if !spec.early.is_empty() {
+        return Err(AppError::Invalid(spec.diagnose(spec.early.clone())));
+    }
     let mut checks = Vec::new();
     let content = Key::of_json(&serde_json::to_value(&spec.spec).unwrap_or_default());
     checks.push(Check {

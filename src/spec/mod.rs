@@ -24,6 +24,9 @@ pub struct SpecFile {
     pub source: String,
     pub positions: Positions,
     pub spec: Spec,
+    /// Problems found while parsing that did not stop it (unknown keys, which are removed
+    /// before type checking so that the semantic checks can still report everything else).
+    pub early: Vec<Finding>,
 }
 
 impl SpecFile {
@@ -55,10 +58,21 @@ impl SpecFile {
         };
         let unknown = schema::unknown_keys(&positions);
         if !unknown.is_empty() {
-            return Err(diagnose(path, &source, &positions, unknown));
+            // Type-check what remains without the unknown keys; if that fails too, the unknown
+            // keys are the report (their removal may be what broke the rest).
+            let stripped = serde_yaml::from_str::<serde_yaml::Value>(&source).ok().and_then(|mut v| {
+                for f in &unknown {
+                    remove_path(&mut v, &f.path);
+                }
+                serde_yaml::from_value::<Spec>(v).ok()
+            });
+            return match stripped {
+                Some(spec) => Ok(SpecFile { path: path.to_path_buf(), source, positions, spec, early: unknown }),
+                None => Err(diagnose(path, &source, &positions, unknown)),
+            };
         }
         match serde_yaml::from_str::<Spec>(&source) {
-            Ok(spec) => Ok(SpecFile { path: path.to_path_buf(), source, positions, spec }),
+            Ok(spec) => Ok(SpecFile { path: path.to_path_buf(), source, positions, spec, early: Vec::new() }),
             Err(e) => {
                 let position = e.location().map(|l| Position { line: l.line(), column: l.column() });
                 let message = strip_location(&e.to_string());
@@ -101,6 +115,30 @@ fn diagnose(path: &Path, source: &str, positions: &Positions, findings: Vec<Find
     }
     report.sort();
     report
+}
+
+/// Removes the mapping entry at a `positions` path such as `data.waves[0].idd`.
+fn remove_path(value: &mut serde_yaml::Value, path: &str) {
+    let mut segments: Vec<&str> = path.split('.').collect();
+    let Some(last) = segments.pop() else { return };
+    let mut node = value;
+    for seg in segments {
+        let (key, index) = match seg.find('[') {
+            Some(i) => (&seg[..i], seg[i + 1..seg.len() - 1].parse::<usize>().ok()),
+            None => (seg, None),
+        };
+        let Some(next) = node.get_mut(key) else { return };
+        node = match index {
+            Some(k) => match next.get_mut(k) {
+                Some(n) => n,
+                None => return,
+            },
+            None => next,
+        };
+    }
+    if let Some(map) = node.as_mapping_mut() {
+        map.remove(last);
+    }
 }
 
 /// Removes `.` and folds `name/..` without touching the file system, so messages show
