@@ -190,3 +190,15 @@ fn sensitivity_needs_structure_and_a_single_indicator() {
         .stderr_contains("error: analysis `sensitivity` needs `structure` in the spec")
         .stderr_contains("sensitivity to the reliability of `beta` needs a single-indicator construct; it has 4 items");
 }
+
+#[test]
+fn unknown_keys_do_not_hide_other_problems() {
+    let spec = SMALL_SPEC.replace("covariance: {missing", "covarience: {missing").replace("[a1, a2, a3]", "[a1, a2, a33]");
+    with_spec(&spec)
+        .run(["check", "spec.yaml"])
+        .failure(1)
+        .stderr_contains("unknown key `covarience` in `analyses`")
+        .stderr_contains("did you mean `covariance`?")
+        .stderr_contains("item `a33` of construct `alpha` is not a column of any data file")
+        .stderr_contains("2 errors and 0 warnings");
+}
