@@ -193,7 +193,8 @@ fn sensitivity_needs_structure_and_a_single_indicator() {
 
 #[test]
 fn unknown_keys_do_not_hide_other_problems() {
-    let spec = SMALL_SPEC.replace("covariance: {missing", "covarience: {missing").replace("[a1, a2, a3]", "[a1, a2, a33]");
+    let spec =
+        SMALL_SPEC.replace("covariance: {missing", "covarience: {missing").replace("[a1, a2, a3]", "[a1, a2, a33]");
     with_spec(&spec)
         .run(["check", "spec.yaml"])
         .failure(1)
@@ -201,4 +202,15 @@ fn unknown_keys_do_not_hide_other_problems() {
         .stderr_contains("did you mean `covariance`?")
         .stderr_contains("item `a33` of construct `alpha` is not a column of any data file")
         .stderr_contains("2 errors and 0 warnings");
+}
+
+#[test]
+fn unusual_alpha_is_a_warning() {
+    let spec = format!("{SMALL_SPEC}  structure: {{alpha: 0.5}}\n");
+    with_spec(&spec)
+        .run(["check", "spec.yaml"])
+        .success()
+        .stderr_contains("warning: `structure.alpha` = 0.5 is unusual for a significance level")
+        .stderr_contains("at spec.yaml:12:")
+        .stderr_contains("ok (1 warning)");
 }

@@ -68,6 +68,8 @@ pub enum SpecProblem {
         "sensitivity to the reliability of `{construct}` needs a single-indicator construct; it has {count} items, whose measurement error the model estimates"
     )]
     NotSingleIndicator { construct: String, count: usize },
+    #[error("{what} = {value} is unusual for a significance level")]
+    UnusualAlpha { what: String, value: f64 },
     #[error("construct `{construct}` has {} and no `reliability`, so it is not identified as a latent variable", crate::spec::diagnostic::plural(*count, "item"))]
     TooFewItems { construct: String, count: usize },
 }
@@ -88,6 +90,7 @@ impl SpecProblem {
             NoData => Some("list survey files under `data.waves`, or a published matrix under `data.matrix`".into()),
             NeedsRows { .. } => Some("remove the analysis, or supply the respondent-level waves".into()),
             MissingPrerequisite { .. } => Some("add the analysis it needs under `analyses`".into()),
+            UnusualAlpha { .. } => Some("levels between 0.001 and 0.2 are usual; a very small one hides real dependence, a large one admits chance findings".into()),
             TooFewItems { .. } => Some("add items (at least 3), or give the single indicator a `reliability`".into()),
             ItemInTwoConstructs { .. } => {
                 Some("an item can indicate only one declared construct; purification looks for cross-loadings".into())
@@ -99,7 +102,7 @@ impl SpecProblem {
 
     /// Problems that do not stop a run.
     pub fn is_warning(&self) -> bool {
-        matches!(self, SpecProblem::TooFewItems { .. })
+        matches!(self, SpecProblem::TooFewItems { .. } | SpecProblem::UnusualAlpha { .. })
     }
 }
 

@@ -298,6 +298,8 @@ fn check_analyses(spec: &Spec, available: Option<&Vec<String>>, out: &mut Vec<Fi
                 SpecProblem::OutOfRange { what: what.into(), range: "(0, 1)".into(), value },
                 path,
             ));
+        } else if !(0.001..=0.2).contains(&value) {
+            out.push(Finding::value(SpecProblem::UnusualAlpha { what: what.into(), value }, path));
         }
     };
     if let Some(p) = &a.purify {
