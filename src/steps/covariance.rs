@@ -191,25 +191,38 @@ impl CovarianceStep {
         };
         let mixed = mixed_correlation(&columns, fit)
             .map_err(|source| StepError::Stats { context: pair_context(items, &source), source })?;
-        let continuous: Vec<Vec<Option<f64>>> = (0..p)
-            .map(|k| table.optional(k))
-            .map(|c| c.into_iter().zip(&complete).map(|(v, &keep)| v.filter(|_| keep)).collect())
-            .collect();
+        // Product moments only where they are used: among continuous items (so their
+        // covariances equal the usual sample covariances), and each item's own variance.
+        let columns_of = |k: usize| -> Vec<Option<f64>> {
+            table.optional(k).into_iter().zip(&complete).map(|(v, &keep)| v.filter(|_| keep)).collect()
+        };
+        let cont: Vec<usize> = (0..p).filter(|&k| kinds[k] == ItemKind::Continuous).collect();
         let deletion = match self.missing {
             Missing::Pairwise => Deletion::Pairwise,
             Missing::Listwise => Deletion::Listwise,
         };
-        let moments = pearson(&continuous, deletion)
-            .map_err(|source| StepError::Stats { context: "product-moment covariances".into(), source })?;
-        let sd: Vec<f64> = (0..p).map(|k| moments.covariance[(k, k)].sqrt()).collect();
+        let moments = if cont.is_empty() {
+            None
+        } else {
+            let cols: Vec<Vec<Option<f64>>> = cont.iter().map(|&k| columns_of(k)).collect();
+            Some(
+                pearson(&cols, deletion)
+                    .map_err(|source| StepError::Stats { context: "product-moment covariances".into(), source })?,
+            )
+        };
+        let variance: Vec<f64> = (0..p)
+            .map(|k| match (cont.iter().position(|&c| c == k), &moments) {
+                (Some(i), Some(m)) => m.covariance[(i, i)],
+                _ => sample_variance(&columns_of(k)),
+            })
+            .collect();
+        let sd: Vec<f64> = variance.iter().map(|v| v.sqrt()).collect();
         let correlation = mixed.matrix.clone();
         let covariance = DMatrix::from_fn(p, p, |a, b| {
-            if kinds[a] == ItemKind::Continuous && kinds[b] == ItemKind::Continuous {
-                moments.covariance[(a, b)]
-            } else if a == b {
-                moments.covariance[(a, a)]
-            } else {
-                correlation[(a, b)] * sd[a] * sd[b]
+            match (cont.iter().position(|&c| c == a), cont.iter().position(|&c| c == b), &moments) {
+                (Some(i), Some(j), Some(m)) => m.covariance[(i, j)],
+                _ if a == b => variance[a],
+                _ => correlation[(a, b)] * sd[a] * sd[b],
             }
         });
         let n = (0..p).map(|r| (0..p).map(|c| mixed.n[(r, c)]).collect()).collect();
@@ -239,6 +252,14 @@ impl CovarianceStep {
         }
         Ok(e)
     }
+}
+
+/// Sample variance (n - 1 divisor) of the present values.
+fn sample_variance(values: &[Option<f64>]) -> f64 {
+    let present: Vec<f64> = values.iter().flatten().copied().collect();
+    let n = present.len() as f64;
+    let mean = present.iter().sum::<f64>() / n;
+    present.iter().map(|v| (v - mean).powi(2)).sum::<f64>() / (n - 1.0).max(1.0)
 }
 
 /// The matrices and per-pair facts before the definiteness check.
