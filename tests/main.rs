@@ -8,6 +8,7 @@ mod check;
 mod coverage;
 mod demo;
 mod diff;
+mod faults;
 mod reference;
 mod report;
 mod sensitivity;
