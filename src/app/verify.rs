@@ -39,8 +39,10 @@ fn invalid(message: String) -> AppError {
 
 /// Where the spec of a manifest is: first relative to the report folder, then as recorded.
 fn locate_spec(report_dir: &Path, manifest: &Manifest) -> Option<PathBuf> {
-    let candidates =
-        [manifest.spec.from_report.as_ref().map(|r| report_dir.join(r)), Some(PathBuf::from(&manifest.spec.path))];
+    let candidates = [
+        manifest.spec.from_report.as_ref().map(|r| crate::spec::lexical_clean(&report_dir.join(r))),
+        Some(PathBuf::from(&manifest.spec.path)),
+    ];
     candidates.into_iter().flatten().find(|p| p.exists())
 }
 
