@@ -214,3 +214,22 @@ fn unusual_alpha_is_a_warning() {
         .stderr_contains("at spec.yaml:12:")
         .stderr_contains("ok (1 warning)");
 }
+
+#[test]
+fn a_scale_score_entered_as_an_item_is_flagged() {
+    // Column `x` replaced by the sum of a1..a3 (a score someone computed beforehand).
+    let csv = synthetic_csv(60, 3, SMALL_COLUMNS);
+    let mut lines = csv.lines();
+    let mut out = format!("{}\n", lines.next().unwrap());
+    for l in lines {
+        let f: Vec<f64> = l.split(',').map(|v| v.parse().unwrap()).collect();
+        let score = f[1] + f[2] + f[3];
+        out.push_str(&format!("{},{},{},{},{},{},{},{score}\n", f[0], f[1], f[2], f[3], f[4], f[5], f[6]));
+    }
+    let case = Case::new().spec(SMALL_SPEC).file("w1.csv", out);
+    case.run(["check", "spec.yaml"])
+        .success()
+        .stderr_contains("warning: item `x` equals the sum of the items of `alpha` in every row: it is a scale score, not an indicator")
+        .stderr_contains("at spec.yaml:9:30")
+        .stderr_contains("does not screen off");
+}

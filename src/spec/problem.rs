@@ -68,6 +68,10 @@ pub enum SpecProblem {
         "sensitivity to the reliability of `{construct}` needs a single-indicator construct; it has {count} items, whose measurement error the model estimates"
     )]
     NotSingleIndicator { construct: String, count: usize },
+    #[error(
+        "item `{item}` equals the {how} of the items of `{construct}` in every row: it is a scale score, not an indicator"
+    )]
+    ScaleScore { item: String, construct: String, how: String },
     #[error("{what} = {value} is unusual for a significance level")]
     UnusualAlpha { what: String, value: f64 },
     #[error("construct `{construct}` has {} and no `reliability`, so it is not identified as a latent variable", crate::spec::diagnostic::plural(*count, "item"))]
@@ -90,6 +94,7 @@ impl SpecProblem {
             NoData => Some("list survey files under `data.waves`, or a published matrix under `data.matrix`".into()),
             NeedsRows { .. } => Some("remove the analysis, or supply the respondent-level waves".into()),
             MissingPrerequisite { .. } => Some("add the analysis it needs under `analyses`".into()),
+            ScaleScore { .. } => Some("conditioning on a sum or mean of noisy items does not screen off what they measure; model the construct from its items instead, and drop the score".into()),
             UnusualAlpha { .. } => Some("levels between 0.001 and 0.2 are usual; a very small one hides real dependence, a large one admits chance findings".into()),
             TooFewItems { .. } => Some("add items (at least 3), or give the single indicator a `reliability`".into()),
             ItemInTwoConstructs { .. } => {
@@ -102,7 +107,10 @@ impl SpecProblem {
 
     /// Problems that do not stop a run.
     pub fn is_warning(&self) -> bool {
-        matches!(self, SpecProblem::TooFewItems { .. } | SpecProblem::UnusualAlpha { .. })
+        matches!(
+            self,
+            SpecProblem::TooFewItems { .. } | SpecProblem::UnusualAlpha { .. } | SpecProblem::ScaleScore { .. }
+        )
     }
 }
 
