@@ -233,3 +233,27 @@ fn a_scale_score_entered_as_an_item_is_flagged() {
         .stderr_contains("at spec.yaml:9:30")
         .stderr_contains("does not screen off");
 }
+
+#[test]
+fn a_coarse_single_indicator_between_constructs_is_flagged() {
+    // `m` is a yes/no item, the only indicator of a construct in the middle tier.
+    let csv = synthetic_csv(80, 3, SMALL_COLUMNS);
+    let mut lines = csv.lines();
+    let mut out = format!("{},m\n", lines.next().unwrap());
+    for (r, l) in lines.enumerate() {
+        out.push_str(&format!("{l},{}\n", r % 2));
+    }
+    let spec = SMALL_SPEC.replace(
+        "  beta: {items: [b1, b2, b3, x]}\n",
+        "  beta: {items: [b1, b2, b3, x]}\n  mid: {items: [m], reliability: 0.8}\n",
+    ) + "knowledge:\n  tiers: [[alpha], [mid], [beta]]\n";
+    Case::new()
+        .spec(&spec)
+        .file("w1.csv", out)
+        .run(["check", "spec.yaml"])
+        .success()
+        .stderr_contains(
+            "warning: construct `mid` sits between other constructs but its single indicator `m` has only 2 categories",
+        )
+        .stderr_contains("at spec.yaml:10:");
+}

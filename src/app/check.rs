@@ -53,7 +53,7 @@ fn scale_score_lints(spec: &SpecFile) -> Vec<crate::spec::Finding> {
         }
     }
     let rows = columns.first().map_or(0, Vec::len);
-    let mut out = Vec::new();
+    let mut out = coarsened_single_indicators(spec, &names, &columns);
     for (x, (item, own, k)) in items.iter().enumerate() {
         for (construct, spec_c) in &spec.spec.constructs {
             let parts: Vec<usize> =
@@ -115,4 +115,42 @@ pub fn source_columns(spec: &SpecFile) -> Vec<SourceColumns> {
             SourceColumns { wave, index, path, columns }
         })
         .collect()
+}
+
+/// Most categories for a single indicator to count as coarsened.
+const COARSE_LEVELS: usize = 3;
+
+/// Single indicators with at most 3 integer categories of constructs that sit between others
+/// (a tier with constructs both before and after it).
+fn coarsened_single_indicators(spec: &SpecFile, names: &[String], columns: &[Vec<f64>]) -> Vec<crate::spec::Finding> {
+    use crate::spec::positions::{child, element};
+    use crate::spec::problem::{Finding, SpecProblem};
+    let tiers = &spec.spec.knowledge.tiers;
+    let mut out = Vec::new();
+    for (construct, c) in &spec.spec.constructs {
+        let [item] = c.items.as_slice() else { continue };
+        let Some(t) = tiers.iter().position(|tier| tier.contains(construct)) else { continue };
+        if t == 0 || t + 1 >= tiers.len() {
+            continue;
+        }
+        let Some(k) = names.iter().position(|n| n == item) else { continue };
+        let mut levels: Vec<f64> = columns[k].iter().copied().filter(|v| !v.is_nan()).collect();
+        if levels.iter().any(|v| v.fract() != 0.0) {
+            continue;
+        }
+        levels.sort_by(f64::total_cmp);
+        levels.dedup();
+        if levels.len() <= COARSE_LEVELS {
+            let path = element(&child(&child("constructs", construct), "items"), 0);
+            out.push(Finding::value(
+                SpecProblem::CoarsenedSingleIndicator {
+                    construct: construct.clone(),
+                    item: item.clone(),
+                    levels: levels.len(),
+                },
+                path,
+            ));
+        }
+    }
+    out
 }

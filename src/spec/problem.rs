@@ -72,6 +72,10 @@ pub enum SpecProblem {
         "item `{item}` equals the {how} of the items of `{construct}` in every row: it is a scale score, not an indicator"
     )]
     ScaleScore { item: String, construct: String, how: String },
+    #[error(
+        "construct `{construct}` sits between other constructs but its single indicator `{item}` has only {levels} categories"
+    )]
+    CoarsenedSingleIndicator { construct: String, item: String, levels: usize },
     #[error("{what} = {value} is unusual for a significance level")]
     UnusualAlpha { what: String, value: f64 },
     #[error("construct `{construct}` has {} and no `reliability`, so it is not identified as a latent variable", crate::spec::diagnostic::plural(*count, "item"))]
@@ -95,6 +99,7 @@ impl SpecProblem {
             NeedsRows { .. } => Some("remove the analysis, or supply the respondent-level waves".into()),
             MissingPrerequisite { .. } => Some("add the analysis it needs under `analyses`".into()),
             ScaleScore { .. } => Some("conditioning on a sum or mean of noisy items does not screen off what they measure; model the construct from its items instead, and drop the score".into()),
+            CoarsenedSingleIndicator { .. } => Some("a coarse measure of a construct in the middle of a causal chain cannot screen off what it transmits; add indicators or state a reliability with care".into()),
             UnusualAlpha { .. } => Some("levels between 0.001 and 0.2 are usual; a very small one hides real dependence, a large one admits chance findings".into()),
             TooFewItems { .. } => Some("add items (at least 3), or give the single indicator a `reliability`".into()),
             ItemInTwoConstructs { .. } => {
@@ -109,7 +114,10 @@ impl SpecProblem {
     pub fn is_warning(&self) -> bool {
         matches!(
             self,
-            SpecProblem::TooFewItems { .. } | SpecProblem::UnusualAlpha { .. } | SpecProblem::ScaleScore { .. }
+            SpecProblem::TooFewItems { .. }
+                | SpecProblem::UnusualAlpha { .. }
+                | SpecProblem::ScaleScore { .. }
+                | SpecProblem::CoarsenedSingleIndicator { .. }
         )
     }
 }
