@@ -11,6 +11,7 @@ mod diff;
 mod faults;
 mod reference;
 mod report;
+mod robustness;
 mod sensitivity;
 mod simulate;
 mod verify;

@@ -60,8 +60,20 @@ fn read_error(path: &Path, e: impl std::fmt::Display) -> DataError {
     DataError::Read { path: path.to_path_buf(), reason: e.to_string() }
 }
 
+/// Runs a polars read, turning a panic inside polars (seen on damaged Parquet files) into a
+/// `DataError`, so no input file can crash construe.
+fn guarded<T>(path: &Path, read: impl FnOnce() -> Result<T, DataError>) -> Result<T, DataError> {
+    std::panic::catch_unwind(std::panic::AssertUnwindSafe(read)).unwrap_or_else(|_| {
+        Err(DataError::Read { path: path.to_path_buf(), reason: "the file is damaged or not a valid data file".into() })
+    })
+}
+
 /// The column names of a data file, reading as little as possible.
 pub fn column_names(path: &Path) -> Result<Vec<String>, DataError> {
+    guarded(path, || column_names_unguarded(path))
+}
+
+fn column_names_unguarded(path: &Path) -> Result<Vec<String>, DataError> {
     let df = match FileKind::of(path) {
         Some(FileKind::Csv) => csv_frame(path, Some(0))?,
         Some(FileKind::Parquet) => {
@@ -89,6 +101,10 @@ fn csv_frame(path: &Path, n_rows: Option<usize>) -> Result<DataFrame, DataError>
 
 /// One file's requested columns as numbers (NaN = missing), in the order asked.
 pub fn read_numeric_columns(path: &Path, wanted: &[String]) -> Result<Vec<Vec<f64>>, DataError> {
+    guarded(path, || read_numeric_columns_unguarded(path, wanted))
+}
+
+fn read_numeric_columns_unguarded(path: &Path, wanted: &[String]) -> Result<Vec<Vec<f64>>, DataError> {
     let kind = FileKind::of(path).ok_or_else(|| DataError::Unsupported { path: path.to_path_buf() })?;
     let df = match kind {
         FileKind::Csv => csv_frame(path, None)?,

@@ -123,8 +123,13 @@ fn remove_path(value: &mut serde_yaml::Value, path: &str) {
     let Some(last) = segments.pop() else { return };
     let mut node = value;
     for seg in segments {
-        let (key, index) = match seg.find('[') {
-            Some(i) => (&seg[..i], seg[i + 1..seg.len() - 1].parse::<usize>().ok()),
+        // `name[3]` is element 3 of `name`; anything else is a plain key (names may hold `[`).
+        let indexed = seg
+            .strip_suffix(']')
+            .and_then(|s| s.rsplit_once('['))
+            .and_then(|(k, i)| Some((k, i.parse::<usize>().ok()?)));
+        let (key, index) = match indexed {
+            Some((k, i)) => (k, Some(i)),
             None => (seg, None),
         };
         let Some(next) = node.get_mut(key) else { return };
