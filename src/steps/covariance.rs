@@ -18,8 +18,9 @@ use crate::stats::polychoric::OrdinalFit;
 use crate::stats::smoothing::smooth_correlation;
 
 /// Bump when the matrices change for the same loaded data and parameters.
-/// v2: polychoric / polyserial correlations for ordinal items, smoothing.
-pub const VERSION: u32 = 2;
+/// v2: polychoric / polyserial correlations for ordinal items, smoothing. v3: all-continuous
+/// data take one product-moment pass (last-digit differences in correlations).
+pub const VERSION: u32 = 3;
 
 /// The estimator used for one item pair.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
@@ -166,6 +167,9 @@ impl CovarianceStep {
         let items = &table.items;
         let p = items.len();
         let kinds = load.item_kinds();
+        if kinds.iter().all(|k| *k == ItemKind::Continuous) {
+            return self.product_moment_estimates(table);
+        }
         let complete: Vec<bool> = match self.missing {
             Missing::Pairwise => vec![true; table.rows()],
             Missing::Listwise => (0..table.rows()).map(|r| table.columns.iter().all(|c| !c[r].is_nan())).collect(),
@@ -248,6 +252,35 @@ impl CovarianceStep {
                     empty: value(m.empty),
                     into: value(m.into),
                 });
+            }
+        }
+        Ok(e)
+    }
+}
+
+impl CovarianceStep {
+    /// All items continuous: one pass of product moments gives every pair (the mixed estimator
+    /// would compute the same Pearson correlations a second time).
+    fn product_moment_estimates(&self, table: &Table) -> Result<Estimates, StepError> {
+        let p = table.items.len();
+        let deletion = match self.missing {
+            Missing::Pairwise => Deletion::Pairwise,
+            Missing::Listwise => Deletion::Listwise,
+        };
+        let columns: Vec<Vec<Option<f64>>> = (0..p).map(|k| table.optional(k)).collect();
+        let m = pearson(&columns, deletion)
+            .map_err(|source| StepError::Stats { context: "product-moment covariances".into(), source })?;
+        let n = (0..p).map(|r| (0..p).map(|c| m.n[(r, c)]).collect()).collect();
+        let mut e = Estimates::new(m.correlation.clone(), m.covariance.clone(), n);
+        for a in 0..p {
+            for b in a + 1..p {
+                let key = pair_key(&table.items, a, b);
+                let r = m.correlation[(a, b)];
+                // Large-sample standard error of r, (1 - r^2) / sqrt(n), as the mixed estimator
+                // reports for Pearson pairs (common practice).
+                let se = (1.0 - r * r) / (m.n[(a, b)] as f64).sqrt();
+                e.method.insert(key.clone(), PairMethod::Pearson);
+                e.se.insert(key, Some(se));
             }
         }
         Ok(e)
