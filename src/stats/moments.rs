@@ -37,14 +37,32 @@ pub fn pearson(columns: &[Vec<Option<f64>>], deletion: Deletion) -> Result<Pairw
         Deletion::Pairwise => vec![true; rows],
         Deletion::Listwise => (0..rows).map(|r| columns.iter().all(|c| c[r].is_some())).collect(),
     };
+    // Columns with no gap among the kept rows are centred once: for a pair of them the pair's
+    // rows are all kept rows, so the per-pair means equal these means (same sums, same order)
+    // and the results are bit-identical to the general path, which handles gaps per pair.
+    let centred: Vec<Option<Vec<f64>>> = columns
+        .iter()
+        .map(|c| {
+            let values: Option<Vec<f64>> = (0..rows).filter(|&r| keep[r]).map(|r| c[r]).collect();
+            values.map(|v| {
+                let mean = v.iter().fold(0.0, |acc, x| acc + x) / v.len() as f64;
+                v.into_iter().map(|x| x - mean).collect()
+            })
+        })
+        .collect();
     let mut covariance = DMatrix::zeros(p, p);
     let mut correlation = DMatrix::identity(p, p);
     let mut n = DMatrix::zeros(p, p);
     for a in 0..p {
         for b in a..p {
-            let pairs: Vec<(f64, f64)> =
-                (0..rows).filter(|&r| keep[r]).filter_map(|r| Some((columns[a][r]?, columns[b][r]?))).collect();
-            let m = pairs.len();
+            let (m, (cab, vaa, vbb)) = match (&centred[a], &centred[b]) {
+                (Some(ca), Some(cb)) => (ca.len(), centred_dot(ca, cb)),
+                _ => {
+                    let pairs: Vec<(f64, f64)> =
+                        (0..rows).filter(|&r| keep[r]).filter_map(|r| Some((columns[a][r]?, columns[b][r]?))).collect();
+                    (pairs.len(), if pairs.len() < 2 { (0.0, 0.0, 0.0) } else { centred_products(&pairs) })
+                }
+            };
             n[(a, b)] = m;
             n[(b, a)] = m;
             if m < 2 {
@@ -54,7 +72,6 @@ pub fn pearson(columns: &[Vec<Option<f64>>], deletion: Deletion) -> Result<Pairw
                     found: m,
                 });
             }
-            let (cab, vaa, vbb) = centred_products(&pairs);
             covariance[(a, b)] = cab;
             covariance[(b, a)] = cab;
             if a != b {
@@ -76,6 +93,18 @@ pub fn pearson(columns: &[Vec<Option<f64>>], deletion: Deletion) -> Result<Pairw
         }
     }
     Ok(PairwiseMoments { covariance, correlation, n })
+}
+
+/// (cov_ab, var_a, var_b) from two already centred, gap-free columns of equal length.
+fn centred_dot(ca: &[f64], cb: &[f64]) -> (f64, f64, f64) {
+    let m = ca.len() as f64;
+    let (mut cab, mut vaa, mut vbb) = (0.0, 0.0, 0.0);
+    for (&da, &db) in ca.iter().zip(cb) {
+        cab += da * db;
+        vaa += da * da;
+        vbb += db * db;
+    }
+    (cab / (m - 1.0), vaa / (m - 1.0), vbb / (m - 1.0))
 }
 
 /// Returns (cov_ab, var_a, var_b) of paired values, two-pass for accuracy (the centred form
