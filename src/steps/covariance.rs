@@ -201,10 +201,7 @@ impl CovarianceStep {
             table.optional(k).into_iter().zip(&complete).map(|(v, &keep)| v.filter(|_| keep)).collect()
         };
         let cont: Vec<usize> = (0..p).filter(|&k| kinds[k] == ItemKind::Continuous).collect();
-        let deletion = match self.missing {
-            Missing::Pairwise => Deletion::Pairwise,
-            Missing::Listwise => Deletion::Listwise,
-        };
+        let deletion = self.deletion();
         let moments = if cont.is_empty() {
             None
         } else {
@@ -259,14 +256,19 @@ impl CovarianceStep {
 }
 
 impl CovarianceStep {
+    /// The moment routines' name for the spec's missing-data rule.
+    fn deletion(&self) -> Deletion {
+        match self.missing {
+            Missing::Pairwise => Deletion::Pairwise,
+            Missing::Listwise => Deletion::Listwise,
+        }
+    }
+
     /// All items continuous: one pass of product moments gives every pair (the mixed estimator
     /// would compute the same Pearson correlations a second time).
     fn product_moment_estimates(&self, table: &Table) -> Result<Estimates, StepError> {
         let p = table.items.len();
-        let deletion = match self.missing {
-            Missing::Pairwise => Deletion::Pairwise,
-            Missing::Listwise => Deletion::Listwise,
-        };
+        let deletion = self.deletion();
         let columns: Vec<Vec<Option<f64>>> = (0..p).map(|k| table.optional(k)).collect();
         let m = pearson(&columns, deletion)
             .map_err(|source| StepError::Stats { context: "product-moment covariances".into(), source })?;
