@@ -34,3 +34,32 @@ items=$(head -1 "$work/items.csv" | tr ',' ' ')
 } > "$work/poly.yaml"
 for _ in 1 2 3 4 5; do seconds "$bin" run "$work/poly.yaml" --no-cache; done | median | sed 's/^/construe run (load + covariance) seconds: /'
 python3 bench/polychoric_reference.py "$work/items.csv" --out "$work/ref.json" | tail -n 3
+
+echo "== 3. covariance of ROWS x 100 continuous items from Parquet: construe vs numpy.cov"
+rows="${BENCH_ROWS:-1000000}"
+python3 - "$work" <<'PY'
+import sys
+work = sys.argv[1]
+with open(f"{work}/wide.yaml", "w") as f:
+    f.write("simulate: 1\ntitle: wide bench\nn: 1000\nseed: 5\nmissing: 0\nconstructs:\n")
+    for c in range(10):
+        f.write(f"  - {{name: f{c}, variance: 1}}\n")
+    f.write("items:\n")
+    for c in range(10):
+        for i in range(10):
+            f.write(f"  - {{name: x{c}_{i}, construct: f{c}, loading: 0.7, error_variance: 0.51, mean: 3}}\n")
+with open(f"{work}/wide-spec.yaml", "w") as f:
+    f.write("construe: 1\ntitle: wide bench\ndata: {waves: [{id: w, file: wide.parquet}]}\nconstructs:\n")
+    for c in range(10):
+        items = ", ".join(f"x{c}_{i}" for i in range(10))
+        f.write(f"  f{c}: {{items: [{items}]}}\n")
+    f.write("analyses: {covariance: {}}\n")
+PY
+"$bin" simulate "$work/wide.yaml" --n "$rows" --out "$work/wide.parquet"
+ls -l "$work/wide.parquet"
+for _ in 1 2 3 4 5; do
+  "$bin" run "$work/wide-spec.yaml" --no-cache 2>&1 | grep -E "^ *(load|covariance)" || true
+done
+/usr/bin/time -v "$bin" run "$work/wide-spec.yaml" --no-cache 2>&1 | grep -E "Maximum resident|Elapsed" || true
+/usr/bin/time -v python3 bench/covariance_peer.py "$work/wide.parquet" --prefix x 2>&1 |
+  grep -E "numpy|shape|Maximum resident|Elapsed" || true

@@ -106,13 +106,10 @@ pub fn read_numeric_columns(path: &Path, wanted: &[String]) -> Result<Vec<Vec<f6
 
 fn read_numeric_columns_unguarded(path: &Path, wanted: &[String]) -> Result<Vec<Vec<f64>>, DataError> {
     let kind = FileKind::of(path).ok_or_else(|| DataError::Unsupported { path: path.to_path_buf() })?;
-    let df = match kind {
-        FileKind::Csv => csv_frame(path, None)?,
-        FileKind::Parquet => {
-            let file = std::fs::File::open(path).map_err(|e| read_error(path, e))?;
-            ParquetReader::new(file).finish().map_err(|e| read_error(path, e))?
-        }
-    };
+    if kind == FileKind::Parquet {
+        return read_parquet_columns(path, wanted);
+    }
+    let df = csv_frame(path, None)?;
     wanted
         .iter()
         .map(|name| {
@@ -120,6 +117,29 @@ fn read_numeric_columns_unguarded(path: &Path, wanted: &[String]) -> Result<Vec<
                 .column(name)
                 .map_err(|_| DataError::MissingColumn { path: path.to_path_buf(), column: name.clone() })?;
             numeric_values(path, kind, name, column.as_materialized_series())
+        })
+        .collect()
+}
+
+/// Parquet is columnar: reading one column at a time keeps at most one column in polars' form
+/// beside the numbers already converted, so peak memory stays near the size of the items read.
+fn read_parquet_columns(path: &Path, wanted: &[String]) -> Result<Vec<Vec<f64>>, DataError> {
+    let open = || std::fs::File::open(path).map_err(|e| read_error(path, e));
+    let schema = ParquetReader::new(open()?).schema().map_err(|e| read_error(path, e))?;
+    wanted
+        .iter()
+        .map(|name| {
+            if !schema.iter_names().any(|n| n.as_str() == name.as_str()) {
+                return Err(DataError::MissingColumn { path: path.to_path_buf(), column: name.clone() });
+            }
+            let df = ParquetReader::new(open()?)
+                .with_columns(Some(vec![name.clone()]))
+                .finish()
+                .map_err(|e| read_error(path, e))?;
+            let column = df
+                .column(name)
+                .map_err(|_| DataError::MissingColumn { path: path.to_path_buf(), column: name.clone() })?;
+            numeric_values(path, FileKind::Parquet, name, column.as_materialized_series())
         })
         .collect()
 }
@@ -154,5 +174,8 @@ fn numeric_values(path: &Path, kind: FileKind, name: &str, series: &Series) -> R
     }
     let floats = series.cast(&DataType::Float64).map_err(|e| read_error(path, e))?;
     let ca = floats.f64().map_err(|e| read_error(path, e))?;
+    if let Ok(values) = ca.cont_slice() {
+        return Ok(values.to_vec());
+    }
     Ok(ca.iter().map(|v| v.unwrap_or(f64::NAN)).collect())
 }

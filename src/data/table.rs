@@ -6,6 +6,8 @@
 use serde::{Deserialize, Serialize};
 
 const MAGIC: &[u8; 8] = b"CNSTBL1\n";
+/// Values converted per write call when encoding.
+const WRITE_CHUNK: usize = 8192;
 
 #[derive(Debug, Clone, PartialEq)]
 pub struct Table {
@@ -33,29 +35,45 @@ impl Table {
         self.items.iter().position(|i| i == item).map(|k| self.columns[k].as_slice())
     }
 
-    /// A column as `Option`s, the form the moment routines take.
-    pub fn optional(&self, k: usize) -> Vec<Option<f64>> {
-        self.columns[k].iter().map(|&v| (!v.is_nan()).then_some(v)).collect()
+    pub fn to_bytes(&self) -> Vec<u8> {
+        let mut out = Vec::with_capacity(self.encoded_len());
+        self.write_to(&mut out).unwrap_or_default();
+        out
     }
 
-    pub fn to_bytes(&self) -> Vec<u8> {
-        let header =
-            serde_json::to_vec(&Header { items: self.items.clone(), waves: self.waves.clone(), rows: self.rows() })
-                .unwrap_or_default();
-        let mut out = Vec::with_capacity(16 + header.len() + self.rows() * (4 + 8 * self.columns.len()));
-        out.extend_from_slice(MAGIC);
-        out.extend_from_slice(&(header.len() as u64).to_le_bytes());
-        out.extend_from_slice(&header);
-        for w in &self.wave_of_row {
-            out.extend_from_slice(&w.to_le_bytes());
+    fn header(&self) -> Vec<u8> {
+        serde_json::to_vec(&Header { items: self.items.clone(), waves: self.waves.clone(), rows: self.rows() })
+            .unwrap_or_default()
+    }
+
+    fn encoded_len(&self) -> usize {
+        16 + self.header().len() + self.rows() * (4 + 8 * self.columns.len())
+    }
+
+    /// Writes the `to_bytes` encoding piece by piece, so the table is never held twice.
+    pub fn write_to(&self, out: &mut dyn std::io::Write) -> std::io::Result<()> {
+        let header = self.header();
+        out.write_all(MAGIC)?;
+        out.write_all(&(header.len() as u64).to_le_bytes())?;
+        out.write_all(&header)?;
+        let mut buffer = Vec::with_capacity(8 * WRITE_CHUNK);
+        for rows in self.wave_of_row.chunks(WRITE_CHUNK) {
+            buffer.clear();
+            rows.iter().for_each(|w| buffer.extend_from_slice(&w.to_le_bytes()));
+            out.write_all(&buffer)?;
         }
         for col in &self.columns {
-            for &v in col {
-                let v = if v.is_nan() { f64::NAN } else { v };
-                out.extend_from_slice(&v.to_le_bytes());
+            for values in col.chunks(WRITE_CHUNK) {
+                buffer.clear();
+                for &v in values {
+                    // One NaN bit pattern, so equal tables always hash equal.
+                    let v = if v.is_nan() { f64::NAN } else { v };
+                    buffer.extend_from_slice(&v.to_le_bytes());
+                }
+                out.write_all(&buffer)?;
             }
         }
-        out
+        Ok(())
     }
 
     /// Decodes `to_bytes` output; `None` for anything malformed (the cache then recomputes).

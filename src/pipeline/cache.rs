@@ -5,7 +5,7 @@
 //! damaged entry is reported and removed, never trusted. Only this module builds cache paths.
 
 use std::fs;
-use std::io::Write;
+use std::io::{Seek, SeekFrom, Write};
 use std::path::{Path, PathBuf};
 
 use super::key::{CACHE_FORMAT, Key};
@@ -55,13 +55,17 @@ impl Cache {
 
     pub fn get(&self, key: &Key) -> Lookup {
         let Some(path) = self.entry_path(key) else { return Lookup::Miss };
-        let bytes = match fs::read(&path) {
+        let mut bytes = match fs::read(&path) {
             Ok(b) => b,
             Err(e) if e.kind() == std::io::ErrorKind::NotFound => return Lookup::Miss,
             Err(e) => return Lookup::Damaged { path, reason: e.to_string() },
         };
         match unwrap_entry(&bytes) {
-            Ok(payload) => Lookup::Hit(payload.to_vec()),
+            Ok(_) => {
+                // Drop the header in place: a copy would hold the payload twice.
+                bytes.drain(..MAGIC.len() + 32);
+                Lookup::Hit(bytes)
+            }
             Err(reason) => {
                 let _ = fs::remove_file(&path);
                 Lookup::Damaged { path, reason }
@@ -71,16 +75,66 @@ impl Cache {
 
     /// Stores `payload` under `key` atomically (temporary file, fsync, rename).
     pub fn put(&self, key: &Key, payload: &[u8]) -> std::io::Result<()> {
-        let Some(path) = self.entry_path(key) else { return Ok(()) };
+        self.put_with(key, |w| w.write_all(payload)).map(|_| ())
+    }
+
+    /// Streams a payload into the entry for `key` as `write` produces it, so a large artifact
+    /// (the loaded table) is never held twice in memory; returns the payload's BLAKE3 hash.
+    /// Same atomicity as `put`: the hash slot is filled in before the rename. With caching off
+    /// the payload is only hashed.
+    pub fn put_with(
+        &self,
+        key: &Key,
+        write: impl FnOnce(&mut dyn Write) -> std::io::Result<()>,
+    ) -> std::io::Result<Key> {
+        let Some(path) = self.entry_path(key) else {
+            let mut sink = Hashing::new(std::io::sink());
+            write(&mut sink)?;
+            return Ok(sink.finish());
+        };
         let dir = path.parent().unwrap_or(Path::new("."));
         fs::create_dir_all(dir)?;
         let mut tmp = tempfile::Builder::new().prefix(".partial-").tempfile_in(dir)?;
         tmp.write_all(MAGIC)?;
-        tmp.write_all(blake3::hash(payload).as_bytes())?;
-        tmp.write_all(payload)?;
+        tmp.write_all(&[0; 32])?;
+        let mut body = Hashing::new(std::io::BufWriter::with_capacity(1 << 20, tmp.as_file_mut()));
+        write(&mut body)?;
+        body.inner.flush()?;
+        let hash = body.finish();
+        drop(body);
+        tmp.as_file_mut().seek(SeekFrom::Start(MAGIC.len() as u64))?;
+        tmp.write_all(&hash.0)?;
         tmp.as_file().sync_all()?;
         tmp.persist(&path).map_err(|e| e.error)?;
-        Ok(())
+        Ok(hash)
+    }
+}
+
+/// A writer that hashes what passes through it.
+struct Hashing<W: Write> {
+    inner: W,
+    hasher: blake3::Hasher,
+}
+
+impl<W: Write> Hashing<W> {
+    fn new(inner: W) -> Hashing<W> {
+        Hashing { inner, hasher: blake3::Hasher::new() }
+    }
+
+    fn finish(&self) -> Key {
+        Key(*self.hasher.finalize().as_bytes())
+    }
+}
+
+impl<W: Write> Write for Hashing<W> {
+    fn write(&mut self, buf: &[u8]) -> std::io::Result<usize> {
+        let n = self.inner.write(buf)?;
+        self.hasher.update(&buf[..n]);
+        Ok(n)
+    }
+
+    fn flush(&mut self) -> std::io::Result<()> {
+        self.inner.flush()
     }
 }
 

@@ -42,7 +42,8 @@ pub fn execute(plan: &Plan, cache: &Cache, mut observe: impl FnMut(Event<'_>)) -
         let started = Instant::now();
         let cached = match cache.get(&planned.key) {
             Lookup::Hit(bytes) => match Artifact::decode(kind, &bytes) {
-                Some(a) => Some((a, bytes)),
+                // The bytes go out of scope here, before the next step runs.
+                Some(a) => Some((a, Key::of_bytes(&bytes))),
                 None => {
                     observe(Event::Warning(format!(
                         "cache entry for `{kind}` ({}) could not be decoded; recomputing",
@@ -61,17 +62,17 @@ pub fn execute(plan: &Plan, cache: &Cache, mut observe: impl FnMut(Event<'_>)) -
             }
         };
         let was_cached = cached.is_some();
-        let (artifact, bytes) = match cached {
+        let (artifact, artifact_hash) = match cached {
             Some(hit) => hit,
             None => {
                 let artifact = planned.step.run(&Inputs { step: kind, artifacts: &artifacts })?;
-                let bytes = artifact.encode();
-                cache.put(&planned.key, &bytes).map_err(|source| PipelineError::Io {
-                    action: "write cache entry",
-                    path: cache.root().map(|p| p.to_path_buf()).unwrap_or_default(),
-                    source,
-                })?;
-                (artifact, bytes)
+                let hash =
+                    cache.put_with(&planned.key, |w| artifact.write_to(w)).map_err(|source| PipelineError::Io {
+                        action: "write cache entry",
+                        path: cache.root().map(|p| p.to_path_buf()).unwrap_or_default(),
+                        source,
+                    })?;
+                (artifact, hash)
             }
         };
         let outcome = Outcome {
@@ -79,7 +80,7 @@ pub fn execute(plan: &Plan, cache: &Cache, mut observe: impl FnMut(Event<'_>)) -
             key: planned.key,
             cached: was_cached,
             seconds: started.elapsed().as_secs_f64(),
-            artifact_hash: Key::of_bytes(&bytes),
+            artifact_hash,
             description: planned.step.describe(&artifact),
         };
         observe(Event::Done(&outcome));

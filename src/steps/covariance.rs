@@ -13,14 +13,15 @@ use super::{Artifact, Inputs, Step, StepError, StepKind};
 use crate::data::Table;
 use crate::spec::types::{CovarianceSpec, MatrixKind, Missing, OrdinalEstimation};
 use crate::stats::mixed::{self, Column, mixed_correlation};
-use crate::stats::moments::{Deletion, pearson};
+use crate::stats::moments::{Deletion, pearson_columns};
 use crate::stats::polychoric::OrdinalFit;
 use crate::stats::smoothing::smooth_correlation;
 
 /// Bump when the matrices change for the same loaded data and parameters.
 /// v2: polychoric / polyserial correlations for ordinal items, smoothing. v3: all-continuous
-/// data take one product-moment pass (last-digit differences in correlations).
-pub const VERSION: u32 = 3;
+/// data take one product-moment pass (last-digit differences in correlations). v4: blocked
+/// cross-products on shifted data (last-digit differences again).
+pub const VERSION: u32 = 4;
 
 /// The estimator used for one item pair.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
@@ -197,24 +198,31 @@ impl CovarianceStep {
             .map_err(|source| StepError::Stats { context: pair_context(items, &source), source })?;
         // Product moments only where they are used: among continuous items (so their
         // covariances equal the usual sample covariances), and each item's own variance.
-        let columns_of = |k: usize| -> Vec<Option<f64>> {
-            table.optional(k).into_iter().zip(&complete).map(|(v, &keep)| v.filter(|_| keep)).collect()
+        // Listwise deletion spans every item, ordinal ones included: mask the continuous
+        // columns to the complete rows (pairwise needs no copy).
+        let masked = |k: usize| -> Vec<f64> {
+            table.columns[k].iter().zip(&complete).map(|(&v, &keep)| if keep { v } else { f64::NAN }).collect()
         };
         let cont: Vec<usize> = (0..p).filter(|&k| kinds[k] == ItemKind::Continuous).collect();
         let deletion = self.deletion();
         let moments = if cont.is_empty() {
             None
         } else {
-            let cols: Vec<Vec<Option<f64>>> = cont.iter().map(|&k| columns_of(k)).collect();
+            let copies: Vec<Vec<f64>> =
+                if deletion == Deletion::Listwise { cont.iter().map(|&k| masked(k)).collect() } else { Vec::new() };
+            let cols: Vec<&[f64]> = match deletion {
+                Deletion::Listwise => copies.iter().map(Vec::as_slice).collect(),
+                Deletion::Pairwise => cont.iter().map(|&k| table.columns[k].as_slice()).collect(),
+            };
             Some(
-                pearson(&cols, deletion)
+                pearson_columns(&cols, Deletion::Pairwise)
                     .map_err(|source| StepError::Stats { context: "product-moment covariances".into(), source })?,
             )
         };
         let variance: Vec<f64> = (0..p)
             .map(|k| match (cont.iter().position(|&c| c == k), &moments) {
                 (Some(i), Some(m)) => m.covariance[(i, i)],
-                _ => sample_variance(&columns_of(k)),
+                _ => sample_variance(&masked(k)),
             })
             .collect();
         let sd: Vec<f64> = variance.iter().map(|v| v.sqrt()).collect();
@@ -269,8 +277,8 @@ impl CovarianceStep {
     fn product_moment_estimates(&self, table: &Table) -> Result<Estimates, StepError> {
         let p = table.items.len();
         let deletion = self.deletion();
-        let columns: Vec<Vec<Option<f64>>> = (0..p).map(|k| table.optional(k)).collect();
-        let m = pearson(&columns, deletion)
+        let columns: Vec<&[f64]> = table.columns.iter().map(Vec::as_slice).collect();
+        let m = pearson_columns(&columns, deletion)
             .map_err(|source| StepError::Stats { context: "product-moment covariances".into(), source })?;
         let n = (0..p).map(|r| (0..p).map(|c| m.n[(r, c)]).collect()).collect();
         let mut e = Estimates::new(m.correlation.clone(), m.covariance.clone(), n);
@@ -289,9 +297,9 @@ impl CovarianceStep {
     }
 }
 
-/// Sample variance (n - 1 divisor) of the present values.
-fn sample_variance(values: &[Option<f64>]) -> f64 {
-    let present: Vec<f64> = values.iter().flatten().copied().collect();
+/// Sample variance (n - 1 divisor) of the present (non-NaN) values.
+fn sample_variance(values: &[f64]) -> f64 {
+    let present: Vec<f64> = values.iter().copied().filter(|v| !v.is_nan()).collect();
     let n = present.len() as f64;
     let mean = present.iter().sum::<f64>() / n;
     present.iter().map(|v| (v - mean).powi(2)).sum::<f64>() / (n - 1.0).max(1.0)

@@ -83,14 +83,21 @@ struct Envelope {
 impl LoadOutput {
     /// `u64 length || JSON(summary, matrix) || table bytes`.
     pub fn encode(&self) -> Vec<u8> {
+        let mut out = Vec::new();
+        self.write_to(&mut out).unwrap_or_default();
+        out
+    }
+
+    /// Writes `encode`'s bytes without building them in memory first.
+    pub fn write_to(&self, out: &mut dyn std::io::Write) -> std::io::Result<()> {
         let head = serde_json::to_vec(&Envelope { summary: self.summary.clone(), matrix: self.matrix.clone() })
             .unwrap_or_default();
-        let mut out = (head.len() as u64).to_le_bytes().to_vec();
-        out.extend_from_slice(&head);
-        if let Some(t) = &self.table {
-            out.extend_from_slice(&t.to_bytes());
+        out.write_all(&(head.len() as u64).to_le_bytes())?;
+        out.write_all(&head)?;
+        match &self.table {
+            Some(t) => t.write_to(out),
+            None => Ok(()),
         }
-        out
     }
 
     pub fn decode(bytes: &[u8]) -> Option<LoadOutput> {
@@ -168,7 +175,11 @@ impl LoadStep {
                 self.recode(&names[k], col, &wave.path)?;
             }
             for (all, col) in columns.iter_mut().zip(cols) {
-                all.extend(col);
+                if all.is_empty() {
+                    *all = col;
+                } else {
+                    all.extend(col);
+                }
             }
             wave_of_row.extend(std::iter::repeat_n(w as u32, rows));
             waves.push(WaveSummary { id: wave.id.clone(), file: wave.shown.clone(), rows });

@@ -98,17 +98,29 @@ pub enum Artifact {
     Sensitivity(Box<SensitivityOutput>),
 }
 
+/// The JSON artifacts' encoding: serde_json's compact form, written as it is produced.
+fn write_json<T: Serialize>(out: &mut dyn std::io::Write, value: &T) -> std::io::Result<()> {
+    serde_json::to_writer(out, value).map_err(std::io::Error::other)
+}
+
 impl Artifact {
     pub fn encode(&self) -> Vec<u8> {
+        let mut out = Vec::new();
+        self.write_to(&mut out).unwrap_or_default();
+        out
+    }
+
+    /// Streams the bytes `encode` returns (the cache writes large artifacts this way).
+    pub fn write_to(&self, out: &mut dyn std::io::Write) -> std::io::Result<()> {
         match self {
-            Artifact::Load(a) => a.encode(),
-            Artifact::Covariance(a) => serde_json::to_vec(a).unwrap_or_default(),
-            Artifact::Purify(a) => serde_json::to_vec(a).unwrap_or_default(),
-            Artifact::Discover(a) => serde_json::to_vec(a).unwrap_or_default(),
-            Artifact::Measure(a) => serde_json::to_vec(a).unwrap_or_default(),
-            Artifact::Structure(a) => serde_json::to_vec(a).unwrap_or_default(),
-            Artifact::Resample(a) => serde_json::to_vec(a).unwrap_or_default(),
-            Artifact::Sensitivity(a) => serde_json::to_vec(a).unwrap_or_default(),
+            Artifact::Load(a) => a.write_to(out),
+            Artifact::Covariance(a) => write_json(out, a.as_ref()),
+            Artifact::Purify(a) => write_json(out, a.as_ref()),
+            Artifact::Discover(a) => write_json(out, a.as_ref()),
+            Artifact::Measure(a) => write_json(out, a.as_ref()),
+            Artifact::Structure(a) => write_json(out, a.as_ref()),
+            Artifact::Resample(a) => write_json(out, a.as_ref()),
+            Artifact::Sensitivity(a) => write_json(out, a.as_ref()),
         }
     }
 
