@@ -232,7 +232,8 @@ impl LoadStep {
             return Err(DataError::EmptyItem { item: name.into() });
         }
         let mut distinct = present.clone();
-        distinct.sort_by(f64::total_cmp);
+        // Unstable is safe: values that compare equal under total_cmp have the same bits.
+        distinct.sort_unstable_by(f64::total_cmp);
         distinct.dedup();
         if distinct.len() == 1 {
             return Err(DataError::ConstantItem { item: name.into(), value: distinct[0] });
