@@ -36,7 +36,7 @@ impl Table {
     }
 
     pub fn to_bytes(&self) -> Vec<u8> {
-        let mut out = Vec::with_capacity(self.encoded_len());
+        let mut out = Vec::new();
         self.write_to(&mut out).unwrap_or_default();
         out
     }
@@ -44,10 +44,6 @@ impl Table {
     fn header(&self) -> Vec<u8> {
         serde_json::to_vec(&Header { items: self.items.clone(), waves: self.waves.clone(), rows: self.rows() })
             .unwrap_or_default()
-    }
-
-    fn encoded_len(&self) -> usize {
-        16 + self.header().len() + self.rows() * (4 + 8 * self.columns.len())
     }
 
     /// Writes the `to_bytes` encoding piece by piece, so the table is never held twice.
