@@ -7,14 +7,18 @@ cd "$(dirname "$0")"
 seconds="${1:-300}"
 demo=../pipelines/transit
 cp ../Cargo.lock Cargo.lock  # same dependency versions as the tool itself
+# Keep the (slow, instrumented) build outside the clone when CARGO_TARGET_DIR says where.
+target_dir=()
+if [ -n "${CARGO_TARGET_DIR:-}" ]; then target_dir=(--target-dir "$CARGO_TARGET_DIR"); fi
 mkdir -p corpus/spec corpus/csv_loader corpus/parquet_loader
 cp "$demo/spec.yaml" corpus/spec/demo-spec.yaml
 cp "$demo/model.yaml" corpus/spec/demo-model.yaml
 cp "$demo"/data/*.csv corpus/csv_loader/
 cp "$demo"/data/*.parquet corpus/parquet_loader/
+cargo +nightly fuzz build --sanitizer none "${target_dir[@]}"
 for target in spec csv_loader parquet_loader; do
   echo "== $target ($seconds s)"
-  cargo +nightly fuzz run --sanitizer none "$target" "corpus/$target" -- \
+  cargo +nightly fuzz run --sanitizer none "${target_dir[@]}" "$target" "corpus/$target" -- \
     -max_total_time="$seconds" -print_final_stats=1 -max_len=65536 2>&1 | tee "/tmp/fuzz-$target.log" |
     grep -E "^stat::number_of_executed_units|^#[0-9]+ +DONE|panicked|deadly signal|SUMMARY" || true
 done

@@ -6,6 +6,7 @@
 use std::path::PathBuf;
 
 use indexmap::IndexMap;
+use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 use serde_json::{Value, json};
 
@@ -16,7 +17,7 @@ use crate::spec::SpecFile;
 use crate::spec::types::{AUTO_MAX_LEVELS, MatrixKind, OrdinalSpec};
 
 /// Bump when the loaded table or summary changes for the same files and parameters.
-pub const VERSION: u32 = 1;
+pub const VERSION: u32 = 2;
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "snake_case")]
@@ -171,9 +172,10 @@ impl LoadStep {
         for (w, wave) in self.waves.iter().enumerate() {
             let mut cols = read_numeric_columns(&wave.path, &names)?;
             let rows = cols.first().map_or(0, Vec::len);
-            for (k, col) in cols.iter_mut().enumerate() {
-                self.recode(&names[k], col, &wave.path)?;
-            }
+            // Items are independent: recode them in parallel, report the first failing item.
+            let recoded: Vec<Result<(), DataError>> =
+                cols.par_iter_mut().zip(&names).map(|(col, name)| self.recode(name, col, &wave.path)).collect();
+            recoded.into_iter().collect::<Result<(), _>>()?;
             for (all, col) in columns.iter_mut().zip(cols) {
                 if all.is_empty() {
                     *all = col;
@@ -184,10 +186,13 @@ impl LoadStep {
             wave_of_row.extend(std::iter::repeat_n(w as u32, rows));
             waves.push(WaveSummary { id: wave.id.clone(), file: wave.shown.clone(), rows });
         }
-        let mut items = Vec::with_capacity(names.len());
-        for (k, (name, construct)) in self.items.iter().enumerate() {
-            items.push(self.summarise(name, construct, &columns[k])?);
-        }
+        let summaries: Vec<Result<ItemSummary, DataError>> = self
+            .items
+            .par_iter()
+            .zip(&columns)
+            .map(|((name, construct), col)| self.summarise(name, construct, col))
+            .collect();
+        let items = summaries.into_iter().collect::<Result<Vec<_>, _>>()?;
         let rows = wave_of_row.len();
         let table = Table { items: names, waves: waves.iter().map(|w| w.id.clone()).collect(), wave_of_row, columns };
         Ok(LoadOutput {
@@ -231,10 +236,7 @@ impl LoadStep {
         if n == 0 {
             return Err(DataError::EmptyItem { item: name.into() });
         }
-        let mut distinct = present.clone();
-        // Unstable is safe: values that compare equal under total_cmp have the same bits.
-        distinct.sort_unstable_by(f64::total_cmp);
-        distinct.dedup();
+        let distinct = distinct_values(&present);
         if distinct.len() == 1 {
             return Err(DataError::ConstantItem { item: name.into(), value: distinct[0] });
         }
@@ -363,5 +365,55 @@ impl Step for LoadStep {
                 ordinal
             )
         }
+    }
+}
+
+/// Most distinct values kept in the one-pass set before `distinct_values` falls back to sorting.
+const SMALL_SET_LIMIT: usize = 64;
+
+/// The distinct values of `present` in ascending order (`f64::total_cmp`).
+/// Why not just sort: survey items mostly have a handful of levels, and a small sorted set
+/// grown in one pass (binary search, O(n log k) for k levels) avoids sorting all n answers;
+/// an item with more than `SMALL_SET_LIMIT` levels (a continuous one) is sorted and deduplicated.
+fn distinct_values(present: &[f64]) -> Vec<f64> {
+    let mut set: Vec<f64> = Vec::new();
+    for &v in present {
+        let v = v + 0.0; // -0.0 and 0.0 are one answer; x + 0.0 turns -0.0 into 0.0
+        if let Err(at) = set.binary_search_by(|x| x.total_cmp(&v)) {
+            if set.len() == SMALL_SET_LIMIT {
+                let mut all: Vec<f64> = present.iter().map(|v| v + 0.0).collect();
+                // Unstable is safe: values that compare equal under total_cmp have the same bits.
+                all.sort_unstable_by(f64::total_cmp);
+                all.dedup();
+                return all;
+            }
+            set.insert(at, v);
+        }
+    }
+    set
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// The definition: sort everything, drop repeats.
+    fn sorted_unique(values: &[f64]) -> Vec<f64> {
+        let mut all: Vec<f64> = values.iter().map(|v| v + 0.0).collect();
+        all.sort_by(f64::total_cmp);
+        all.dedup();
+        all
+    }
+
+    #[test]
+    fn distinct_values_agree_with_sorting_for_few_and_many_levels() {
+        let few: Vec<f64> = (0..5000).map(|i| ((i * 7919) % 5 + 1) as f64).collect();
+        assert_eq!(distinct_values(&few), vec![1.0, 2.0, 3.0, 4.0, 5.0]);
+        let at_limit: Vec<f64> = (0..3000).map(|i| ((i * 31) % SMALL_SET_LIMIT) as f64).collect();
+        assert_eq!(distinct_values(&at_limit).len(), SMALL_SET_LIMIT);
+        assert_eq!(distinct_values(&at_limit), sorted_unique(&at_limit));
+        let many: Vec<f64> = (0..3000).map(|i| (((i * 7919) % 1000) as f64 / 7.0).sin()).collect();
+        assert_eq!(distinct_values(&many), sorted_unique(&many));
+        assert_eq!(distinct_values(&[0.0, -0.0, 2.0]), vec![0.0, 2.0]);
     }
 }

@@ -8,7 +8,7 @@ use nalgebra::{DMatrix, DVector};
 use super::implied::{Implied, implied};
 use super::indices::{FitIndices, fit_indices};
 use super::information::{Derivatives, latent_cov_jacobian};
-use super::linalg::{inverse_from_factor, spd_inverse};
+use super::linalg::{cholesky_lower, cholesky_solve, inverse_from_factor, spd_inverse};
 use super::model::{Matrix, ModelMatrices, ParamLayout, ParameterKind, SemModel};
 use super::standardized::{standardized, standardized_entry};
 use super::start::start_values;
@@ -151,7 +151,7 @@ struct Point {
 fn evaluate(model: &SemModel, layout: &ParamLayout, values: &[f64], s: &DMatrix<f64>, ln_det_s: f64) -> Option<Point> {
     let imp = implied(&model.matrices(layout, values)).ok()?;
     let (k, ln_det) = spd_inverse(&imp.sigma)?;
-    let trace = s.component_mul(&k).sum();
+    let trace: f64 = s.as_slice().iter().zip(k.as_slice()).map(|(a, b)| a * b).sum();
     let f = ln_det + trace - ln_det_s - s.nrows() as f64;
     f.is_finite().then_some(Point { f, imp, k })
 }
@@ -184,11 +184,8 @@ pub fn fit(model: &SemModel, s: &DMatrix<f64>, n: usize, options: &FitOptions) -
         return Err(StatsError::NotEnoughData { what: "ML structural equation model".into(), needed: 2, found: n });
     }
     let s = (s + s.transpose()) * 0.5;
-    let ln_det_s: f64 = s
-        .clone()
-        .cholesky()
+    let ln_det_s: f64 = cholesky_lower(&s)
         .ok_or_else(|| StatsError::Singular { what: "sample covariance matrix".into() })?
-        .l_dirty()
         .diagonal()
         .iter()
         .map(|d| 2.0 * d.ln())
@@ -220,9 +217,8 @@ pub fn fit(model: &SemModel, s: &DMatrix<f64>, n: usize, options: &FitOptions) -
     let mut decrement;
     let mut factor;
     loop {
-        let chol = h.clone().cholesky().ok_or_else(not_identified)?;
-        let step = chol.solve(&g);
-        factor = chol.unpack();
+        factor = cholesky_lower(&h).ok_or_else(not_identified)?;
+        let step = cholesky_solve(&factor, &g);
         decrement = g.dot(&step);
         if decrement <= options.tolerance {
             converged = true;
@@ -300,11 +296,15 @@ fn estimates(
     for matrix in [Matrix::Lambda, Matrix::Beta, Matrix::Psi, Matrix::Theta] {
         let (rows, cols) = model.shape(matrix);
         let symmetric = matches!(matrix, Matrix::Psi | Matrix::Theta);
+        // Free-parameter index of each entry, looked up once rather than searched per entry.
+        let mut free_at = vec![None; rows * cols];
+        for e in layout.entries.iter().filter(|e| e.matrix == matrix) {
+            free_at[e.row * cols + e.col] = Some(e.index);
+        }
         for row in 0..rows {
             let last = if symmetric { row + 1 } else { cols };
             for col in 0..last {
-                let free =
-                    layout.entries.iter().find(|e| e.matrix == matrix && e.row == row && e.col == col).map(|e| e.index);
+                let free = free_at[row * cols + col];
                 let est = mm.get(matrix)[(row, col)];
                 let meaningful = free.is_some() || est != 0.0 || (symmetric && row == col);
                 if !meaningful {

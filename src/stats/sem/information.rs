@@ -67,6 +67,8 @@ impl Derivatives {
         let w = u.ncols();
         let mu = mmat * u;
         let umu = u.transpose() * &mu;
+        // Exactly symmetric, so the Hessian below may read either triangle.
+        let umu = (&umu + umu.transpose()) * 0.5;
         let mut out = DMatrix::zeros(p + w, p + w);
         out.view_mut((0, 0), (p, p)).copy_from(mmat);
         out.view_mut((0, p), (p, w)).copy_from(&mu);
@@ -99,6 +101,10 @@ impl Derivatives {
             g[t] = terms.iter().map(|x| 2.0 * x.coef * vwv[(x.a, x.b)]).sum();
         }
         let mut h = DMatrix::zeros(q, q);
+        if self.terms.iter().all(|x| x.len() == 1) {
+            single_term_hessian(&self.terms, &vkv, &mut h);
+            return (g, h);
+        }
         for t in 0..q {
             for u in 0..=t {
                 let mut sum = 0.0;
@@ -116,6 +122,23 @@ impl Derivatives {
         }
         (g, h)
     }
+}
+
+/// The expected Hessian when every free parameter has one rank-two term (no shared labels),
+/// the usual case: the same formula as the general loop, with column t of H read from the two
+/// contiguous columns a_t and b_t of the symmetric V'KV, and the upper triangle mirrored.
+fn single_term_hessian(terms: &[Vec<Term>], vkv: &DMatrix<f64>, h: &mut DMatrix<f64>) {
+    let (n, q) = (vkv.nrows(), terms.len());
+    let single: Vec<Term> = terms.iter().map(|x| x[0]).collect();
+    let v = vkv.as_slice();
+    for (t, x) in single.iter().enumerate() {
+        let (ca, cb) = (&v[x.a * n..(x.a + 1) * n], &v[x.b * n..(x.b + 1) * n]);
+        let column = &mut h.as_mut_slice()[t * q..t * q + t + 1];
+        for (entry, y) in column.iter_mut().zip(&single) {
+            *entry = 2.0 * x.coef * y.coef * (ca[y.a] * cb[y.b] + ca[y.b] * cb[y.a]);
+        }
+    }
+    h.fill_lower_triangle_with_upper_triangle();
 }
 
 /// Jacobian of the implied latent covariances C = A Psi A' (pairs (i, j), i >= j, in the order
