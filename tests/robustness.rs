@@ -101,3 +101,15 @@ fn mutated_data_files_never_panic() {
         }
     }
 }
+
+#[test]
+fn a_footer_that_declares_a_huge_list_is_a_diagnostic_not_an_abort() {
+    // Found by the parquet_loader fuzz target: a mutated demo wave whose footer declares a list
+    // so long that polars asked for 64 GB and the process aborted. It must be refused first.
+    let path = Path::new(env!("CARGO_MANIFEST_DIR")).join("tests/fixtures/damaged-footer.parquet");
+    let err = column_names(&path).unwrap_err().to_string();
+    assert!(err.contains("damaged-footer.parquet") && err.contains("damaged Parquet footer"), "{err}");
+    let items = vec!["cr1".to_string()];
+    let err = read_numeric_columns(&path, &items).unwrap_err().to_string();
+    assert!(err.contains("damaged Parquet footer"), "{err}");
+}

@@ -4,6 +4,7 @@
 //! for missing values. Errors name the file, the data row (and CSV line) and the column.
 
 pub mod matrix;
+pub mod parquet_footer;
 pub mod table;
 
 use std::path::{Path, PathBuf};
@@ -77,6 +78,7 @@ fn column_names_unguarded(path: &Path) -> Result<Vec<String>, DataError> {
     let df = match FileKind::of(path) {
         Some(FileKind::Csv) => csv_frame(path, Some(0))?,
         Some(FileKind::Parquet) => {
+            parquet_footer::check_footer(path).map_err(|e| read_error(path, e))?;
             let file = std::fs::File::open(path).map_err(|e| read_error(path, e))?;
             let schema = ParquetReader::new(file).schema().map_err(|e| read_error(path, e))?;
             return Ok(schema.iter_names().map(|n| n.to_string()).collect());
@@ -124,6 +126,7 @@ fn read_numeric_columns_unguarded(path: &Path, wanted: &[String]) -> Result<Vec<
 /// Parquet is columnar: reading one column at a time keeps at most one column in polars' form
 /// beside the numbers already converted, so peak memory stays near the size of the items read.
 fn read_parquet_columns(path: &Path, wanted: &[String]) -> Result<Vec<Vec<f64>>, DataError> {
+    parquet_footer::check_footer(path).map_err(|e| read_error(path, e))?;
     let open = || std::fs::File::open(path).map_err(|e| read_error(path, e));
     let schema = ParquetReader::new(open()?).schema().map_err(|e| read_error(path, e))?;
     wanted

@@ -8,7 +8,7 @@ use nalgebra::{DMatrix, DVector};
 use super::implied::{Implied, implied};
 use super::indices::{FitIndices, fit_indices};
 use super::information::{Derivatives, latent_cov_jacobian};
-use super::linalg::{cholesky_lower, cholesky_solve, inverse_from_factor, spd_inverse};
+use super::linalg::{cholesky_lower, cholesky_solve, factor_model_inverse, inverse_from_factor, spd_inverse};
 use super::model::{Matrix, ModelMatrices, ParamLayout, ParameterKind, SemModel};
 use super::standardized::{standardized, standardized_entry};
 use super::start::start_values;
@@ -148,9 +148,37 @@ struct Point {
     k: DMatrix<f64>,
 }
 
-fn evaluate(model: &SemModel, layout: &ParamLayout, values: &[f64], s: &DMatrix<f64>, ln_det_s: f64) -> Option<Point> {
-    let imp = implied(&model.matrices(layout, values)).ok()?;
-    let (k, ln_det) = spd_inverse(&imp.sigma)?;
+/// Smallest share of an item's implied variance its error variance may have for Sigma to be
+/// inverted by the Woodbury identity (see `linalg::factor_model_inverse`).
+const WOODBURY_MIN_ERROR_SHARE: f64 = 1e-3;
+
+/// What `evaluate` needs besides the parameter values.
+struct Objective<'a> {
+    model: &'a SemModel,
+    layout: &'a ParamLayout,
+    s: &'a DMatrix<f64>,
+    ln_det_s: f64,
+    /// Theta is diagonal by the model's structure (no error covariance, free or fixed), so
+    /// Sigma may be inverted through the factor structure.
+    diagonal_errors: bool,
+}
+
+fn evaluate(obj: &Objective, values: &[f64]) -> Option<Point> {
+    let (model, s) = (obj.model, obj.s);
+    let mm = model.matrices(obj.layout, values);
+    let imp = implied(&mm).ok()?;
+    let factored = if obj.diagonal_errors && model.m() > 0 {
+        let theta: Vec<f64> = mm.theta.diagonal().iter().copied().collect();
+        let sigma_diagonal: Vec<f64> = imp.sigma.diagonal().iter().copied().collect();
+        factor_model_inverse(&mm.lambda, &imp.latent_cov, &theta, &sigma_diagonal, WOODBURY_MIN_ERROR_SHARE)
+    } else {
+        None
+    };
+    let (k, ln_det) = match factored {
+        Some(inverse) => inverse,
+        None => spd_inverse(&imp.sigma)?,
+    };
+    let ln_det_s = obj.ln_det_s;
     let trace: f64 = s.as_slice().iter().zip(k.as_slice()).map(|(a, b)| a * b).sum();
     let f = ln_det + trace - ln_det_s - s.nrows() as f64;
     f.is_finite().then_some(Point { f, imp, k })
@@ -207,7 +235,9 @@ pub fn fit(model: &SemModel, s: &DMatrix<f64>, n: usize, options: &FitOptions) -
         None => start_values(model, &layout, &s),
     };
     let derivs = Derivatives::new(&layout, p, model.m());
-    let mut point = evaluate(model, &layout, &values, &s, ln_det_s)
+    let diagonal_errors = (0..p).all(|i| (0..i).all(|j| model.param(Matrix::Theta, i, j).is_zero()));
+    let objective = Objective { model, layout: &layout, s: &s, ln_det_s, diagonal_errors };
+    let mut point = evaluate(&objective, &values)
         .ok_or_else(|| StatsError::Singular { what: "implied covariance matrix at the starting values".into() })?;
     let not_identified =
         || StatsError::Singular { what: "expected information matrix (the model may not be identified)".into() };
@@ -232,7 +262,7 @@ pub fn fit(model: &SemModel, s: &DMatrix<f64>, n: usize, options: &FitOptions) -
         let mut accepted = None;
         for _ in 0..40 {
             let trial: Vec<f64> = values.iter().zip(step.iter()).map(|(v, d)| v - alpha * d).collect();
-            if let Some(next) = evaluate(model, &layout, &trial, &s, ln_det_s) {
+            if let Some(next) = evaluate(&objective, &trial) {
                 // Armijo with a round-off allowance, so the last steps near the optimum are
                 // not refused for decreases below machine precision.
                 let allowance = 1e-13 * point.f.abs().max(1.0);
