@@ -122,13 +122,21 @@ impl CovarianceStep {
 /// Eigenvalues at or below this (relative to the matrix size) count as not positive definite.
 const EIGEN_TOLERANCE: f64 = 1e-10;
 
+/// Smallest eigenvalue of the correlation matrix and, when it is not clearly positive, the
+/// items of its eigenvector. Eigenvalues alone cost a fraction of the full decomposition (no
+/// eigenvector accumulation), which dominated this step for item banks of hundreds of items,
+/// so the eigenvectors are computed only for a matrix that needs the diagnosis.
 pub fn definiteness(correlation: &DMatrix<f64>, items: &[String]) -> Definiteness {
-    let eig = correlation.clone().symmetric_eigen();
-    let (imin, &min) = eig.eigenvalues.iter().enumerate().min_by(|a, b| a.1.total_cmp(b.1)).unwrap_or((0, &f64::NAN));
+    let smallest = |values: &nalgebra::DVector<f64>| {
+        values.iter().copied().enumerate().min_by(|a, b| a.1.total_cmp(&b.1)).unwrap_or((0, f64::NAN))
+    };
+    let (_, min) = smallest(&correlation.clone().symmetric_eigenvalues());
     let positive_definite = min > EIGEN_TOLERANCE * items.len().max(1) as f64;
     let involved = if positive_definite {
         Vec::new()
     } else {
+        let eig = correlation.clone().symmetric_eigen();
+        let (imin, _) = smallest(&eig.eigenvalues);
         let v = eig.eigenvectors.column(imin);
         let mut weights: Vec<(f64, &String)> = v.iter().map(|w| w.abs()).zip(items).filter(|(w, _)| *w > 0.2).collect();
         weights.sort_by(|a, b| b.0.total_cmp(&a.0));
