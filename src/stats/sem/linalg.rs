@@ -128,46 +128,46 @@ pub fn factor_model_inverse(
     Some((k, ln_det_theta + ln_det_c + ln_det_m))
 }
 
-/// X = L^-1 for a lower-triangular L with a non-zero diagonal, by blocks of `PANEL` rows
-/// (Golub & Van Loan 2013, sec. 3.1.4): X[B, ..i1] solves L[B, B] X[B, ..i1] = E[B, ..i1] -
-/// L[B, ..i0] X[..i0, ..i0], where the subtracted product is one matrix product and only the
-/// small triangular solve with L[B, B] is done entry by entry.
+/// Below this order `lower_inverse` substitutes column by column; above it, it splits.
+const RECURSION_BASE: usize = 32;
+
+/// X = L^-1 for a lower-triangular L with a non-zero diagonal. Recursive blocking (Higham 2002,
+/// sec. 14.2.2): for L = [L11 0; L21 L22], X = [X11 0; -X22 L21 X11  X22], so beyond the
+/// small diagonal blocks all the work is two matrix products per split, where plain forward
+/// substitution runs as short axpys.
 fn lower_inverse(l: &DMatrix<f64>) -> DMatrix<f64> {
     let n = l.nrows();
+    if n <= RECURSION_BASE {
+        return substituted_inverse(l);
+    }
+    let h = n / 2;
+    let x11 = lower_inverse(&l.view((0, 0), (h, h)).into_owned());
+    let x22 = lower_inverse(&l.view((h, h), (n - h, n - h)).into_owned());
+    let l21_x11 = l.view((h, 0), (n - h, h)) * &x11;
     let mut x = DMatrix::zeros(n, n);
-    let mut i0 = 0;
-    while i0 < n {
-        let i1 = (i0 + PANEL).min(n);
-        let nb = i1 - i0;
-        let mut rhs = DMatrix::zeros(nb, i1);
-        for k in 0..nb {
-            rhs[(k, i0 + k)] = 1.0;
-        }
-        if i0 > 0 {
-            if nb > SMALL_PRODUCT {
-                let known = x.view((0, 0), (i0, i0));
-                rhs.columns_mut(0, i0).gemm(-1.0, &l.view((i0, 0), (nb, i0)), &known, 1.0);
-            } else {
-                for c in 0..i0 {
-                    for k in 0..nb {
-                        rhs[(k, c)] -= (c..i0).map(|j| l[(i0 + k, j)] * x[(j, c)]).sum::<f64>();
-                    }
+    x.view_mut((h, 0), (n - h, h)).gemm(-1.0, &x22, &l21_x11, 0.0);
+    x.view_mut((0, 0), (h, h)).copy_from(&x11);
+    x.view_mut((h, h), (n - h, n - h)).copy_from(&x22);
+    x
+}
+
+/// L^-1 by forward substitution down contiguous columns (Golub & Van Loan 2013, alg. 3.1.3).
+fn substituted_inverse(l: &DMatrix<f64>) -> DMatrix<f64> {
+    let n = l.nrows();
+    let mut x = DMatrix::zeros(n, n);
+    let ls = l.as_slice();
+    for j in 0..n {
+        let col = &mut x.as_mut_slice()[j * n..(j + 1) * n];
+        col[j] = 1.0;
+        for k in j..n {
+            let xk = col[k] / ls[k * n + k];
+            col[k] = xk;
+            if xk != 0.0 {
+                for (xi, li) in col[k + 1..].iter_mut().zip(&ls[k * n + k + 1..(k + 1) * n]) {
+                    *xi -= xk * li;
                 }
             }
         }
-        // Rows of the diagonal block, contiguous, for the dot products of the small solve.
-        let rows: Vec<f64> =
-            (0..nb).flat_map(|k| (0..nb).map(move |j| (k, j))).map(|(k, j)| l[(i0 + k, i0 + j)]).collect();
-        for c in 0..i1 {
-            let col = &mut rhs.as_mut_slice()[c * nb..(c + 1) * nb];
-            for k in 0..nb {
-                let row = &rows[k * nb..k * nb + k];
-                let dot: f64 = row.iter().zip(&col[..k]).map(|(a, b)| a * b).sum();
-                col[k] = (col[k] - dot) / rows[k * nb + k];
-            }
-        }
-        x.view_mut((i0, 0), (nb, i1)).copy_from(&rhs);
-        i0 = i1;
     }
     x
 }
@@ -279,8 +279,8 @@ mod tests {
     #[test]
     fn inverse_from_the_blocked_factor_is_the_inverse_at_every_blocking() {
         // Definition of the inverse, at sizes that end on a full block, a tiny block (the loop
-        // path) and a partial one.
-        for n in [3, PANEL, PANEL + SMALL_PRODUCT, 60, 126] {
+        // path), a partial one, and sizes that recurse once and several times.
+        for n in [3, PANEL, PANEL + SMALL_PRODUCT, RECURSION_BASE + 1, 60, 126, 300] {
             let a = spd(n);
             let (inv, ln_det) = spd_inverse(&a).unwrap();
             assert!((&inv * &a - DMatrix::identity(n, n)).amax() < 1e-11, "n = {n}");
