@@ -261,7 +261,7 @@ impl Walker<'_> {
     fn value(&mut self, kind: u8, shape: Option<Shape>, depth: usize, in_field: bool) -> Result<(), FooterError> {
         match kind {
             1 | 2 if in_field => Ok(()),
-            1 | 2 | 3 => self.skip(1),
+            1..=3 => self.skip(1),
             4..=6 => {
                 let v = self.zigzag()?;
                 self.check_offset(v)
@@ -318,7 +318,7 @@ impl Walker<'_> {
     }
 
     fn check_offset(&self, v: i64) -> Result<(), FooterError> {
-        let is_offset = IN_FILE.iter().any(|p| *p == self.path.as_slice());
+        let is_offset = IN_FILE.contains(&self.path.as_slice());
         if is_offset && (v < 0 || v as u64 > self.file_len) {
             return Err(
                 self.fail(&format!("a column chunk offset or size {v} outside the file of {} bytes", self.file_len))
