@@ -37,6 +37,15 @@ step_medians() {
 peak_rss() {
   /usr/bin/time -v "$@" 2>&1 >/dev/null | awk -F': ' '/Maximum resident/ {printf "  peak RSS: %.0f MB\n", $2 / 1024}'
 }
+# construe_cov01 SPEC: the [0][1] covariance of the newest report of SPEC, to compare with the peer.
+construe_cov01() {
+  python3 - "$1" <<'PY'
+import glob, json, os, sys
+found = glob.glob(os.path.join(os.path.dirname(sys.argv[1]), "reports", "*", "v*", "results.json"))
+newest = max(found, key=os.path.getmtime)
+print(f"  construe cov[0,1] = {json.load(open(newest))['covariance']['covariance'][0][1]!r}")
+PY
+}
 # model NAME CLUSTERS PER DATA ANALYSES ROWS: simulate a chain-of-clusters data set and its spec.
 model() {
   python3 bench/make_model.py --clusters "$2" --per "$3" --data "$4" --analyses "$5" \
@@ -74,6 +83,7 @@ if want 3; then
   ls -l "$work/wide.parquet" | awk '{printf "  parquet file: %.0f MB; raw data %.0f MB\n", $5 / 1e6, '"$rows"' * 800 / 1e6}'
   step_medians "$work/wide.yaml" load covariance
   peak_rss "$bin" run "$work/wide.yaml" --no-cache
+  construe_cov01 "$work/wide.yaml"
   /usr/bin/time -v python3 bench/covariance_peer.py "$work/wide.parquet" --prefix x --repeat "$runs" 2>&1 |
     grep -E "numpy|shape|Maximum resident" | sed 's/^\s*/  peer: /'
   rm -f "$work/wide.parquet"
@@ -88,6 +98,7 @@ if want 4; then
     step_medians "$work/disc$items.yaml" covariance discover
     grep -E "^ *discover +computed" "$work/log" | tail -n 1 | sed 's/^ */  last run: /'
   done
+  construe_cov01 "$work/disc500.yaml"
   python3 bench/covariance_peer.py "$work/disc500.parquet" --prefix x --repeat "$runs" | sed 's/^/  peer (500 items): /'
 fi
 
