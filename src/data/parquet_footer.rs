@@ -37,7 +37,34 @@ enum Shape {
     Struct(&'static [(i16, Shape)]),
 }
 
+/// Thrift compact type codes by name, for messages.
+fn type_name(kind: u8) -> &'static str {
+    match kind {
+        1 | 2 => "a boolean",
+        3 => "a byte",
+        4..=6 => "an integer",
+        7 => "a double",
+        8 => "a string",
+        9 => "a list",
+        10 => "a set",
+        11 => "a map",
+        12 => "a struct",
+        _ => "an unknown type",
+    }
+}
+
 impl Shape {
+    fn name(self) -> &'static str {
+        match self {
+            Shape::I8 => "a byte",
+            Shape::Int => "an integer",
+            Shape::Bool => "a boolean",
+            Shape::Binary => "a string",
+            Shape::List(_) => "a list",
+            Shape::Struct(_) => "a struct",
+        }
+    }
+
     /// Whether compact type `kind` is how this shape is written.
     fn accepts(self, kind: u8) -> bool {
         match self {
@@ -247,7 +274,11 @@ impl Walker<'_> {
             last_id = id;
             let shape = fields.iter().find(|(f, _)| *f == id).map(|(_, s)| *s);
             if let Some(shape) = shape.filter(|s| !s.accepts(kind)) {
-                return Err(self.fail(&format!("field {id} has Thrift type {kind}, the format says {shape:?}")));
+                return Err(self.fail(&format!(
+                    "field {id} is {} where the Parquet format has {}",
+                    type_name(kind),
+                    shape.name()
+                )));
             }
             self.path.push(id);
             let result = self.value(kind, shape, depth, true);
@@ -283,7 +314,11 @@ impl Walker<'_> {
                     _ => None,
                 };
                 if let Some(e) = element_shape.filter(|e| n > 0 && !e.accepts(element)) {
-                    return Err(self.fail(&format!("list elements of Thrift type {element}, the format says {e:?}")));
+                    return Err(self.fail(&format!(
+                        "list elements are {} where the Parquet format has {}",
+                        type_name(element),
+                        e.name()
+                    )));
                 }
                 (0..n).try_for_each(|_| self.element(element, element_shape, depth))
             }
@@ -366,10 +401,12 @@ mod tests {
         // key_value_metadata (field 5) declared as a map: polars would read a list header from
         // the map's bytes (the fuzzed file that made it ask for 64 GB).
         let footer = [0x5b, 0x00, 0x00];
-        assert!(check_metadata(&footer, 1000).unwrap_err().0.contains("field 5 has Thrift type 11"));
+        let err = check_metadata(&footer, 1000).unwrap_err().0;
+        assert!(err.contains("field 5 is a map where the Parquet format has a list"), "{err}");
         // Schema elements (field 2) declared as a list of i32.
         let footer = [0x29, 0x15, 0x02, 0x00];
-        assert!(check_metadata(&footer, 1000).unwrap_err().0.contains("list elements"));
+        let err = check_metadata(&footer, 1000).unwrap_err().0;
+        assert!(err.contains("list elements are an integer where the Parquet format has a struct"), "{err}");
         // The same shapes with the right types pass: version 2 and an empty schema list.
         assert!(check_metadata(&[0x15, 0x04, 0x19, 0x0c, 0x00], 1000).is_ok());
     }
