@@ -16,7 +16,7 @@ use crate::stats::reliability::{cronbach_alpha, mcdonald_omega};
 use crate::stats::sem::{self, FitOptions, Matrix, ParameterKind, SemFit, SemModel};
 
 /// Bump when the fit changes for the same covariances, purification and parameters.
-pub const VERSION: u32 = 1;
+pub const VERSION: u32 = 2;
 
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct FitSummary {

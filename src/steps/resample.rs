@@ -19,7 +19,7 @@ use crate::data::Table;
 use crate::spec::types::ResampleSpec;
 
 /// Bump when bootstrap results change for the same inputs and parameters.
-pub const VERSION: u32 = 1;
+pub const VERSION: u32 = 2;
 
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct EdgeFrequency {

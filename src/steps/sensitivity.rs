@@ -21,7 +21,7 @@ use super::{Artifact, Inputs, Step, StepError, StepKind};
 use crate::spec::types::SensitivitySpec;
 
 /// Bump when sensitivity results change for the same inputs and parameters.
-pub const VERSION: u32 = 2;
+pub const VERSION: u32 = 3;
 
 /// A statement about the structure that a refit either repeats or contradicts.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]

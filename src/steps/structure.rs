@@ -18,7 +18,7 @@ use crate::stats::search::{
 use crate::stats::sem::{Matrix, ParameterKind};
 
 /// Bump when search or fit results change for the same measurement model and parameters.
-pub const VERSION: u32 = 1;
+pub const VERSION: u32 = 2;
 
 /// Class members fitted at most (the rest are counted, not fitted).
 const MAX_MEMBERS: usize = 8;
