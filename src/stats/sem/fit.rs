@@ -152,6 +152,9 @@ struct Point {
 /// inverted by the Woodbury identity (see `linalg::factor_model_inverse`).
 const WOODBURY_MIN_ERROR_SHARE: f64 = 1e-3;
 
+/// Below this scoring decrement, steps that shrink it tenfold reuse the information factor.
+const CHORD_BELOW: f64 = 1e-2;
+
 /// What `evaluate` needs besides the parameter values.
 struct Objective<'a> {
     model: &'a SemModel,
@@ -188,6 +191,9 @@ fn evaluate(obj: &Objective, values: &[f64]) -> Option<Point> {
 /// F = ln|Sigma| + tr(S Sigma^-1) - ln|S| - p over the free parameters by Fisher scoring, theta <- theta - alpha H^-1 g with
 /// H = E[d2F] = [tr(K dSigma_t K dSigma_u)] (Lee & Jennrich 1979). The step length alpha starts
 /// at 1 and is halved until F satisfies the Armijo condition and Sigma is positive definite.
+/// Near the optimum H's factor is reused across steps (chord steps) while each full step still
+/// shrinks the decrement tenfold; convergence is always confirmed, and the SEs taken, with the
+/// information at the final point, followed by one full scoring step.
 ///
 /// Why scoring rather than BFGS: H is needed anyway for the standard errors, the rank-two
 /// structure of dSigma makes it cost O(q^2) per step, it is positive definite wherever the
@@ -243,18 +249,39 @@ pub fn fit(model: &SemModel, s: &DMatrix<f64>, n: usize, options: &FitOptions) -
         || StatsError::Singular { what: "expected information matrix (the model may not be identified)".into() };
     let mut iterations = 0;
     let mut converged = false;
-    let (mut g, mut h) = derivs.gradient_and_hessian(&point.imp, &point.k, &s);
+    let information = |point: &Point| cholesky_lower(&derivs.hessian(&point.imp, &point.k)).ok_or_else(not_identified);
+    let mut g = derivs.gradient(&point.imp, &point.k, &s);
+    let mut factor = information(&point)?;
+    // Whether `factor` belongs to the current point (chord steps reuse an older one), and
+    // whether the last convergence test had to be repeated with a fresh factor.
+    let (mut fresh, mut rejudged) = (true, false);
     let mut decrement;
-    let mut factor;
+    let mut previous = f64::INFINITY;
     loop {
-        factor = cholesky_lower(&h).ok_or_else(not_identified)?;
         let step = cholesky_solve(&factor, &g);
         decrement = g.dot(&step);
-        if decrement <= options.tolerance {
-            converged = true;
-            break;
+        let stop = decrement <= options.tolerance || iterations >= options.max_iterations;
+        if stop && !fresh {
+            // Judge convergence, and take the SEs, from the information at this very point.
+            factor = information(&point)?;
+            (fresh, rejudged) = (true, true);
+            continue;
         }
-        if iterations >= options.max_iterations {
+        if stop {
+            converged = decrement <= options.tolerance;
+            if converged && rejudged {
+                // Chord steps converge linearly; one full scoring step with the fresh factor
+                // restores the accuracy of a scoring iteration at the optimum (quadratic for
+                // a model that fits exactly). The SEs keep that factor, one tiny step away.
+                let trial: Vec<f64> = values.iter().zip(step.iter()).map(|(v, d)| v - d).collect();
+                let allowance = 1e-13 * point.f.abs().max(1.0);
+                if let Some(next) = evaluate(&objective, &trial).filter(|next| next.f <= point.f + allowance) {
+                    iterations += 1;
+                    values = trial;
+                    point = next;
+                    g = derivs.gradient(&point.imp, &point.k, &s);
+                }
+            }
             break;
         }
         iterations += 1;
@@ -274,11 +301,28 @@ pub fn fit(model: &SemModel, s: &DMatrix<f64>, n: usize, options: &FitOptions) -
             alpha *= 0.5;
         }
         let Some((trial, next)) = accepted else {
-            break;
+            if fresh {
+                break;
+            }
+            // A stale factor may point badly: retry from this point with its own information.
+            factor = information(&point)?;
+            fresh = true;
+            continue;
         };
+        // Chord steps (Ortega & Rheinboldt 1970, sec. 7.1): close to the optimum, where full
+        // steps shrink the decrement tenfold or more, the information matrix barely changes,
+        // so its factor is kept and only the gradient is recomputed.
+        let reuse = alpha == 1.0 && decrement < CHORD_BELOW && decrement < 0.1 * previous;
+        previous = decrement;
         values = trial;
         point = next;
-        (g, h) = derivs.gradient_and_hessian(&point.imp, &point.k, &s);
+        g = derivs.gradient(&point.imp, &point.k, &s);
+        if reuse {
+            fresh = false;
+        } else {
+            factor = information(&point)?;
+            fresh = true;
+        }
     }
     let acov = inverse_from_factor(&factor) * (2.0 / (n as f64 - 1.0));
     let matrices = model.matrices(&layout, &values);
@@ -434,6 +478,6 @@ impl SemFit {
     pub fn gradient(&self, s: &DMatrix<f64>) -> Option<DVector<f64>> {
         let (k, _) = spd_inverse(&self.implied)?;
         let derivs = Derivatives::new(&self.layout, self.implied.nrows(), self.moments.latent_cov.nrows());
-        Some(derivs.gradient_and_hessian(&self.moments, &k, s).0)
+        Some(derivs.gradient(&self.moments, &k, s))
     }
 }

@@ -77,33 +77,47 @@ impl Derivatives {
         out
     }
 
+    /// U = [Lambda C | Lambda A], the non-identity columns of V.
+    fn u(&self, imp: &Implied) -> DMatrix<f64> {
+        let (p, m) = (self.p, self.m);
+        let mut u = DMatrix::zeros(p, 2 * m);
+        u.view_mut((0, 0), (p, m)).copy_from(&imp.lambda_c);
+        u.view_mut((0, m), (p, m)).copy_from(&imp.lambda_a);
+        u
+    }
+
     /// Gradient of F = ln|Sigma| + tr(S Sigma^-1) - ln|S| - p and the expected Hessian of F,
-    /// given K = Sigma^-1. dF/dtheta_t = tr(W dSigma_t) with W = K (Sigma - S) K (Joreskog 1969);
-    /// E[d2F/dtheta_t dtheta_u] = tr(K dSigma_t K dSigma_u) (Browne 1974), which for rank-two
-    /// terms is 2 c c' [(a'Kc)(b'Kd) + (a'Kd)(b'Kc)]. The Fisher information of the sample is
-    /// (n - 1)/2 times this matrix.
+    /// given K = Sigma^-1; see `gradient` and `hessian`.
     pub fn gradient_and_hessian(
         &self,
         imp: &Implied,
         k: &DMatrix<f64>,
         s: &DMatrix<f64>,
     ) -> (DVector<f64>, DMatrix<f64>) {
-        let (p, m) = (self.p, self.m);
-        let mut u = DMatrix::zeros(p, 2 * m);
-        u.view_mut((0, 0), (p, m)).copy_from(&imp.lambda_c);
-        u.view_mut((0, m), (p, m)).copy_from(&imp.lambda_a);
+        (self.gradient(imp, k, s), self.hessian(imp, k))
+    }
+
+    /// dF/dtheta_t = tr(W dSigma_t) with W = K (Sigma - S) K = K - K S K (Joreskog 1969).
+    pub fn gradient(&self, imp: &Implied, k: &DMatrix<f64>, s: &DMatrix<f64>) -> DVector<f64> {
         let w = k - k * s * k;
-        let vkv = self.sandwich(k, &u);
-        let vwv = self.sandwich(&w, &u);
-        let q = self.len();
-        let mut g = DVector::zeros(q);
+        let vwv = self.sandwich(&w, &self.u(imp));
+        let mut g = DVector::zeros(self.len());
         for (t, terms) in self.terms.iter().enumerate() {
             g[t] = terms.iter().map(|x| 2.0 * x.coef * vwv[(x.a, x.b)]).sum();
         }
+        g
+    }
+
+    /// E[d2F/dtheta_t dtheta_u] = tr(K dSigma_t K dSigma_u) (Browne 1974), which for rank-two
+    /// terms is 2 c c' [(a'Kc)(b'Kd) + (a'Kd)(b'Kc)]. The Fisher information of the sample is
+    /// (n - 1)/2 times this matrix.
+    pub fn hessian(&self, imp: &Implied, k: &DMatrix<f64>) -> DMatrix<f64> {
+        let vkv = self.sandwich(k, &self.u(imp));
+        let q = self.len();
         let mut h = DMatrix::zeros(q, q);
         if self.terms.iter().all(|x| x.len() == 1) {
             single_term_hessian(&self.terms, &vkv, &mut h);
-            return (g, h);
+            return h;
         }
         for t in 0..q {
             for u in 0..=t {
@@ -120,7 +134,7 @@ impl Derivatives {
                 h[(u, t)] = sum;
             }
         }
-        (g, h)
+        h
     }
 }
 
