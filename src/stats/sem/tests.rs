@@ -279,20 +279,25 @@ fn cfa_60_items_timing() {
     let case: Value = serde_json::from_str(include_str!("../../../tests/reference/sem/cfa60x4.json")).unwrap();
     let s = matrix(&case["cov"]);
     let model = build_model(&case["model"]);
-    let reps = 20;
-    let t0 = std::time::Instant::now();
+    // Each fit timed alone: the median resists the shared machine's spikes, and the best of
+    // the runs is comparable with the peer's "best of".
+    let mut times = Vec::new();
     let mut iterations = 0;
-    for _ in 0..reps {
+    for _ in 0..41 {
+        let t0 = std::time::Instant::now();
         let fit = model.fit(&s, 1000, &FitOptions::default()).unwrap();
+        times.push(t0.elapsed().as_secs_f64());
         assert!(fit.converged);
         iterations = fit.iterations;
     }
-    let per_fit = t0.elapsed().as_secs_f64() / reps as f64;
+    times.sort_by(f64::total_cmp);
+    let (median, best) = (times[times.len() / 2], times[0]);
     println!(
-        "cfa 60 items x 4 factors: {:.2} ms per fit ({iterations} scoring steps, incl. SEs and indices)",
-        per_fit * 1e3
+        "cfa 60 items x 4 factors: {:.2} ms per fit (median of 41; best {:.2} ms; {iterations} scoring steps, incl. SEs and indices)",
+        median * 1e3,
+        best * 1e3
     );
-    assert!(per_fit < 0.05);
+    assert!(median < 0.05);
 }
 
 #[test]
