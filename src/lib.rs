@@ -5,6 +5,7 @@
 pub mod app;
 pub mod cli;
 pub mod data;
+pub mod fsguard;
 pub mod pipeline;
 pub mod report;
 pub mod spec;
