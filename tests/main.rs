@@ -3,6 +3,7 @@
 
 mod harness;
 
+mod audit;
 mod caching;
 mod check;
 mod coverage;

@@ -54,7 +54,14 @@ pub fn run(path: &Path, cache: &Cache, log: &mut dyn Log) -> Result<RunSummary, 
     manifest.spec.from_report =
         super::verify::relative_path(&root, &spec.path).map(|r| Path::new("..").join(r).display().to_string());
     let mut context = report_context(&spec, &execution, &results);
-    let outcome = write_version(&root, &mut manifest, &results, &mut context, &spec.spec.report.formats)?;
+    let mut warnings = Vec::new();
+    let outcome = write_version(&root, &mut manifest, &results, &mut context, &spec.spec.report.formats, &mut |w| {
+        warnings.push(w)
+    });
+    for w in &warnings {
+        log.warn(w);
+    }
+    let outcome = outcome?;
     let cached = execution.outcomes.iter().filter(|o| o.cached).count();
     Ok(RunSummary { outcome, computed: execution.outcomes.len() - cached, cached })
 }
@@ -69,7 +76,7 @@ pub fn results_json(execution: &Execution) -> Value {
     Value::Object(map)
 }
 
-fn spec_info(spec: &SpecFile) -> SpecInfo {
+pub(crate) fn spec_info(spec: &SpecFile) -> SpecInfo {
     let content = serde_json::to_value(&spec.spec).unwrap_or(Value::Null);
     SpecInfo {
         path: spec.path.display().to_string(),
@@ -80,18 +87,18 @@ fn spec_info(spec: &SpecFile) -> SpecInfo {
 }
 
 /// What besides the steps shapes the written report: the formats, and the truth model's bytes.
-fn report_settings(spec: &SpecFile) -> Value {
+pub(crate) fn report_settings(spec: &SpecFile) -> Value {
     let truth = spec
         .spec
         .report
         .truth_model
         .as_ref()
-        .and_then(|p| std::fs::read(spec.resolve(p)).ok())
+        .and_then(|p| crate::fsguard::read_regular(&spec.resolve(p), crate::fsguard::MAX_TEXT_BYTES).ok())
         .map(|b| Key::of_bytes(&b).hex());
     serde_json::json!({"formats": spec.spec.report.formats, "truth_model": truth})
 }
 
-fn seeds(spec: &SpecFile) -> BTreeMap<String, u64> {
+pub(crate) fn seeds(spec: &SpecFile) -> BTreeMap<String, u64> {
     let a = &spec.spec.analyses;
     let mut seeds = BTreeMap::new();
     if let Some(s) = &a.sensitivity {

@@ -79,7 +79,9 @@ pub fn execute(plan: &Plan, cache: &Cache, mut observe: impl FnMut(Event<'_>)) -
             kind,
             key: planned.key,
             cached: was_cached,
-            seconds: started.elapsed().as_secs_f64(),
+            // Milliseconds: the manifest records this and the report shows it, and a short
+            // decimal reads back exactly, so `verify` re-renders the same report.
+            seconds: (started.elapsed().as_secs_f64() * 1000.0).round() / 1000.0,
             artifact_hash,
             description: planned.step.describe(&artifact),
         };

@@ -1,7 +1,8 @@
 //! The audit trail of one report version: tool, spec, input files, every step's key and
 //! artifact hash, whether it was cached, its time, and the seeds. Central type: `Manifest`.
-//! `fingerprint` covers only what determines the results (not times or cache hits), so an
-//! identical rerun is recognised and writes no new version.
+//! `fingerprint` covers only what determines the results (not times, cache hits, the folder
+//! shown or the previous version), so an identical rerun is recognised and writes no new version.
+//! `files` holds the hash of every other published file, so an edited report shows in `verify`.
 
 use std::collections::BTreeMap;
 
@@ -54,6 +55,16 @@ pub struct StepInfo {
     pub seconds: f64,
 }
 
+/// The version a report compares itself with ("changes since the previous version").
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct PreviousVersion {
+    pub version: u32,
+    pub fingerprint: Key,
+}
+
+/// The manifest layout `verify` can check; older manifests are refused with a hint to rerun.
+pub const MANIFEST_FORMAT: u32 = 2;
+
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct Manifest {
     pub manifest_format: u32,
@@ -65,6 +76,15 @@ pub struct Manifest {
     pub steps: Vec<StepInfo>,
     pub seeds: BTreeMap<String, u64>,
     pub fingerprint: Key,
+    /// The version folder as the run showed it (the `construe verify` line in the report).
+    #[serde(default)]
+    pub report_dir: String,
+    /// The version this one was compared with, if any.
+    #[serde(default)]
+    pub previous: Option<PreviousVersion>,
+    /// BLAKE3 of every other file published in the version folder, by name.
+    #[serde(default)]
+    pub files: BTreeMap<String, Key>,
 }
 
 impl Manifest {
@@ -102,15 +122,8 @@ impl Manifest {
             platform: format!("{}-{}", std::env::consts::ARCH, std::env::consts::OS),
             threads: rayon::current_num_threads(),
         };
-        let fingerprint = Key::of_json(&json!({
-            "tool": tool.version,
-            "spec": spec.content_hash,
-            "report": report_settings,
-            "inputs": inputs.iter().map(|i| json!([i.wave, i.blake3])).collect::<Vec<_>>(),
-            "steps": steps.iter().map(|s| json!([s.kind, s.key, s.artifact])).collect::<Vec<_>>(),
-        }));
-        Manifest {
-            manifest_format: 1,
+        let mut manifest = Manifest {
+            manifest_format: MANIFEST_FORMAT,
             tool,
             created: now_utc(),
             report_version: 0,
@@ -118,9 +131,26 @@ impl Manifest {
             inputs,
             steps,
             seeds,
-            fingerprint,
-        }
+            fingerprint: Key([0; 32]),
+            report_dir: String::new(),
+            previous: None,
+            files: BTreeMap::new(),
+        };
+        manifest.fingerprint = fingerprint(&manifest, &report_settings);
+        manifest
     }
+}
+
+/// What determines a version's results: tool version, parsed spec, report settings, input
+/// hashes, each step's key and artifact hash. Not times, cache hits, folders or file hashes.
+pub fn fingerprint(m: &Manifest, report_settings: &Value) -> Key {
+    Key::of_json(&json!({
+        "tool": m.tool.version,
+        "spec": m.spec.content_hash,
+        "report": report_settings,
+        "inputs": m.inputs.iter().map(|i| json!([i.wave, i.blake3])).collect::<Vec<_>>(),
+        "steps": m.steps.iter().map(|s| json!([s.kind, s.key, s.artifact])).collect::<Vec<_>>(),
+    }))
 }
 
 /// The current time as an RFC 3339 UTC timestamp (civil-from-days, Hinnant 2013).

@@ -1,7 +1,8 @@
 //! The report: results.json, manifest.json, report.html and report.md for one version, written
 //! to `<report.dir>/<slug>/v<N>/`. Central function: `write_version`. A version folder appears
 //! whole or not at all (built under a hidden temporary name, then renamed); an identical
-//! rerun (same manifest fingerprint as the latest version) writes nothing.
+//! rerun (same manifest fingerprint as the latest version) writes nothing. `render_files` and
+//! `complete_context` are shared with `verify`, which renders every file again and compares.
 
 pub mod diagram;
 pub mod diff;
@@ -14,7 +15,8 @@ use minijinja::{Environment, Value as TemplateValue};
 use serde_json::{Value, json};
 use thiserror::Error;
 
-use crate::pipeline::manifest::Manifest;
+use crate::pipeline::key::Key;
+use crate::pipeline::manifest::{Manifest, PreviousVersion};
 use crate::spec::types::ReportFormat;
 
 pub use versions::{WriteOutcome, slug};
@@ -83,14 +85,71 @@ pub fn render(format: ReportFormat, context: &Value) -> Result<String, ReportErr
         .map_err(|source| ReportError::Template { name: name.into(), source })
 }
 
+/// The files of a version besides the manifest, rendered from the results and the completed
+/// context: `results.json` first, then one file per format. `verify` renders them again and
+/// compares bytes.
+pub fn render_files(
+    results: &Value,
+    context: &Value,
+    formats: &[ReportFormat],
+) -> Result<Vec<(&'static str, String)>, ReportError> {
+    let mut files = vec![("results.json", pretty(results))];
+    for format in formats {
+        let name = match format {
+            ReportFormat::Html => "report.html",
+            ReportFormat::Markdown => "report.md",
+        };
+        if files.iter().all(|(n, _)| *n != name) {
+            files.push((name, render(*format, context)?));
+        }
+    }
+    Ok(files)
+}
+
+/// Adds what the report shows about its own version to the context built from the results:
+/// number, folder, manifest, spec path as recorded, and the changes since `previous`
+/// (its number, results.json and manifest). `run` and `verify` both call this.
+pub fn complete_context(
+    context: &mut Value,
+    manifest: &Manifest,
+    results: &Value,
+    previous: Option<(u32, &Value, &Manifest)>,
+) {
+    let Value::Object(map) = context else { return };
+    // The files' hashes are added after rendering; leave them out so run and verify agree.
+    let manifest = &Manifest { files: Default::default(), ..manifest.clone() };
+    map.insert("version".into(), Value::from(manifest.report_version));
+    map.insert("report_dir".into(), Value::String(manifest.report_dir.clone()));
+    map.insert("spec_path".into(), Value::String(manifest.spec.path.clone()));
+    map.insert("manifest".into(), serde_json::to_value(manifest).unwrap_or(Value::Null));
+    if let Some((n, old_results, old_manifest)) = previous {
+        let old = serde_json::to_value(old_manifest).unwrap_or(Value::Null);
+        let new = serde_json::to_value(manifest).unwrap_or(Value::Null);
+        let changes = diff::diff(old_results, &old, results, &new);
+        map.insert(
+            "changes".into(),
+            json!({"from": format!("v{n}"), "sections": changes.sections, "empty": changes.is_empty()}),
+        );
+    }
+}
+
+/// results.json of a published version, if it is there and parses.
+pub fn read_results(dir: &Path) -> Option<Value> {
+    let text = crate::fsguard::read_regular_text(&dir.join("results.json"), crate::fsguard::MAX_TEXT_BYTES).ok()?;
+    serde_json::from_str(&text).ok()
+}
+
 /// Writes a new version under `root` (the spec's `<report.dir>/<slug>`) unless the latest
-/// version has the same fingerprint. `context` is completed with the version number.
+/// sound version has the same fingerprint. `shown_root` is `root` as the user should see it.
+/// Damaged or stray `v<N>` entries are skipped with a warning through `warn`, never trusted
+/// and never overwritten.
 pub fn write_version(
     root: &Path,
     manifest: &mut Manifest,
     results: &Value,
     context: &mut Value,
     formats: &[ReportFormat],
+    warn: &mut dyn FnMut(String),
 ) -> Result<WriteOutcome, ReportError> {
     let io = |action: &'static str, path: &Path| {
         let path = path.to_path_buf();
@@ -98,62 +157,55 @@ pub fn write_version(
     };
     std::fs::create_dir_all(root).map_err(io("create report folder", root))?;
     versions::remove_stale_partials(root);
-    let existing = versions::latest(root);
-    if let Some((n, latest)) = &existing
+    let survey = versions::survey(root);
+    for (name, reason) in &survey.skipped {
+        warn(format!("skipping `{}`: {reason}", root.join(name).display()));
+    }
+    if let Some((n, latest)) = &survey.latest
         && latest.fingerprint == manifest.fingerprint
     {
         return Ok(WriteOutcome::Unchanged { version: *n, dir: root.join(format!("v{n}")) });
     }
-    let previous = existing.as_ref().map(|(n, m)| (*n, m.clone()));
-    let version = existing.map_or(1, |(n, _)| n + 1);
+    let version = survey.highest.checked_add(1).ok_or_else(|| ReportError::Io {
+        action: "number a new version in",
+        path: root.to_path_buf(),
+        source: std::io::Error::other("version numbers are exhausted"),
+    })?;
     manifest.report_version = version;
     let final_dir = root.join(format!("v{version}"));
-    if let Value::Object(map) = context {
-        map.insert("version".into(), Value::from(version));
-        map.insert("report_dir".into(), Value::String(final_dir.display().to_string()));
-        map.insert("manifest".into(), serde_json::to_value(&*manifest).unwrap_or(Value::Null));
-        if let Some((n, old_manifest)) = &previous {
-            let old_results = std::fs::read_to_string(root.join(format!("v{n}")).join("results.json"))
-                .ok()
-                .and_then(|t| serde_json::from_str::<Value>(&t).ok())
-                .unwrap_or(Value::Null);
-            let old = serde_json::to_value(old_manifest).unwrap_or(Value::Null);
-            let new = serde_json::to_value(&*manifest).unwrap_or(Value::Null);
-            let changes = diff::diff(&old_results, &old, results, &new);
-            map.insert(
-                "changes".into(),
-                json!({"from": format!("v{n}"), "sections": changes.sections, "empty": changes.is_empty()}),
-            );
-        }
-    }
+    manifest.report_dir = final_dir.display().to_string();
+    let previous = survey.latest.as_ref().and_then(|(n, m)| {
+        let old_results = read_results(&root.join(format!("v{n}")))?;
+        Some((*n, old_results, m))
+    });
+    manifest.previous = previous.as_ref().map(|(n, _, m)| PreviousVersion { version: *n, fingerprint: m.fingerprint });
+    complete_context(context, manifest, results, previous.as_ref().map(|(n, r, m)| (*n, r, *m)));
+    let files = render_files(results, context, formats)?;
     let staging =
         tempfile::Builder::new().prefix(".partial-v").tempdir_in(root).map_err(io("create staging folder in", root))?;
-    let write = |name: &str, text: &str| {
+    for (name, text) in &files {
         let path = staging.path().join(name);
-        std::fs::write(&path, text).map_err(io("write", &path))
-    };
-    write("results.json", &pretty(results))?;
-    for format in formats {
-        let text = render(*format, context)?;
-        match format {
-            ReportFormat::Html => write("report.html", &text)?,
-            ReportFormat::Markdown => write("report.md", &text)?,
-        }
+        std::fs::write(&path, text).map_err(io("write", &path))?;
+        manifest.files.insert((*name).to_string(), Key::of_bytes(text.as_bytes()));
     }
     // The manifest goes last: a version folder with a manifest is complete.
-    write("manifest.json", &pretty(&serde_json::to_value(&*manifest).unwrap_or(Value::Null)))?;
-    let staged = staging.keep();
+    let manifest_path = staging.path().join("manifest.json");
+    std::fs::write(&manifest_path, pretty(&serde_json::to_value(&*manifest).unwrap_or(Value::Null)))
+        .map_err(io("write", &manifest_path))?;
     // Staging folders are private (0700); a published version is an ordinary folder.
     #[cfg(unix)]
     {
         use std::os::unix::fs::PermissionsExt;
-        let _ = std::fs::set_permissions(&staged, std::fs::Permissions::from_mode(0o755));
+        let _ = std::fs::set_permissions(staging.path(), std::fs::Permissions::from_mode(0o755));
     }
-    std::fs::rename(&staged, &final_dir).map_err(io("publish report folder", &final_dir))?;
+    // `final_dir` is numbered past every entry, so the rename cannot replace a version; if it
+    // fails anyway, the staging folder is dropped (removed) rather than left behind.
+    std::fs::rename(staging.path(), &final_dir).map_err(io("publish report folder", &final_dir))?;
+    let _ = staging.keep();
     Ok(WriteOutcome::Written { version, dir: final_dir })
 }
 
-fn pretty(v: &Value) -> String {
+pub fn pretty(v: &Value) -> String {
     let mut s = serde_json::to_string_pretty(v).unwrap_or_default();
     s.push('\n');
     s

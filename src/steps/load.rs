@@ -82,7 +82,7 @@ struct Envelope {
 }
 
 impl LoadOutput {
-    /// `u64 length || JSON(summary, matrix) || table bytes`.
+    /// `u64 length || postcard(summary, matrix) || table bytes` (exact, see `steps::write_exact`).
     pub fn encode(&self) -> Vec<u8> {
         let mut out = Vec::new();
         self.write_to(&mut out).unwrap_or_default();
@@ -91,8 +91,8 @@ impl LoadOutput {
 
     /// Writes `encode`'s bytes without building them in memory first.
     pub fn write_to(&self, out: &mut dyn std::io::Write) -> std::io::Result<()> {
-        let head = serde_json::to_vec(&Envelope { summary: self.summary.clone(), matrix: self.matrix.clone() })
-            .unwrap_or_default();
+        let mut head = Vec::new();
+        super::write_exact(&mut head, &Envelope { summary: self.summary.clone(), matrix: self.matrix.clone() })?;
         out.write_all(&(head.len() as u64).to_le_bytes())?;
         out.write_all(&head)?;
         match &self.table {
@@ -104,7 +104,7 @@ impl LoadOutput {
     pub fn decode(bytes: &[u8]) -> Option<LoadOutput> {
         let (len, rest) = bytes.split_first_chunk::<8>()?;
         let len = usize::try_from(u64::from_le_bytes(*len)).ok()?;
-        let env: Envelope = serde_json::from_slice(rest.get(..len)?).ok()?;
+        let env: Envelope = super::read_exact(rest.get(..len)?)?;
         let tail = rest.get(len..)?;
         let table = if tail.is_empty() { None } else { Some(Table::from_bytes(tail)?) };
         Some(LoadOutput { summary: env.summary, table, matrix: env.matrix })

@@ -98,9 +98,21 @@ pub enum Artifact {
     Sensitivity(Box<SensitivityOutput>),
 }
 
-/// The JSON artifacts' encoding: serde_json's compact form, written as it is produced.
-fn write_json<T: Serialize>(out: &mut dyn std::io::Write, value: &T) -> std::io::Result<()> {
-    serde_json::to_writer(out, value).map_err(std::io::Error::other)
+/// The artifacts' byte encoding: postcard (serde, compact, little-endian). Every `f64` is
+/// written as its IEEE 754 bits, so decode(encode(x)) is x bit for bit, NaN payloads, signed
+/// zeros and subnormals included. A step computed from a cached input therefore sees exactly
+/// what a fresh run sees (issue 13: text floats read back one unit in the last place off, and
+/// `verify` rejected genuine reports).
+pub fn write_exact<T: Serialize>(out: &mut dyn std::io::Write, value: &T) -> std::io::Result<()> {
+    postcard::to_io(value, out).map(|_| ()).map_err(std::io::Error::other)
+}
+
+/// Reads what `write_exact` wrote; `None` unless the bytes are exactly one value of `T`.
+pub fn read_exact<T: serde::de::DeserializeOwned>(bytes: &[u8]) -> Option<T> {
+    match postcard::take_from_bytes(bytes) {
+        Ok((value, [])) => Some(value),
+        _ => None,
+    }
 }
 
 impl Artifact {
@@ -114,13 +126,13 @@ impl Artifact {
     pub fn write_to(&self, out: &mut dyn std::io::Write) -> std::io::Result<()> {
         match self {
             Artifact::Load(a) => a.write_to(out),
-            Artifact::Covariance(a) => write_json(out, a.as_ref()),
-            Artifact::Purify(a) => write_json(out, a.as_ref()),
-            Artifact::Discover(a) => write_json(out, a.as_ref()),
-            Artifact::Measure(a) => write_json(out, a.as_ref()),
-            Artifact::Structure(a) => write_json(out, a.as_ref()),
-            Artifact::Resample(a) => write_json(out, a.as_ref()),
-            Artifact::Sensitivity(a) => write_json(out, a.as_ref()),
+            Artifact::Covariance(a) => write_exact(out, a.as_ref()),
+            Artifact::Purify(a) => write_exact(out, a.as_ref()),
+            Artifact::Discover(a) => write_exact(out, a.as_ref()),
+            Artifact::Measure(a) => write_exact(out, a.as_ref()),
+            Artifact::Structure(a) => write_exact(out, a.as_ref()),
+            Artifact::Resample(a) => write_exact(out, a.as_ref()),
+            Artifact::Sensitivity(a) => write_exact(out, a.as_ref()),
         }
     }
 
@@ -128,13 +140,13 @@ impl Artifact {
     pub fn decode(kind: StepKind, bytes: &[u8]) -> Option<Artifact> {
         match kind {
             StepKind::Load => LoadOutput::decode(bytes).map(|a| Artifact::Load(Box::new(a))),
-            StepKind::Covariance => serde_json::from_slice(bytes).ok().map(|a| Artifact::Covariance(Box::new(a))),
-            StepKind::Purify => serde_json::from_slice(bytes).ok().map(|a| Artifact::Purify(Box::new(a))),
-            StepKind::Discover => serde_json::from_slice(bytes).ok().map(|a| Artifact::Discover(Box::new(a))),
-            StepKind::Measure => serde_json::from_slice(bytes).ok().map(|a| Artifact::Measure(Box::new(a))),
-            StepKind::Structure => serde_json::from_slice(bytes).ok().map(|a| Artifact::Structure(Box::new(a))),
-            StepKind::Resample => serde_json::from_slice(bytes).ok().map(|a| Artifact::Resample(Box::new(a))),
-            StepKind::Sensitivity => serde_json::from_slice(bytes).ok().map(|a| Artifact::Sensitivity(Box::new(a))),
+            StepKind::Covariance => read_exact(bytes).map(|a| Artifact::Covariance(Box::new(a))),
+            StepKind::Purify => read_exact(bytes).map(|a| Artifact::Purify(Box::new(a))),
+            StepKind::Discover => read_exact(bytes).map(|a| Artifact::Discover(Box::new(a))),
+            StepKind::Measure => read_exact(bytes).map(|a| Artifact::Measure(Box::new(a))),
+            StepKind::Structure => read_exact(bytes).map(|a| Artifact::Structure(Box::new(a))),
+            StepKind::Resample => read_exact(bytes).map(|a| Artifact::Resample(Box::new(a))),
+            StepKind::Sensitivity => read_exact(bytes).map(|a| Artifact::Sensitivity(Box::new(a))),
         }
     }
 
@@ -251,4 +263,95 @@ pub fn analysis_steps(spec: &SpecFile) -> Vec<Box<dyn Step>> {
         steps.push(Box::new(StructureStep::from_spec(spec, st)));
     }
     steps
+}
+
+#[cfg(test)]
+mod tests {
+    use super::{read_exact, write_exact};
+    use indexmap::IndexMap;
+    use rand::{Rng, SeedableRng};
+    use serde::{Deserialize, Serialize};
+
+    /// The shapes artifacts are made of: plain, optional, nested and keyed floats.
+    #[derive(Debug, Serialize, Deserialize)]
+    struct Shape {
+        plain: f64,
+        optional: Option<f64>,
+        rows: Vec<Vec<f64>>,
+        named: IndexMap<String, f64>,
+        pair: (f64, Option<f64>),
+    }
+
+    fn bits(v: &[f64]) -> Vec<u64> {
+        v.iter().map(|x| x.to_bits()).collect()
+    }
+
+    fn extremes() -> Vec<f64> {
+        vec![
+            0.0,
+            -0.0,
+            1.0,
+            f64::MIN_POSITIVE,
+            f64::MIN_POSITIVE / 2.0, // subnormal
+            f64::from_bits(1),       // smallest subnormal
+            f64::MAX,
+            f64::MIN,
+            f64::EPSILON,
+            f64::INFINITY,
+            f64::NEG_INFINITY,
+            f64::NAN,
+            f64::from_bits(0x7ff8_0000_dead_beef), // NaN with a payload
+            f64::from_bits(0xfff0_0000_0000_0001), // signalling negative NaN
+            0.1 + 0.2,
+            1.0 / 3.0,
+        ]
+    }
+
+    /// decode(encode(x)) == x bit for bit, for extreme values and 20,000 random bit patterns.
+    #[test]
+    fn exact_encoding_round_trips_every_float_bit_for_bit() {
+        let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(13);
+        let mut values = extremes();
+        values.extend((0..20_000).map(|_| f64::from_bits(rng.random::<u64>())));
+        values.extend((0..5_000).map(|_| rng.random::<f64>() * 2.0 - 1.0));
+        for chunk in values.chunks(17) {
+            let shape = Shape {
+                plain: chunk[0],
+                optional: chunk.get(1).copied(),
+                rows: chunk.chunks(4).map(<[f64]>::to_vec).collect(),
+                named: chunk.iter().enumerate().map(|(i, v)| (format!("item{i}"), *v)).collect(),
+                pair: (chunk[chunk.len() - 1], None),
+            };
+            let mut bytes = Vec::new();
+            write_exact(&mut bytes, &shape).unwrap();
+            let back: Shape = read_exact(&bytes).unwrap();
+            assert_eq!(shape.plain.to_bits(), back.plain.to_bits());
+            assert_eq!(shape.optional.map(f64::to_bits), back.optional.map(f64::to_bits));
+            assert_eq!(
+                shape.rows.iter().map(|r| bits(r)).collect::<Vec<_>>(),
+                back.rows.iter().map(|r| bits(r)).collect::<Vec<_>>()
+            );
+            assert_eq!(
+                bits(&shape.named.values().copied().collect::<Vec<_>>()),
+                bits(&back.named.values().copied().collect::<Vec<_>>())
+            );
+            assert_eq!(shape.named.keys().collect::<Vec<_>>(), back.named.keys().collect::<Vec<_>>());
+            assert_eq!(shape.pair.0.to_bits(), back.pair.0.to_bits());
+            // Encoding is deterministic: the same value gives the same bytes (the manifest hashes them).
+            let mut again = Vec::new();
+            write_exact(&mut again, &back).unwrap();
+            assert_eq!(bytes, again);
+        }
+    }
+
+    #[test]
+    fn trailing_or_truncated_bytes_are_refused() {
+        let mut bytes = Vec::new();
+        write_exact(&mut bytes, &vec![1.5f64, 2.5]).unwrap();
+        assert!(read_exact::<Vec<f64>>(&bytes).is_some());
+        let mut longer = bytes.clone();
+        longer.push(0);
+        assert!(read_exact::<Vec<f64>>(&longer).is_none());
+        assert!(read_exact::<Vec<f64>>(&bytes[..bytes.len() - 1]).is_none());
+    }
 }
