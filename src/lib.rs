@@ -9,5 +9,5 @@ pub mod fsguard;
 pub mod pipeline;
 pub mod report;
 pub mod spec;
-pub mod stats;
+pub use construe_stats as stats;
 pub mod steps;

@@ -7,8 +7,8 @@ use crate::pipeline::executor::Execution;
 use crate::report::diagram::{Link, Node, diagram};
 use crate::report::svg::heatmap;
 use crate::spec::SpecFile;
-use crate::stats::simulate::SimulationModel;
 use crate::steps::{Artifact, StepKind};
+use construe_stats::simulate::SimulationModel;
 
 pub fn report_context(spec: &SpecFile, execution: &Execution, results: &Value) -> Value {
     let s = &spec.spec;

@@ -11,8 +11,8 @@ use super::Exit;
 use crate::data::FileKind;
 use crate::spec::positions::Position;
 use crate::spec::{Diagnostic, Report};
-use crate::stats::StatsError;
-use crate::stats::simulate::{ConstantValue, SimulatedTable, SimulationModel};
+use construe_stats::StatsError;
+use construe_stats::simulate::{ConstantValue, SimulatedTable, SimulationModel};
 
 #[derive(Debug, Error)]
 pub enum SimulateError {

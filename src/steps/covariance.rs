@@ -12,10 +12,10 @@ use super::load::{ItemKind, LoadOutput};
 use super::{Artifact, Inputs, Step, StepError, StepKind};
 use crate::data::Table;
 use crate::spec::types::{CovarianceSpec, MatrixKind, Missing, OrdinalEstimation};
-use crate::stats::mixed::{self, Column, mixed_correlation};
-use crate::stats::moments::{Deletion, pearson_columns};
-use crate::stats::polychoric::OrdinalFit;
-use crate::stats::smoothing::smooth_correlation;
+use construe_stats::mixed::{self, Column, mixed_correlation};
+use construe_stats::moments::{Deletion, pearson_columns};
+use construe_stats::polychoric::OrdinalFit;
+use construe_stats::smoothing::smooth_correlation;
 
 /// Bump when the matrices change for the same loaded data and parameters.
 /// v2: polychoric / polyserial correlations for ordinal items, smoothing. v3: all-continuous
@@ -343,9 +343,9 @@ fn pair_key(items: &[String], a: usize, b: usize) -> String {
 }
 
 /// Names the items of a failing pair instead of their column indices.
-fn pair_context(items: &[String], e: &crate::stats::StatsError) -> String {
+fn pair_context(items: &[String], e: &construe_stats::StatsError) -> String {
     match e {
-        crate::stats::StatsError::Pair { first, second, .. } => {
+        construe_stats::StatsError::Pair { first, second, .. } => {
             format!(
                 "the correlation of `{}` and `{}`",
                 items.get(*first).map_or("?", String::as_str),

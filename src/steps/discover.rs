@@ -8,8 +8,8 @@ use serde_json::{Value, json};
 use super::purify::{complete_rows, tetrad_kind};
 use super::{Artifact, Inputs, Step, StepError, StepKind};
 use crate::spec::types::{DiscoverSpec, ItemPool, TetradTest};
-use crate::stats::cluster::{ClusterOptions, find_clusters};
-use crate::stats::tetrad::TetradTester;
+use construe_stats::cluster::{ClusterOptions, find_clusters};
+use construe_stats::tetrad::TetradTester;
 
 /// Bump when clusters change for the same covariances and parameters.
 pub const VERSION: u32 = 1;

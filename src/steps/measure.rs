@@ -11,9 +11,9 @@ use serde_json::{Value, json};
 use super::{Artifact, Inputs, Step, StepError, StepKind};
 use crate::spec::SpecFile;
 use crate::spec::types::{Identification, MeasureSpec};
-use crate::stats::StatsError;
-use crate::stats::reliability::{cronbach_alpha, mcdonald_omega};
-use crate::stats::sem::{self, FitOptions, Matrix, ParameterKind, SemFit, SemModel};
+use construe_stats::StatsError;
+use construe_stats::reliability::{cronbach_alpha, mcdonald_omega};
+use construe_stats::sem::{self, FitOptions, Matrix, ParameterKind, SemFit, SemModel};
 
 /// Bump when the fit changes for the same covariances, purification and parameters.
 pub const VERSION: u32 = 2;

@@ -21,7 +21,7 @@ use thiserror::Error;
 
 use crate::data::DataError;
 use crate::spec::SpecFile;
-use crate::stats::StatsError;
+use construe_stats::StatsError;
 
 pub use covariance::{CovarianceOutput, CovarianceStep};
 pub use discover::{DiscoverOutput, DiscoverStep};

@@ -11,8 +11,8 @@ use serde_json::{Value, json};
 use super::{Artifact, Inputs, Step, StepError, StepKind};
 use crate::spec::SpecFile;
 use crate::spec::types::{PurifySpec, TetradTest};
-use crate::stats::purify::{PurifyOptions, TetradEvidence, purify};
-use crate::stats::tetrad::TetradTestKind;
+use construe_stats::purify::{PurifyOptions, TetradEvidence, purify};
+use construe_stats::tetrad::TetradTestKind;
 
 /// Bump when purification results change for the same covariances and parameters.
 pub const VERSION: u32 = 1;

@@ -11,11 +11,11 @@ use super::measure::{FitSummary, fit_constructs};
 use super::{Artifact, Inputs, Step, StepError, StepKind};
 use crate::spec::SpecFile;
 use crate::spec::types::{CiTest as CiTestKind, Knowledge as KnowledgeSpec, StructureSpec};
-use crate::stats::StatsError;
-use crate::stats::search::{
+use construe_stats::StatsError;
+use construe_stats::search::{
     CiTest, ColliderRule, FisherZ, Knowledge, PcOptions, Reason, WaldPartial, enumerate_dags, pc,
 };
-use crate::stats::sem::{Matrix, ParameterKind};
+use construe_stats::sem::{Matrix, ParameterKind};
 
 /// Bump when search or fit results change for the same measurement model and parameters.
 pub const VERSION: u32 = 2;

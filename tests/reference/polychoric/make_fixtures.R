@@ -1,4 +1,4 @@
-# Reference fixtures for src/stats/{bvn,polychoric,polyserial}.rs.
+# Reference fixtures for crates/construe-stats/src/{bvn,polychoric,polyserial}.rs.
 # Run from this directory:  Rscript make_fixtures.R
 # Writes bvn.json, polychoric.json and polyserial.json with the R and package versions inside.
 # Needs only base R plus the mvtnorm and polycor packages (no JSON package: a tiny writer below).

@@ -1,4 +1,4 @@
-"""Reference nearest correlation matrices for src/stats/smoothing.rs.
+"""Reference nearest correlation matrices for crates/construe-stats/src/smoothing.rs.
 
 Independent of the alternating-projection method under test: every correlation matrix is
 X = L L^T with unit-length rows of L, so minimise ||X - A||_F^2 over L with scipy's BFGS

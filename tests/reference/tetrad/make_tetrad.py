@@ -1,4 +1,4 @@
-"""Reference values for src/stats/tetrad.rs and src/stats/fdr.rs.
+"""Reference values for crates/construe-stats/src/tetrad.rs and crates/construe-stats/src/fdr.rs.
 
 Run: python3 tests/reference/tetrad/make_tetrad.py  (writes tetrad.json beside this script).
 Everything here is computed with numpy/scipy, independently of the Rust code:

@@ -7,7 +7,7 @@ use nalgebra::DMatrix;
 use statrs::distribution::{ChiSquared, ContinuousCDF};
 use statrs::function::gamma::{gamma_lr, ln_gamma};
 
-use crate::stats::StatsError;
+use crate::StatsError;
 
 /// Global fit statistics of one ML fit.
 #[derive(Debug, Clone, PartialEq)]

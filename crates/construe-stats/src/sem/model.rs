@@ -8,7 +8,7 @@ use std::collections::HashMap;
 
 use nalgebra::DMatrix;
 
-use crate::stats::StatsError;
+use crate::StatsError;
 
 /// One entry of a parameter matrix.
 #[derive(Debug, Clone, PartialEq)]

@@ -292,7 +292,7 @@ fn pearson(x: &[f64], y: &[f64]) -> Result<f64, StatsError> {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::stats::polychoric::polychoric;
+    use crate::polychoric::polychoric;
     use rand::{Rng, SeedableRng};
     use rand_chacha::ChaCha8Rng;
     use rand_distr::{Distribution, StandardNormal};

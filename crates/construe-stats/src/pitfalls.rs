@@ -7,10 +7,10 @@
 
 use nalgebra::DMatrix;
 
-use crate::stats::moments::{Deletion, pearson};
-use crate::stats::search::{CiTest, FisherZ, Knowledge, PcOptions, PcResult, WaldPartial, pc};
-use crate::stats::sem::{FitOptions, Identification, Matrix, SemFit, SemModel};
-use crate::stats::simulate::SimulationModel;
+use crate::moments::{Deletion, pearson};
+use crate::search::{CiTest, FisherZ, Knowledge, PcOptions, PcResult, WaldPartial, pc};
+use crate::sem::{FitOptions, Identification, Matrix, SemFit, SemModel};
+use crate::simulate::SimulationModel;
 
 fn model(yaml: &str) -> SimulationModel {
     serde_yaml::from_str(yaml).unwrap()

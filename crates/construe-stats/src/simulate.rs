@@ -1308,7 +1308,7 @@ correlated_errors: [{items: [x, y], covariance: 0.9}, {items: [y, z], covariance
 
     #[test]
     fn documented_examples_parse_and_validate() {
-        let docs = [include_str!("../../docs/simulate.md"), include_str!("simulate.rs")];
+        let docs = [include_str!("../../../docs/simulate.md"), include_str!("simulate.rs")];
         for (k, text) in docs.iter().enumerate() {
             // The first YAML block of each: the user guide's minimal model, then the one in the
             // doc comment of `SimulationModel` (with its `/// ` prefixes removed).
@@ -1330,7 +1330,7 @@ correlated_errors: [{items: [x, y], covariance: 0.9}, {items: [y, z], covariance
 
     #[test]
     fn demo_model_parses_validates_and_draws() {
-        let model = parse(include_str!("../../pipelines/transit/model.yaml"));
+        let model = parse(include_str!("../../../pipelines/transit/model.yaml"));
         model.validate().unwrap();
         let truth = model.truth().unwrap();
         let items = truth.variables.len();

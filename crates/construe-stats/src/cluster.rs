@@ -289,8 +289,8 @@ fn gcd(mut a: usize, mut b: usize) -> usize {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::stats::purify::{PurifyOptions, purify};
-    use crate::stats::tetrad::testutil::{draw_normal, factor_cov, sample_cov};
+    use crate::purify::{PurifyOptions, purify};
+    use crate::tetrad::testutil::{draw_normal, factor_cov, sample_cov};
     use nalgebra::DVector;
     use rand::seq::SliceRandom;
     use rand::{Rng, SeedableRng};
@@ -493,7 +493,7 @@ mod tests {
         let groups: Vec<Vec<usize>> = (0..6).map(|g| (g * 5..g * 5 + 5).collect()).collect();
         for options in [
             PurifyOptions::default(),
-            PurifyOptions { test: crate::stats::tetrad::TetradTestKind::Delta, ..PurifyOptions::default() },
+            PurifyOptions { test: crate::tetrad::TetradTestKind::Delta, ..PurifyOptions::default() },
         ] {
             let start = std::time::Instant::now();
             let r = purify(&s, 2000, Some(&x), &groups, &options).unwrap();

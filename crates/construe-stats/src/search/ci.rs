@@ -10,7 +10,7 @@ use serde::{Deserialize, Serialize};
 use statrs::function::erf::erfc;
 
 use super::graph::Graph;
-use crate::stats::StatsError;
+use crate::StatsError;
 
 /// Outcome of one test: `stat` is a standard-normal statistic (signed like the partial
 /// correlation), `p` its two-sided p-value, `partial` the estimated partial correlation.

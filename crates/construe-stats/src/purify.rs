@@ -311,8 +311,8 @@ fn for_each_combination(items: &[usize], k: usize, mut f: impl FnMut(&[usize])) 
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::stats::tetrad::testutil::{draw_normal, factor_cov, sample_cov};
-    use crate::stats::tetrad::tetrad_differences;
+    use crate::tetrad::testutil::{draw_normal, factor_cov, sample_cov};
+    use crate::tetrad::tetrad_differences;
     use nalgebra::DVector;
     use rand::SeedableRng;
     use rand_chacha::ChaCha8Rng;

@@ -193,7 +193,7 @@ mod tests {
     #[test]
     fn matches_independent_nearest_correlation() {
         let fx: Fixture =
-            serde_json::from_str(include_str!("../../tests/reference/polychoric/smoothing.json")).unwrap();
+            serde_json::from_str(include_str!("../../../tests/reference/polychoric/smoothing.json")).unwrap();
         for case in &fx.cases {
             let input = matrix(&case.input);
             let s = smooth_correlation(&input).unwrap();

@@ -12,7 +12,7 @@ use super::ci::{CiResult, CiTest};
 use super::graph::Graph;
 use super::knowledge::Knowledge;
 use super::meek;
-use crate::stats::StatsError;
+use crate::StatsError;
 
 /// How unshielded triples a - c - b (a, b non-adjacent) are judged colliders.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
@@ -430,9 +430,9 @@ fn judge(rule: ColliderRule, with_c: usize, total: usize) -> TripleKind {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::stats::search::ci::tests::{linear_gaussian_cov, sample_cov};
-    use crate::stats::search::ci::{DSepOracle, FisherZ};
-    use crate::stats::search::graph::tests::random_dag;
+    use crate::search::ci::tests::{linear_gaussian_cov, sample_cov};
+    use crate::search::ci::{DSepOracle, FisherZ};
+    use crate::search::graph::tests::random_dag;
     use rand::SeedableRng;
     use rand_chacha::ChaCha8Rng;
 

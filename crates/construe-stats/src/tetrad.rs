@@ -592,7 +592,7 @@ mod tests {
     use serde_json::Value;
 
     fn fixture() -> Value {
-        serde_json::from_str(include_str!("../../tests/reference/tetrad/tetrad.json")).unwrap()
+        serde_json::from_str(include_str!("../../../tests/reference/tetrad/tetrad.json")).unwrap()
     }
 
     fn matrix(v: &Value) -> DMatrix<f64> {

@@ -6,7 +6,7 @@
 use nalgebra::DMatrix;
 
 use super::model::ModelMatrices;
-use crate::stats::StatsError;
+use crate::StatsError;
 
 /// Implied covariances at one parameter value.
 #[derive(Debug, Clone, PartialEq)]
@@ -43,7 +43,7 @@ pub fn implied(mm: &ModelMatrices) -> Result<Implied, StatsError> {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::stats::sem::model::{Identification, Matrix, SemModel};
+    use crate::sem::model::{Identification, Matrix, SemModel};
 
     #[test]
     fn chain_of_two_latents_matches_the_scalar_path_formulas() {

@@ -7,12 +7,12 @@
 use nalgebra::DMatrix;
 use serde_json::Value;
 
-use crate::stats::cluster::{ClusterOptions, find_clusters};
-use crate::stats::moments::{Deletion, pearson};
-use crate::stats::purify::{PurifyOptions, purify};
-use crate::stats::sem::{FitOptions, Identification, Matrix, SemModel};
-use crate::stats::simulate::SimulationModel;
-use crate::stats::tetrad::{TetradTestKind, TetradTester};
+use crate::cluster::{ClusterOptions, find_clusters};
+use crate::moments::{Deletion, pearson};
+use crate::purify::{PurifyOptions, purify};
+use crate::sem::{FitOptions, Identification, Matrix, SemModel};
+use crate::simulate::SimulationModel;
+use crate::tetrad::{TetradTestKind, TetradTester};
 
 fn matrix(v: &Value) -> DMatrix<f64> {
     let rows: Vec<Vec<f64>> = v
@@ -51,7 +51,7 @@ fn two_factor_cfa_on_ability_cov_matches_scipy() {
     // vocab; and the alternative with general on the verbal factor), fitted by independent ML
     // with scipy 1.17 / numpy 2.4 BFGS (tests/reference/sem/make_classic2f.py; versions in the
     // JSON).
-    let fixture: Value = serde_json::from_str(include_str!("../../tests/reference/sem/classic2f.json")).unwrap();
+    let fixture: Value = serde_json::from_str(include_str!("../../../tests/reference/sem/classic2f.json")).unwrap();
     for which in ["main", "alternative"] {
         let case = &fixture[which];
         let s = matrix(&case["cov"]);

@@ -9,7 +9,7 @@ use serde::{Deserialize, Serialize};
 use super::graph::Graph;
 use super::knowledge::Knowledge;
 use super::meek;
-use crate::stats::StatsError;
+use crate::StatsError;
 
 /// The DAGs found, in a fixed order, and whether they are all of them.
 #[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
@@ -108,7 +108,7 @@ fn descend(
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::stats::search::graph::tests::{brute_class, random_dag};
+    use crate::search::graph::tests::{brute_class, random_dag};
 
     fn undirected(n: usize, pairs: &[(usize, usize)]) -> Graph {
         let mut g = Graph::new(n);

@@ -9,7 +9,7 @@ use std::collections::BTreeSet;
 use serde::{Deserialize, Serialize};
 use thiserror::Error;
 
-use crate::stats::StatsError;
+use crate::StatsError;
 
 /// Why a piece of background knowledge was rejected. Fields are node indices.
 #[derive(Debug, Clone, PartialEq, Eq, Error)]

@@ -4,7 +4,7 @@ use nalgebra::DMatrix;
 use serde_json::Value;
 
 use super::*;
-use crate::stats::StatsError;
+use crate::StatsError;
 
 fn matrix(v: &Value) -> DMatrix<f64> {
     let rows: Vec<Vec<f64>> = v
@@ -24,7 +24,7 @@ fn floats(v: &Value) -> Vec<f64> {
 fn one_factor_cfa_matches_r_factanal() {
     // R 4.2.2 stats::factanal(factors = 1) on datasets::ability.cov and the verbal subset of
     // datasets::Harman74.cor (tests/reference/sem/make_factanal.R).
-    let fixture: Value = serde_json::from_str(include_str!("../../../tests/reference/sem/factanal.json")).unwrap();
+    let fixture: Value = serde_json::from_str(include_str!("../../../../tests/reference/sem/factanal.json")).unwrap();
     for case in ["ability_cov", "harman74_verbal"] {
         let c = &fixture[case];
         let s = matrix(&c["cov"]);
@@ -101,7 +101,7 @@ fn matrix_kind(name: &str) -> Matrix {
 }
 
 fn sem_fixture() -> Value {
-    serde_json::from_str(include_str!("../../../tests/reference/sem/sem.json")).unwrap()
+    serde_json::from_str(include_str!("../../../../tests/reference/sem/sem.json")).unwrap()
 }
 
 /// Compare one fitted case with the independent scipy fit: estimates 1e-4, SEs 1e-3, F and fit
@@ -248,7 +248,7 @@ fn analytic_gradient_matches_finite_differences() {
 #[test]
 fn large_cfa_matches_scipy_lbfgsb() {
     // 60 items on 4 factors; scipy L-BFGS-B reference (cfa60x4.json, make_fixtures.py).
-    let case: Value = serde_json::from_str(include_str!("../../../tests/reference/sem/cfa60x4.json")).unwrap();
+    let case: Value = serde_json::from_str(include_str!("../../../../tests/reference/sem/cfa60x4.json")).unwrap();
     let s = matrix(&case["cov"]);
     let fit = build_model(&case["model"]).fit(&s, 1000, &FitOptions::default()).unwrap();
     assert!(fit.converged);
@@ -276,7 +276,7 @@ fn large_cfa_matches_scipy_lbfgsb() {
 fn cfa_60_items_timing() {
     // Performance target: under 50 ms per fit and at least 20x faster than the scipy peer
     // (python3 bench/cfa_reference.py tests/reference/sem/cfa60x4.json prints its seconds).
-    let case: Value = serde_json::from_str(include_str!("../../../tests/reference/sem/cfa60x4.json")).unwrap();
+    let case: Value = serde_json::from_str(include_str!("../../../../tests/reference/sem/cfa60x4.json")).unwrap();
     let s = matrix(&case["cov"]);
     let model = build_model(&case["model"]);
     // Each fit timed alone: the median resists the shared machine's spikes, and the best of
@@ -412,14 +412,15 @@ fn unidentified_single_indicator_is_an_error_and_fixed_error_variance_identifies
 #[test]
 fn reliability_from_a_fitted_one_factor_model_matches_numpy() {
     // numpy alpha and omega from a scipy ML fit (reliability.json, make_fixtures.py).
-    let fixture: Value = serde_json::from_str(include_str!("../../../tests/reference/sem/reliability.json")).unwrap();
+    let fixture: Value =
+        serde_json::from_str(include_str!("../../../../tests/reference/sem/reliability.json")).unwrap();
     let s = matrix(&fixture["cov"]);
-    let alpha = crate::stats::reliability::cronbach_alpha(&s, &[0, 1, 2, 3]).unwrap();
+    let alpha = crate::reliability::cronbach_alpha(&s, &[0, 1, 2, 3]).unwrap();
     assert!((alpha - fixture["alpha"].as_f64().unwrap()).abs() < 1e-12);
     let model = SemModel::cfa(&[vec![0, 1, 2, 3]], 4, Identification::UnitLatentVariance).unwrap();
     let fit = model.fit(&s, 400, &FitOptions::default()).unwrap();
     let loadings: Vec<f64> = (0..4).map(|i| fit.entry(Matrix::Lambda, i, 0).unwrap().est).collect();
     let errors: Vec<f64> = (0..4).map(|i| fit.entry(Matrix::Theta, i, i).unwrap().est).collect();
-    let omega = crate::stats::reliability::mcdonald_omega(&loadings, &errors).unwrap();
+    let omega = crate::reliability::mcdonald_omega(&loadings, &errors).unwrap();
     assert!((omega - fixture["omega"].as_f64().unwrap()).abs() < 1e-5);
 }

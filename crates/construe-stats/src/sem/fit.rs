@@ -12,7 +12,7 @@ use super::linalg::{cholesky_lower, cholesky_solve, factor_model_inverse, invers
 use super::model::{Matrix, ModelMatrices, ParamLayout, ParameterKind, SemModel};
 use super::standardized::{standardized, standardized_entry};
 use super::start::start_values;
-use crate::stats::StatsError;
+use crate::StatsError;
 
 /// Controls of the optimiser.
 #[derive(Debug, Clone, PartialEq)]
