@@ -11,8 +11,10 @@ use crate::app::plan::plan;
 use crate::app::run::run;
 use crate::app::{AppError, Exit, Log};
 use crate::pipeline::cache::Cache;
+use crate::pipeline::chain::Progress;
 use crate::report::WriteOutcome;
 use crate::spec::diagnostic::plural;
+use crate::steps::StepKind;
 
 #[derive(Debug, Parser)]
 #[command(name = "construe", version, about = "Latent-structure analysis of survey constructs from one declarative spec", long_about = None)]
@@ -97,6 +99,45 @@ impl Log for StderrLog {
     }
     fn warn(&mut self, text: &str) {
         eprintln!("warning: {text}");
+    }
+    fn progress(&self) -> Box<dyn Progress> {
+        Box::new(Bar(std::sync::Mutex::new(None)))
+    }
+}
+
+/// A progress bar on stderr when it is a terminal (nothing otherwise, so logs and tests stay
+/// clean). The only place construe draws one.
+struct Bar(std::sync::Mutex<Option<indicatif::ProgressBar>>);
+
+impl Progress for Bar {
+    fn start(&self, step: StepKind, total: usize) {
+        if !std::io::stderr().is_terminal() {
+            return;
+        }
+        let bar = indicatif::ProgressBar::new(total as u64);
+        if let Ok(style) = indicatif::ProgressStyle::with_template(&format!(
+            "{:<12} {{bar:30}} {{pos}}/{{len}}, {{eta}} left",
+            step.name()
+        )) {
+            bar.set_style(style);
+        }
+        if let Ok(mut slot) = self.0.lock() {
+            *slot = Some(bar);
+        }
+    }
+    fn advance(&self, _step: StepKind, by: usize) {
+        if let Ok(slot) = self.0.lock()
+            && let Some(bar) = slot.as_ref()
+        {
+            bar.inc(by as u64);
+        }
+    }
+    fn finish(&self, _step: StepKind) {
+        if let Ok(mut slot) = self.0.lock()
+            && let Some(bar) = slot.take()
+        {
+            bar.finish_and_clear();
+        }
     }
 }
 

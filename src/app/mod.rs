@@ -85,6 +85,10 @@ fn data_hint(e: &DataError) -> Option<String> {
 pub trait Log {
     fn line(&mut self, text: &str);
     fn warn(&mut self, text: &str);
+    /// Where long steps report their progress (the CLI draws a bar on a terminal).
+    fn progress(&self) -> Box<dyn crate::pipeline::chain::Progress> {
+        Box::new(crate::pipeline::chain::NoProgress)
+    }
 }
 
 /// A log that keeps lines in memory.

@@ -37,7 +37,8 @@ pub fn run(path: &Path, cache: &Cache, log: &mut dyn Log) -> Result<RunSummary, 
     let root = spec.resolve(&spec.spec.report.dir).join(slug(&spec.spec.title));
     let _lock = RunLock::acquire(&root)?;
     let plan = Plan::new(&spec)?;
-    let execution = execute(&plan, cache, |event| match event {
+    let progress = log.progress();
+    let execution = execute(&plan, cache, progress.as_ref(), |event| match event {
         Event::Warning(w) => log.warn(&w),
         Event::Done(o) => log.line(&format!(
             "{:<12} {:<9} {:>8.3}s  {}",

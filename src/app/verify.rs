@@ -13,6 +13,7 @@ use super::run::{report_settings, results_json, seeds, spec_info};
 use crate::fsguard::{MAX_TEXT_BYTES, read_regular, read_regular_text};
 use crate::pipeline::PipelineError;
 use crate::pipeline::cache::Cache;
+use crate::pipeline::chain::NoProgress;
 use crate::pipeline::executor::{Execution, execute};
 use crate::pipeline::key::Key;
 use crate::pipeline::manifest::{MANIFEST_FORMAT, Manifest};
@@ -131,7 +132,7 @@ pub fn verify(report_dir: &Path) -> Result<Verification, AppError> {
             check(&mut checks, format!("input {}", f.shown), false, "in the spec but not in the manifest");
         }
     }
-    let mut execution = execute(&plan, &Cache::disabled(), |_| {})?;
+    let mut execution = execute(&plan, &Cache::disabled(), &NoProgress, |_| {})?;
     // The manifest this run should have written, but for times, cache hits and the files.
     let mut expected = Manifest::new(info, &plan, &execution.outcomes, seeds(&spec), report_settings(&spec));
     expected.tool.version = manifest.tool.version.clone();

@@ -7,9 +7,10 @@ use std::time::Instant;
 
 use super::PipelineError;
 use super::cache::{Cache, Lookup};
+use super::chain::{ChainError, ChainHooks, Progress, run_chain};
 use super::key::Key;
 use super::plan::Plan;
-use crate::steps::{Artifact, Inputs, StepKind};
+use crate::steps::{Artifact, Step, StepKind};
 
 /// What happened to one step.
 #[derive(Debug, Clone)]
@@ -34,60 +35,96 @@ pub struct Execution {
     pub artifacts: BTreeMap<StepKind, Artifact>,
 }
 
-pub fn execute(plan: &Plan, cache: &Cache, mut observe: impl FnMut(Event<'_>)) -> Result<Execution, PipelineError> {
+pub fn execute(
+    plan: &Plan,
+    cache: &Cache,
+    progress: &dyn Progress,
+    mut observe: impl FnMut(Event<'_>),
+) -> Result<Execution, PipelineError> {
     let mut artifacts = BTreeMap::new();
-    let mut outcomes = Vec::new();
-    for planned in &plan.steps {
-        let kind = planned.step.kind();
-        let started = Instant::now();
-        let cached = match cache.get(&planned.key) {
+    let mut hooks = Caching {
+        plan,
+        cache,
+        observe: &mut observe,
+        index: 0,
+        started: Instant::now(),
+        hash: None,
+        outcomes: Vec::new(),
+    };
+    run_chain(plan.steps.iter().map(|p| p.step.as_ref()), &mut artifacts, &mut hooks, progress)
+        .map_err(ChainError::into_pipeline)?;
+    Ok(Execution { outcomes: hooks.outcomes, artifacts })
+}
+
+/// The executor's part of the chain: take a sound cache entry, or store what was computed,
+/// and record each step's outcome.
+struct Caching<'a, F: FnMut(Event<'_>)> {
+    plan: &'a Plan,
+    cache: &'a Cache,
+    observe: &'a mut F,
+    /// The plan position of the step being run.
+    index: usize,
+    started: Instant,
+    /// The cached entry's hash, when the current step was taken from the cache.
+    hash: Option<Key>,
+    outcomes: Vec<Outcome>,
+}
+
+impl<F: FnMut(Event<'_>)> ChainHooks for Caching<'_, F> {
+    fn reuse(&mut self, step: &dyn Step) -> Option<Artifact> {
+        let kind = step.kind();
+        let key = self.plan.steps[self.index].key;
+        self.started = Instant::now();
+        self.hash = None;
+        match self.cache.get(&key) {
             Lookup::Hit(bytes) => match Artifact::decode(kind, &bytes) {
                 // The bytes go out of scope here, before the next step runs.
-                Some(a) => Some((a, Key::of_bytes(&bytes))),
+                Some(a) => {
+                    self.hash = Some(Key::of_bytes(&bytes));
+                    Some(a)
+                }
                 None => {
-                    observe(Event::Warning(format!(
+                    (self.observe)(Event::Warning(format!(
                         "cache entry for `{kind}` ({}) could not be decoded; recomputing",
-                        planned.key.short()
+                        key.short()
                     )));
                     None
                 }
             },
             Lookup::Miss => None,
             Lookup::Damaged { path, reason } => {
-                observe(Event::Warning(format!(
+                (self.observe)(Event::Warning(format!(
                     "cache entry {} for `{kind}` is damaged ({reason}); recomputing",
                     path.display()
                 )));
                 None
             }
-        };
-        let was_cached = cached.is_some();
-        let (artifact, artifact_hash) = match cached {
-            Some(hit) => hit,
-            None => {
-                let artifact = planned.step.run(&Inputs { step: kind, artifacts: &artifacts })?;
-                let hash =
-                    cache.put_with(&planned.key, |w| artifact.write_to(w)).map_err(|source| PipelineError::Io {
-                        action: "write cache entry",
-                        path: cache.root().map(|p| p.to_path_buf()).unwrap_or_default(),
-                        source,
-                    })?;
-                (artifact, hash)
-            }
+        }
+    }
+
+    fn finished(&mut self, step: &dyn Step, artifact: &Artifact, reused: bool) -> Result<(), ChainError> {
+        let key = self.plan.steps[self.index].key;
+        let artifact_hash = match self.hash.take() {
+            Some(hash) if reused => hash,
+            _ => self.cache.put_with(&key, |w| artifact.write_to(w)).map_err(|source| PipelineError::Io {
+                action: "write cache entry",
+                path: self.cache.root().map(|p| p.to_path_buf()).unwrap_or_default(),
+                source,
+            })?,
         };
         let outcome = Outcome {
-            kind,
-            key: planned.key,
-            cached: was_cached,
+            kind: step.kind(),
+            key,
+            cached: reused,
             // Milliseconds: the manifest records this and the report shows it, and a short
             // decimal reads back exactly, so `verify` re-renders the same report.
-            seconds: (started.elapsed().as_secs_f64() * 1000.0).round() / 1000.0,
+            seconds: (self.started.elapsed().as_secs_f64() * 1000.0).round() / 1000.0,
             artifact_hash,
-            description: planned.step.describe(&artifact),
+            description: step.describe(artifact),
         };
-        observe(Event::Done(&outcome));
-        outcomes.push(outcome);
-        artifacts.insert(kind, artifact);
+        (self.observe)(Event::Done(&outcome));
+        self.outcomes.push(outcome);
+        self.index += 1;
+        Ok(())
     }
-    Ok(Execution { outcomes, artifacts })
 }

@@ -4,6 +4,7 @@
 //! only after its hash checks.
 
 pub mod cache;
+pub mod chain;
 pub mod executor;
 pub mod key;
 pub mod lock;

@@ -13,9 +13,9 @@ use super::{Artifact, Inputs, Step, StepError, StepKind};
 use crate::data::Table;
 use crate::spec::types::{CovarianceSpec, MatrixKind, Missing, OrdinalEstimation};
 use construe_stats::mixed::{self, Column, mixed_correlation};
-use construe_stats::moments::{Deletion, pearson_columns};
+use construe_stats::moments::{Deletion, pearson_columns, sample_variance};
 use construe_stats::polychoric::OrdinalFit;
-use construe_stats::smoothing::smooth_correlation;
+use construe_stats::smoothing::{self, smooth_correlation};
 
 /// Bump when the matrices change for the same loaded data and parameters.
 /// v2: polychoric / polyserial correlations for ordinal items, smoothing. v3: all-continuous
@@ -119,30 +119,15 @@ impl CovarianceStep {
     }
 }
 
-/// Eigenvalues at or below this (relative to the matrix size) count as not positive definite.
-const EIGEN_TOLERANCE: f64 = 1e-10;
-
-/// Smallest eigenvalue of the correlation matrix and, when it is not clearly positive, the
-/// items of its eigenvector. Eigenvalues alone cost a fraction of the full decomposition (no
-/// eigenvector accumulation), which dominated this step for item banks of hundreds of items,
-/// so the eigenvectors are computed only for a matrix that needs the diagnosis.
+/// Whether the correlation matrix is positive definite and, if not, which items are involved
+/// (`stats::smoothing::definiteness`).
 pub fn definiteness(correlation: &DMatrix<f64>, items: &[String]) -> Definiteness {
-    let smallest = |values: &nalgebra::DVector<f64>| {
-        values.iter().copied().enumerate().min_by(|a, b| a.1.total_cmp(&b.1)).unwrap_or((0, f64::NAN))
-    };
-    let (_, min) = smallest(&correlation.clone().symmetric_eigenvalues());
-    let positive_definite = min > EIGEN_TOLERANCE * items.len().max(1) as f64;
-    let involved = if positive_definite {
-        Vec::new()
-    } else {
-        let eig = correlation.clone().symmetric_eigen();
-        let (imin, _) = smallest(&eig.eigenvalues);
-        let v = eig.eigenvectors.column(imin);
-        let mut weights: Vec<(f64, &String)> = v.iter().map(|w| w.abs()).zip(items).filter(|(w, _)| *w > 0.2).collect();
-        weights.sort_by(|a, b| b.0.total_cmp(&a.0));
-        weights.into_iter().map(|(_, i)| i.clone()).collect()
-    };
-    Definiteness { positive_definite, min_eigenvalue: min, involved }
+    let (positive_definite, min_eigenvalue, involved) = smoothing::definiteness(correlation);
+    Definiteness {
+        positive_definite,
+        min_eigenvalue,
+        involved: involved.into_iter().map(|i| items[i].clone()).collect(),
+    }
 }
 
 impl CovarianceStep {
@@ -306,13 +291,6 @@ impl CovarianceStep {
 }
 
 /// Sample variance (n - 1 divisor) of the present (non-NaN) values.
-fn sample_variance(values: &[f64]) -> f64 {
-    let present: Vec<f64> = values.iter().copied().filter(|v| !v.is_nan()).collect();
-    let n = present.len() as f64;
-    let mean = present.iter().sum::<f64>() / n;
-    present.iter().map(|v| (v - mean).powi(2)).sum::<f64>() / (n - 1.0).max(1.0)
-}
-
 /// The matrices and per-pair facts before the definiteness check.
 struct Estimates {
     correlation: DMatrix<f64>,

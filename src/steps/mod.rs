@@ -169,6 +169,8 @@ impl Artifact {
 pub struct Inputs<'a> {
     pub step: StepKind,
     pub artifacts: &'a BTreeMap<StepKind, Artifact>,
+    /// Where a long step reports how far it is (see `pipeline::chain::Progress`).
+    pub progress: &'a dyn crate::pipeline::chain::Progress,
 }
 
 impl Inputs<'_> {

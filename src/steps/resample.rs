@@ -8,15 +8,15 @@
 use std::collections::BTreeMap;
 
 use indexmap::IndexMap;
-use rand::{Rng, SeedableRng};
-use rand_chacha::ChaCha8Rng;
 use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 use serde_json::{Value, json};
 
 use super::{Artifact, Inputs, LoadOutput, Step, StepError, StepKind};
 use crate::data::Table;
+use crate::pipeline::chain::{Compute, NoProgress, run_chain};
 use crate::spec::types::ResampleSpec;
+use construe_stats::bootstrap::{percentile_interval, replicate_rng, stratified_rows};
 
 /// Bump when bootstrap results change for the same inputs and parameters.
 pub const VERSION: u32 = 2;
@@ -85,18 +85,6 @@ struct Replicate {
     converged: bool,
 }
 
-/// Rows drawn with replacement within each wave (stratified), in wave order.
-pub fn bootstrap_rows(table: &Table, rng: &mut ChaCha8Rng) -> Vec<usize> {
-    let mut out = Vec::with_capacity(table.rows());
-    for w in 0..table.waves.len() as u32 {
-        let rows: Vec<usize> = (0..table.rows()).filter(|&r| table.wave_of_row[r] == w).collect();
-        for _ in 0..rows.len() {
-            out.push(rows[rng.random_range(0..rows.len())]);
-        }
-    }
-    out
-}
-
 fn resampled(load: &LoadOutput, rows: &[usize]) -> Option<LoadOutput> {
     let table = load.table.as_ref()?;
     let columns = table.columns.iter().map(|c| rows.iter().map(|&r| c[r]).collect()).collect();
@@ -107,18 +95,13 @@ fn resampled(load: &LoadOutput, rows: &[usize]) -> Option<LoadOutput> {
 
 impl ResampleStep {
     fn replicate(&self, load: &LoadOutput, r: usize) -> Result<Replicate, String> {
-        let mut rng = ChaCha8Rng::seed_from_u64(self.params.seed);
-        rng.set_stream(r as u64 + 1);
-        let rows = bootstrap_rows(load.table.as_ref().ok_or("no respondent rows")?, &mut rng);
+        let table = load.table.as_ref().ok_or("no respondent rows")?;
+        let rows = stratified_rows(&table.wave_of_row, table.waves.len(), &mut replicate_rng(self.params.seed, r));
         let sample = resampled(load, &rows).ok_or("no respondent rows")?;
         let mut artifacts = BTreeMap::new();
         artifacts.insert(StepKind::Load, Artifact::Load(Box::new(sample)));
-        for step in &self.chain {
-            let out = step
-                .run(&Inputs { step: step.kind(), artifacts: &artifacts })
-                .map_err(|e| format!("{}: {e}", step.kind()))?;
-            artifacts.insert(step.kind(), out);
-        }
+        run_chain(self.chain.iter().map(|s| s.as_ref()), &mut artifacts, &mut Compute, &NoProgress)
+            .map_err(|e| e.to_string())?;
         let mut rep = Replicate { converged: true, ..Replicate::default() };
         if let Some(Artifact::Purify(p)) = artifacts.get(&StepKind::Purify) {
             rep.kept = p.constructs.values().flat_map(|c| c.kept.iter().cloned()).collect();
@@ -146,37 +129,6 @@ impl ResampleStep {
     }
 }
 
-/// A progress bar on stderr when it is a terminal (hidden otherwise, so logs and tests stay
-/// clean). Drawing never affects results: replicates are still gathered in order.
-fn progress_bar(replicates: usize) -> indicatif::ProgressBar {
-    use std::io::IsTerminal;
-    if !std::io::stderr().is_terminal() {
-        return indicatif::ProgressBar::hidden();
-    }
-    let bar = indicatif::ProgressBar::new(replicates as u64);
-    if let Ok(style) =
-        indicatif::ProgressStyle::with_template("resample     {bar:30} {pos}/{len} replicates, {eta} left")
-    {
-        bar.set_style(style);
-    }
-    bar
-}
-
-/// The percentile interval [2.5%, 97.5%] of `values` (linear interpolation between order
-/// statistics, R's type 7; common practice).
-pub fn percentile_interval(values: &mut [f64]) -> [f64; 2] {
-    values.sort_by(f64::total_cmp);
-    let q = |p: f64| {
-        if values.is_empty() {
-            return f64::NAN;
-        }
-        let h = (values.len() - 1) as f64 * p;
-        let (lo, hi) = (h.floor() as usize, h.ceil() as usize);
-        values[lo] + (h - lo as f64) * (values[hi] - values[lo])
-    };
-    [q(0.025), q(0.975)]
-}
-
 impl Step for ResampleStep {
     fn kind(&self) -> StepKind {
         StepKind::Resample
@@ -201,16 +153,16 @@ impl Step for ResampleStep {
 
     fn run(&self, inputs: &Inputs<'_>) -> Result<Artifact, StepError> {
         let load = inputs.load()?;
-        let progress = progress_bar(self.params.replicates);
+        inputs.progress.start(StepKind::Resample, self.params.replicates);
         let results: Vec<Result<Replicate, String>> = (0..self.params.replicates)
             .into_par_iter()
             .map(|r| {
                 let out = self.replicate(load, r);
-                progress.inc(1);
+                inputs.progress.advance(StepKind::Resample, 1);
                 out
             })
             .collect();
-        progress.finish_and_clear();
+        inputs.progress.finish(StepKind::Resample);
         let ok: Vec<&Replicate> = results.iter().filter_map(|r| r.as_ref().ok()).collect();
         let failures: Vec<String> = results
             .iter()
@@ -295,33 +247,5 @@ impl Step for ResampleStep {
             "{} replicates: {} succeeded, {} failed, {} not converged",
             r.replicates, r.succeeded, r.failed, r.not_converged
         )
-    }
-}
-
-#[cfg(test)]
-mod tests {
-    use super::*;
-
-    // R's quantile(c(1..10), c(.025, .975), type = 7): 1.225 and 9.775 (from memory of the
-    // type-7 definition: h = (n - 1) p + 1 on 1-based order statistics).
-    #[test]
-    fn percentile_interval_type_7() {
-        let mut v: Vec<f64> = (1..=10).map(f64::from).rev().collect();
-        let [lo, hi] = percentile_interval(&mut v);
-        assert!((lo - 1.225).abs() < 1e-12 && (hi - 9.775).abs() < 1e-12);
-    }
-
-    #[test]
-    fn bootstrap_stays_within_waves() {
-        let table = Table {
-            items: vec!["a".into()],
-            waves: vec!["w1".into(), "w2".into()],
-            wave_of_row: vec![0, 0, 0, 1, 1],
-            columns: vec![vec![1.0, 2.0, 3.0, 4.0, 5.0]],
-        };
-        let mut rng = ChaCha8Rng::seed_from_u64(3);
-        let rows = bootstrap_rows(&table, &mut rng);
-        assert_eq!(rows.len(), 5);
-        assert!(rows[..3].iter().all(|&r| r < 3) && rows[3..].iter().all(|&r| r >= 3));
     }
 }

@@ -8,8 +8,6 @@
 use std::collections::BTreeMap;
 
 use indexmap::IndexMap;
-use rand::SeedableRng;
-use rand_chacha::ChaCha8Rng;
 use rand_distr::{Beta, Distribution};
 use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
@@ -18,7 +16,9 @@ use serde_json::{Value, json};
 use super::measure::MeasureStep;
 use super::structure::{StructureOutput, StructureStep};
 use super::{Artifact, Inputs, Step, StepError, StepKind};
+use crate::pipeline::chain::{ChainError, Compute, NoProgress, run_chain};
 use crate::spec::types::SensitivitySpec;
+use construe_stats::bootstrap::replicate_rng;
 
 /// Bump when sensitivity results change for the same inputs and parameters.
 pub const VERSION: u32 = 3;
@@ -101,10 +101,13 @@ impl SensitivityStep {
                 artifacts.insert(kind, a.clone());
             }
         }
-        let m = measure.run(&Inputs { step: StepKind::Measure, artifacts: &artifacts })?;
-        artifacts.insert(StepKind::Measure, m);
-        match structure.run(&Inputs { step: StepKind::Structure, artifacts: &artifacts })? {
-            Artifact::Structure(s) => Ok(*s),
+        let chain: [&dyn Step; 2] = [&measure, &structure];
+        run_chain(chain, &mut artifacts, &mut Compute, &NoProgress).map_err(|e| match e {
+            ChainError::Step { source, .. } => source,
+            ChainError::Hook(_) => StepError::MissingInput { step: StepKind::Sensitivity, needs: StepKind::Structure },
+        })?;
+        match artifacts.remove(&StepKind::Structure) {
+            Some(Artifact::Structure(s)) => Ok(*s),
             _ => Err(StepError::MissingInput { step: StepKind::Sensitivity, needs: StepKind::Structure }),
         }
     }
@@ -276,11 +279,12 @@ impl Step for SensitivityStep {
                 .iter()
                 .filter_map(|(c, p)| Beta::new(p.beta[0], p.beta[1]).ok().map(|b| (c.clone(), b)))
                 .collect();
+            inputs.progress.start(StepKind::Sensitivity, self.params.draws);
             let draws: Vec<Option<Vec<String>>> = (0..self.params.draws)
                 .into_par_iter()
                 .map(|d| {
-                    let mut rng = ChaCha8Rng::seed_from_u64(self.params.seed);
-                    rng.set_stream(d as u64 + 1);
+                    let mut rng = replicate_rng(self.params.seed, d);
+                    inputs.progress.advance(StepKind::Sensitivity, 1);
                     // A reliability of exactly 0 would leave the single indicator pure error; one of exactly
                     // 1 (a draw rounding up) leaves it no error at all, which the CI tests cannot use.
                     let rs: Vec<(String, f64)> =
@@ -296,6 +300,7 @@ impl Step for SensitivityStep {
                     .map(|s| Verdicts::of(&s))
                 })
                 .collect();
+            inputs.progress.finish(StepKind::Sensitivity);
             let ok: Vec<&Vec<String>> = draws.iter().flatten().collect();
             failed += draws.len() - ok.len();
             for c in conclusions.iter_mut() {

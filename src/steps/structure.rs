@@ -12,6 +12,7 @@ use super::{Artifact, Inputs, Step, StepError, StepKind};
 use crate::spec::SpecFile;
 use crate::spec::types::{CiTest as CiTestKind, Knowledge as KnowledgeSpec, StructureSpec};
 use construe_stats::StatsError;
+use construe_stats::bvn::Z_975;
 use construe_stats::search::{
     CiTest, ColliderRule, FisherZ, Knowledge, PcOptions, Reason, WaldPartial, enumerate_dags, pc,
 };
@@ -219,7 +220,7 @@ impl Step for StructureStep {
                 dag.edges().iter().filter(|e| e.directed).map(|e| (e.from, e.to)).collect();
             let (fit, _) = fit_constructs(&constructs, &cov.items, &s, measure.n, measure.identification, &paths)
                 .map_err(err("the structural model"))?;
-            let z = 1.959_963_984_540_054;
+            let z = Z_975;
             let effects = fit
                 .parameters
                 .iter()

@@ -279,6 +279,15 @@ fn centred_products(pairs: &[(f64, f64)]) -> (f64, f64, f64) {
     (cab / (m - 1.0), vaa / (m - 1.0), vbb / (m - 1.0))
 }
 
+/// The sample variance of the present (non-NaN) values, dividing by n - 1 (by 1 when n < 2);
+/// NaN when no value is present.
+pub fn sample_variance(values: &[f64]) -> f64 {
+    let present: Vec<f64> = values.iter().copied().filter(|v| !v.is_nan()).collect();
+    let n = present.len() as f64;
+    let mean = present.iter().sum::<f64>() / n;
+    present.iter().map(|v| (v - mean).powi(2)).sum::<f64>() / (n - 1.0).max(1.0)
+}
+
 /// Pearson correlation of two complete slices (n - 1 divisor cancels). Used for single pairs.
 pub fn correlation_of(a: &[f64], b: &[f64]) -> Result<f64, StatsError> {
     if a.len() != b.len() {

@@ -164,6 +164,38 @@ fn clip_eigenvalues(m: &DMatrix<f64>, floor: f64) -> DMatrix<f64> {
     (&out + out.transpose()) * 0.5
 }
 
+/// Eigenvalues at or below this (relative to the matrix size) count as not positive definite.
+pub const EIGEN_TOLERANCE: f64 = 1e-10;
+
+/// The smallest eigenvalue of a symmetric matrix, whether it is clearly positive (above
+/// `EIGEN_TOLERANCE` times the size), and, when it is not, the indices of the variables with
+/// weight above 0.2 in its eigenvector, largest first: the variables whose combination is
+/// (nearly) degenerate. Eigenvalues alone cost a fraction of the full decomposition, so the
+/// eigenvectors are computed only for a matrix that needs the diagnosis.
+pub fn definiteness(matrix: &DMatrix<f64>) -> (bool, f64, Vec<usize>) {
+    let smallest = |values: &nalgebra::DVector<f64>| {
+        values.iter().copied().enumerate().min_by(|a, b| a.1.total_cmp(&b.1)).unwrap_or((0, f64::NAN))
+    };
+    let (_, min) = smallest(&matrix.clone().symmetric_eigenvalues());
+    let positive_definite = min > EIGEN_TOLERANCE * matrix.nrows().max(1) as f64;
+    if positive_definite {
+        return (true, min, Vec::new());
+    }
+    let eig = matrix.clone().symmetric_eigen();
+    let (imin, _) = smallest(&eig.eigenvalues);
+    let mut weights: Vec<(f64, usize)> = eig
+        .eigenvectors
+        .column(imin)
+        .iter()
+        .map(|w| w.abs())
+        .enumerate()
+        .map(|(i, w)| (w, i))
+        .filter(|(w, _)| *w > 0.2)
+        .collect();
+    weights.sort_by(|a, b| b.0.total_cmp(&a.0));
+    (false, min, weights.into_iter().map(|(_, i)| i).collect())
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

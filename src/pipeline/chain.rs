@@ -1,0 +1,81 @@
+//! The one way steps are run: in order, over an artifact map, each step seeing what the steps
+//! before it produced. Central function: `run_chain`. The executor (with the cache, through
+//! `ChainHooks`), `resample` (on every bootstrap sample) and `sensitivity` (refits under other
+//! reliabilities) all call it, so a step behaves the same wherever it runs.
+
+use std::collections::BTreeMap;
+
+use crate::steps::{Artifact, Inputs, Step, StepError, StepKind};
+
+/// Progress of long steps (bootstrap replicates, prior draws), reported from any thread.
+/// Drawing is the caller's business (the CLI draws a bar on a terminal); reporting never
+/// changes results.
+pub trait Progress: Sync {
+    fn start(&self, _step: StepKind, _total: usize) {}
+    fn advance(&self, _step: StepKind, _by: usize) {}
+    fn finish(&self, _step: StepKind) {}
+}
+
+/// Progress that goes nowhere (tests, `verify`, nested chains).
+pub struct NoProgress;
+
+impl Progress for NoProgress {}
+
+/// What the caller of a chain may add around each step.
+pub trait ChainHooks {
+    /// An artifact for `step` from elsewhere (the cache), or `None` to compute it.
+    fn reuse(&mut self, _step: &dyn Step) -> Option<Artifact> {
+        None
+    }
+
+    /// Called once `step` has its artifact, computed (`reused` false) or not.
+    fn finished(&mut self, _step: &dyn Step, _artifact: &Artifact, _reused: bool) -> Result<(), ChainError> {
+        Ok(())
+    }
+}
+
+/// No hooks: every step is computed.
+pub struct Compute;
+
+impl ChainHooks for Compute {}
+
+/// Why a chain stopped.
+#[derive(Debug, thiserror::Error)]
+pub enum ChainError {
+    #[error("{kind}: {source}")]
+    Step { kind: StepKind, source: StepError },
+    #[error(transparent)]
+    Hook(#[from] crate::pipeline::PipelineError),
+}
+
+impl ChainError {
+    /// The step's own error, if a step (not a hook) failed.
+    pub fn into_pipeline(self) -> crate::pipeline::PipelineError {
+        match self {
+            ChainError::Step { source, .. } => crate::pipeline::PipelineError::Step(source),
+            ChainError::Hook(e) => e,
+        }
+    }
+}
+
+/// Runs `steps` in order; each step's artifact is added to `artifacts` under its kind.
+pub fn run_chain<'s>(
+    steps: impl IntoIterator<Item = &'s dyn Step>,
+    artifacts: &mut BTreeMap<StepKind, Artifact>,
+    hooks: &mut dyn ChainHooks,
+    progress: &dyn Progress,
+) -> Result<(), ChainError> {
+    for step in steps {
+        let kind = step.kind();
+        let (artifact, reused) = match hooks.reuse(step) {
+            Some(a) => (a, true),
+            None => {
+                let inputs = Inputs { step: kind, artifacts, progress };
+                (step.run(&inputs).map_err(|source| ChainError::Step { kind, source })?, false)
+            }
+        };
+        hooks.finished(step, &artifact, reused)?;
+        artifacts.insert(kind, artifact);
+    }
+    Ok(())
+}
