@@ -9,6 +9,7 @@ mod coverage;
 mod demo;
 mod diff;
 mod faults;
+mod guard;
 mod reference;
 mod report;
 mod robustness;
