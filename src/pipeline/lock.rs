@@ -30,7 +30,11 @@ impl RunLock {
     /// Takes the lock for `target` (a report folder, created if missing) or fails at once if
     /// another run holds it.
     pub fn acquire(target: &Path) -> Result<RunLock, PipelineError> {
-        let created: Vec<PathBuf> = target.ancestors().take_while(|p| !p.as_os_str().is_empty() && !p.exists()).map(Path::to_path_buf).collect();
+        let created: Vec<PathBuf> = target
+            .ancestors()
+            .take_while(|p| !p.as_os_str().is_empty() && !p.exists())
+            .map(Path::to_path_buf)
+            .collect();
         std::fs::create_dir_all(target).map_err(|source| PipelineError::Io {
             action: "create report folder",
             path: target.to_path_buf(),
@@ -43,8 +47,11 @@ impl RunLock {
         })?;
         let path = canonical.join(LOCK_FILE);
         for _ in 0..MAX_ATTEMPTS {
-            let file = open_lock_file(&path)
-                .map_err(|source| PipelineError::Io { action: "open lock file", path: path.clone(), source })?;
+            let file = open_lock_file(&path).map_err(|source| PipelineError::Io {
+                action: "open lock file",
+                path: path.clone(),
+                source,
+            })?;
             match file.try_lock() {
                 Ok(()) => {}
                 Err(TryLockError::WouldBlock) => {

@@ -568,7 +568,7 @@ mod tests {
     fn significant_digits() {
         assert_eq!(round_significant(96882.3, 2), 97000.0);
         assert_eq!(round_significant(987654.321, 2), 990000.0);
-        assert_eq!(round_significant(3.14159, 3), 3.14);
+        assert_eq!(round_significant(4.56789, 3), 4.57);
         assert_eq!(round_significant(-0.0123456, 2), -0.012);
         assert_eq!(round_significant(9.96, 2), 10.0);
         assert_eq!(round_significant(0.0, 2), 0.0);
@@ -611,7 +611,10 @@ mod tests {
         let present: Vec<f64> = (0..50).map(|i| f64::from(i % 5 + 1)).collect();
         let groups = response_groups(&present, &distinct_values(&present));
         assert_eq!(groups.len(), 5);
-        assert_eq!((groups[0].from, groups[0].to, groups[0].count, groups[0].label.as_str()), (Some(1.0), Some(1.0), 10, "1"));
+        assert_eq!(
+            (groups[0].from, groups[0].to, groups[0].count, groups[0].label.as_str()),
+            (Some(1.0), Some(1.0), 10, "1")
+        );
         // Fewer than MIN_GROUP answers in all: one group, no bounds.
         let groups = response_groups(&[1.0, 2.0, 2.0], &[1.0, 2.0]);
         assert_eq!(groups, vec![ResponseGroup { from: None, to: None, count: 3, label: "all".into() }]);
