@@ -170,6 +170,10 @@ fn recovers_from_damaged_entries(damage: impl Fn(&Path)) {
     for e in &entries {
         damage(e);
     }
+    // `plan` looks without touching: nothing counts as cached, nothing blocks.
+    let plan = run_in(case.path(), &["plan", "spec.yaml"], &[]);
+    plan.code(0);
+    assert_eq!(plan.stdout.matches("stale").count(), 2, "{}", plan.show());
     let second = run_in(case.path(), &["run", "spec.yaml"], &[]);
     second.code(0).stderr_has("recomputing").stderr_has("nothing changed since v1");
     assert_eq!(second.stderr.matches("load         computed").count(), 1, "{}", second.show());
@@ -181,6 +185,7 @@ fn recovers_from_damaged_entries(damage: impl Fn(&Path)) {
     let third = run_in(case.path(), &["run", "spec.yaml"], &[]);
     third.code(0);
     assert!(!third.stderr.contains("computed"), "{}", third.show());
+    run_in(case.path(), &["verify", "reports/small-panel/v1"], &[]).code(0);
 }
 
 #[test]

@@ -77,13 +77,11 @@ fn num(value: TemplateValue, digits: Option<usize>) -> String {
     }
 }
 
-/// `{{ x | sig }}`: a number already rounded to its significant digits (the item summaries),
-/// in its shortest form (`97000`, `3.14`); missing values show as "–".
-fn sig(value: TemplateValue) -> String {
-    match f64::try_from(value) {
-        Ok(v) if v.is_finite() => format!("{v}"),
-        _ => "–".into(),
-    }
+/// `{{ x | sig(3) }}`: a number already rounded to that many significant digits (the item
+/// summaries), written with exactly those digits (`1.00`, `4990`, `97000`); missing values
+/// show as "–".
+fn sig(value: TemplateValue, digits: Option<i32>) -> String {
+    f64::try_from(value).ok().and_then(|v| text::significant(v, digits.unwrap_or(3))).unwrap_or_else(|| "–".into())
 }
 
 fn pct(value: TemplateValue) -> String {

@@ -127,6 +127,19 @@ pub fn code_span(s: &str) -> String {
     format!("{fence}{pad}{text}{pad}{fence}")
 }
 
+/// `v` written with `digits` significant digits, trailing zeros kept (`1.00`, `4990`); for
+/// numbers already rounded to that many digits. `None` for NaN and infinities.
+pub fn significant(v: f64, digits: i32) -> Option<String> {
+    if !v.is_finite() {
+        return None;
+    }
+    if v == 0.0 {
+        return Some("0".into());
+    }
+    let decimals = (digits - 1 - v.abs().log10().floor() as i32).max(0) as usize;
+    Some(format!("{v:.decimals$}"))
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -155,6 +168,17 @@ mod tests {
         assert_eq!(markdown_text("    code"), "&#32;&#32;&#32;&#32;code");
         assert_eq!(markdown_text("x\u{202E}y"), "x&lt;U+202E&gt;y");
         assert_eq!(markdown_text("a\n# b"), "a \\# b");
+    }
+
+    #[test]
+    fn significant_digits_keep_trailing_zeros() {
+        assert_eq!(significant(1.0, 3).as_deref(), Some("1.00"));
+        assert_eq!(significant(4990.0, 3).as_deref(), Some("4990"));
+        assert_eq!(significant(97000.0, 2).as_deref(), Some("97000"));
+        assert_eq!(significant(0.012, 2).as_deref(), Some("0.012"));
+        assert_eq!(significant(-2.5, 2).as_deref(), Some("-2.5"));
+        assert_eq!(significant(0.0, 3).as_deref(), Some("0"));
+        assert_eq!(significant(f64::NAN, 3), None);
     }
 
     #[test]

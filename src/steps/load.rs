@@ -27,7 +27,8 @@ pub const VERSION: u32 = 3;
 /// is the usual minimum cell size of statistical disclosure control for frequency tables.
 pub const MIN_GROUP: usize = 5;
 
-/// Significant digits of published means and standard deviations.
+/// Significant digits of published means and standard deviations (the report templates
+/// print them with `sig(3)`, and percentiles with `sig(2)`: keep them in step).
 pub const MEAN_DIGITS: i32 = 3;
 
 /// Significant digits of published percentiles: near the tails a value is close to a few
