@@ -8,9 +8,64 @@ use std::fs::{File, OpenOptions};
 use std::io::Read;
 use std::path::Path;
 
+use thiserror::Error;
+
 /// Upper bound for text files construe reads whole (specs, simulation models, manifests,
 /// results): far above any real one, far below a memory problem.
 pub const MAX_TEXT_BYTES: u64 = 64 << 20;
+
+/// Why a file was refused. Carried inside the `std::io::Error` the functions here return
+/// (`ErrorKind::InvalidInput` / `InvalidData`), so callers keep their io-error plumbing and
+/// can still ask for a hint with `hint`.
+#[derive(Debug, Error, Clone, PartialEq, Eq)]
+pub enum Refusal {
+    #[error("it is {kind}; construe reads only regular files")]
+    NotRegular { kind: &'static str },
+    #[error("it is {len} bytes, more than the {max} bytes construe reads from such a file")]
+    TooLarge { len: u64, max: u64 },
+    #[error("it is not UTF-8 text (invalid byte at offset {offset})")]
+    NotUtf8 { offset: usize },
+}
+
+impl Refusal {
+    /// What the user can do about it.
+    pub fn hint(&self) -> &'static str {
+        match self {
+            Refusal::NotRegular { .. } => {
+                "name the file itself, not a pipe, device or folder; to use a stream, save it to a file first"
+            }
+            Refusal::TooLarge { .. } => "check that the path names the intended file",
+            Refusal::NotUtf8 { .. } => "save the file as UTF-8 text",
+        }
+    }
+
+    fn into_io(self) -> std::io::Error {
+        let kind = match self {
+            Refusal::NotUtf8 { .. } => std::io::ErrorKind::InvalidData,
+            _ => std::io::ErrorKind::InvalidInput,
+        };
+        std::io::Error::new(kind, self)
+    }
+}
+
+/// The refusal inside an error from this module, if it is one.
+pub fn refusal(error: &std::io::Error) -> Option<&Refusal> {
+    error.get_ref().and_then(|inner| inner.downcast_ref::<Refusal>())
+}
+
+/// The hint for an error from this module, if it is a refusal.
+pub fn hint(error: &std::io::Error) -> Option<&'static str> {
+    refusal(error).map(Refusal::hint)
+}
+
+/// The same error with its hint appended as a `hint:` line, for error types that print a
+/// `caused by:` line and have no hint of their own.
+pub fn hinted(error: std::io::Error) -> std::io::Error {
+    match refusal(&error) {
+        Some(r) => std::io::Error::new(error.kind(), format!("{r}\n  hint: {}", r.hint())),
+        None => error,
+    }
+}
 
 /// What kind of file a path names, in words for a diagnostic.
 fn kind_name(meta: &std::fs::Metadata) -> &'static str {
@@ -45,10 +100,7 @@ pub fn open_regular(path: &Path) -> std::io::Result<File> {
     let file = options.open(path)?;
     let meta = file.metadata()?;
     if !meta.is_file() {
-        return Err(std::io::Error::new(
-            std::io::ErrorKind::InvalidInput,
-            format!("it is {}; construe reads only regular files", kind_name(&meta)),
-        ));
+        return Err(Refusal::NotRegular { kind: kind_name(&meta) }.into_io());
     }
     Ok(file)
 }
@@ -72,20 +124,11 @@ pub fn read_regular(path: &Path, max_bytes: u64) -> std::io::Result<Vec<u8>> {
 /// Reads a whole regular UTF-8 text file of at most `max_bytes` bytes.
 pub fn read_regular_text(path: &Path, max_bytes: u64) -> std::io::Result<String> {
     let bytes = read_regular(path, max_bytes)?;
-    String::from_utf8(bytes).map_err(|e| {
-        let at = e.utf8_error().valid_up_to();
-        std::io::Error::new(
-            std::io::ErrorKind::InvalidData,
-            format!("it is not UTF-8 text (invalid byte at offset {at})"),
-        )
-    })
+    String::from_utf8(bytes).map_err(|e| Refusal::NotUtf8 { offset: e.utf8_error().valid_up_to() }.into_io())
 }
 
 fn too_large(len: u64, max: u64) -> std::io::Error {
-    std::io::Error::new(
-        std::io::ErrorKind::InvalidInput,
-        format!("it is {len} bytes, more than the {max} bytes construe reads from such a file"),
-    )
+    Refusal::TooLarge { len, max }.into_io()
 }
 
 #[cfg(test)]
@@ -102,6 +145,12 @@ mod tests {
         assert!(e.to_string().contains("5 bytes, more than the 4"), "{e}");
         let e = open_regular(dir.path()).unwrap_err();
         assert!(e.to_string().contains("a folder"), "{e}");
+        assert_eq!(refusal(&e), Some(&Refusal::NotRegular { kind: "a folder" }));
+        assert!(hint(&e).is_some_and(|h| h.contains("save it to a file")));
+        assert!(hinted(e).to_string().contains("\n  hint: name the file itself"));
+        let missing = open_regular(&dir.path().join("nope")).unwrap_err();
+        assert_eq!(hint(&missing), None);
+        assert_eq!(hinted(missing).kind(), std::io::ErrorKind::NotFound);
     }
 
     #[cfg(unix)]

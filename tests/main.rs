@@ -10,6 +10,7 @@ mod coverage;
 mod demo;
 mod diff;
 mod faults;
+mod guard;
 mod reference;
 mod report;
 mod robustness;

@@ -1,5 +1,6 @@
 //! The report context: everything the templates show, as one JSON value built from the spec,
-//! the execution and results.json. Aggregates only; the respondent table never enters it.
+//! the execution and results.json. Aggregates only; the respondent table never enters it, and
+//! no single respondent's value does (`disclosure` says what the item table shows instead).
 
 use serde_json::{Value, json};
 
@@ -79,6 +80,7 @@ pub fn report_context(spec: &SpecFile, execution: &Execution, results: &Value) -
         "spec_path": spec.path.display().to_string(),
         "tool_version": env!("CARGO_PKG_VERSION"),
         "data": results.get("data"),
+        "disclosure": disclosure(),
         "source": if s.data.matrix.is_some() { "matrix" } else { "waves" },
         "constructs": constructs,
         "knowledge": {"tiers": tiers, "forbid": s.knowledge.forbid, "require": s.knowledge.require},
@@ -95,6 +97,18 @@ pub fn report_context(spec: &SpecFile, execution: &Execution, results: &Value) -
         "sensitivity_plots": sensitivity_plots(execution),
         "steps": steps,
     })
+}
+
+/// What the item table shows in place of single answers (statistical disclosure control).
+fn disclosure() -> String {
+    use crate::steps::load::{MEAN_DIGITS, MIN_GROUP as k, PERCENTILE_DIGITS};
+    format!(
+        "No value in this report is a single respondent's answer: continuous items show mean and SD to \
+         {MEAN_DIGITS} significant digits and, as spread, the 5th to 95th percentile to {PERCENTILE_DIGITS}, \
+         given only when at least {k} \
+         answers lie beyond each; ordinal items show their response levels with counts, levels with fewer \
+         than {k} answers pooled with their neighbours; no minimum or maximum is shown."
+    )
 }
 
 /// The path diagram, when the structure search ran.
@@ -145,7 +159,8 @@ fn structure_diagram(spec: &SpecFile, execution: &Execution) -> Option<String> {
 fn truth_comparison(spec: &SpecFile, execution: &Execution) -> Option<Value> {
     let rel = spec.spec.report.truth_model.as_ref()?;
     let path = spec.resolve(rel);
-    let truth = std::fs::read_to_string(&path)
+    // A FIFO or device named as the truth model is refused, never waited on (issue 13).
+    let truth = crate::fsguard::read_regular_text(&path, crate::fsguard::MAX_TEXT_BYTES)
         .map_err(|e| e.to_string())
         .and_then(|text| serde_yaml::from_str::<SimulationModel>(&text).map_err(|e| e.to_string()))
         .and_then(|m| m.truth().map_err(|e| e.to_string()));
@@ -237,4 +252,23 @@ fn sensitivity_plots(execution: &Execution) -> Vec<Value> {
             })
         })
         .collect()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use std::collections::BTreeMap;
+
+    #[cfg(unix)]
+    #[test]
+    fn a_fifo_as_truth_model_is_reported_not_waited_on() {
+        let dir = tempfile::tempdir().unwrap();
+        let fifo = dir.path().join("model.yaml");
+        assert!(std::process::Command::new("mkfifo").arg(&fifo).status().unwrap().success());
+        let yaml = "construe: 1\ntitle: t\ndata:\n  waves: [{id: w, file: w.csv}]\nconstructs:\n  a: {items: [x, y, z]}\nreport: {truth_model: model.yaml}\n";
+        let spec = SpecFile::parse(&dir.path().join("spec.yaml"), yaml.into()).unwrap();
+        let execution = Execution { outcomes: Vec::new(), artifacts: BTreeMap::new() };
+        let truth = truth_comparison(&spec, &execution).unwrap();
+        assert!(truth["error"].as_str().unwrap().contains("named pipe"), "{truth}");
+    }
 }

@@ -53,8 +53,8 @@ pub struct SimulateRequest<'a> {
 
 /// Draws and writes; returns the number of rows written.
 pub fn simulate(req: &SimulateRequest<'_>) -> Result<usize, SimulateError> {
-    let source =
-        std::fs::read_to_string(req.model).map_err(|source| SimulateError::Read { path: req.model.into(), source })?;
+    let source = crate::fsguard::read_regular_text(req.model, crate::fsguard::MAX_TEXT_BYTES)
+        .map_err(|source| SimulateError::Read { path: req.model.into(), source: crate::fsguard::hinted(source) })?;
     let mut model: SimulationModel = serde_yaml::from_str(&source).map_err(|e| {
         let position = e.location().map(|l| Position { line: l.line(), column: l.column() });
         let message = e.to_string();

@@ -67,8 +67,9 @@ impl<'de> Deserialize<'de> for Key {
 }
 
 /// The BLAKE3 hash and size of a file, streamed so large waves are not held in memory twice.
+/// Only regular files: a FIFO would block the open and a device (`/dev/zero`) never ends.
 pub fn hash_file(path: &Path) -> std::io::Result<(Key, u64)> {
-    let mut file = std::fs::File::open(path)?;
+    let mut file = crate::fsguard::open_regular(path)?;
     let mut hasher = blake3::Hasher::new();
     let mut buf = vec![0u8; 1 << 16];
     let mut size = 0u64;
@@ -137,6 +138,17 @@ mod tests {
     #[test]
     fn blake3_reference_vector() {
         assert_eq!(Key::of_bytes(b"").hex(), "af1349b9f5f9a1a6a0404dea36dcc9499bcb25c9adc112b7cc9a93cae41f3262");
+    }
+
+    #[cfg(unix)]
+    #[test]
+    fn hash_file_refuses_special_files() {
+        let e = hash_file(Path::new("/dev/zero")).unwrap_err();
+        assert!(crate::fsguard::refusal(&e).is_some(), "{e}");
+        let dir = tempfile::tempdir().unwrap();
+        let p = dir.path().join("w.csv");
+        std::fs::write(&p, b"abc").unwrap();
+        assert_eq!(hash_file(&p).unwrap(), (Key::of_bytes(b"abc"), 3));
     }
 
     #[test]

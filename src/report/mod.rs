@@ -7,11 +7,12 @@
 pub mod diagram;
 pub mod diff;
 pub mod svg;
+pub mod text;
 pub mod versions;
 
 use std::path::{Path, PathBuf};
 
-use minijinja::{Environment, Value as TemplateValue};
+use minijinja::{AutoEscape, Environment, Error as TemplateError, Output, State, Value as TemplateValue};
 use serde_json::{Value, json};
 use thiserror::Error;
 
@@ -19,6 +20,7 @@ use crate::pipeline::key::Key;
 use crate::pipeline::manifest::{Manifest, PreviousVersion};
 use crate::spec::types::ReportFormat;
 
+pub use text::{code_span, markdown_text, visible};
 pub use versions::{WriteOutcome, slug};
 
 #[derive(Debug, Error)]
@@ -33,17 +35,39 @@ const HTML: &str = include_str!("../../templates/report.html");
 const MARKDOWN: &str = include_str!("../../templates/report.md");
 const STYLE: &str = include_str!("../../templates/style.css");
 
-/// The template environment: HTML autoescaped (by the `.html` name), Markdown not; filters for
-/// fixed-digit numbers and Markdown table cells.
+/// The template environment: HTML autoescaped (by the `.html` name); in Markdown every printed
+/// value is escaped by `formatter` unless a filter here already made it safe. Filters for
+/// fixed-digit numbers, numbers already rounded (`sig`), Markdown text (`cell`, `md`) and
+/// Markdown code spans (`code`).
 fn environment() -> Result<Environment<'static>, ReportError> {
     let mut env = Environment::new();
+    env.set_formatter(formatter);
     env.add_filter("num", num);
-    env.add_filter("cell", markdown_cell);
+    env.add_filter("sig", sig);
+    env.add_filter("cell", markdown_filter);
+    env.add_filter("md", markdown_filter);
+    env.add_filter("code", markdown_code);
     env.add_filter("pct", pct);
     for (name, text) in [("report.html", HTML), ("report.md", MARKDOWN)] {
         env.add_template(name, text).map_err(|source| ReportError::Template { name: name.into(), source })?;
     }
     Ok(env)
+}
+
+/// Writes every `{{ … }}` value. Text from specs and data never reaches a report raw: invisible
+/// and direction-changing characters are shown as `<U+202E>` in both formats (issue 13: a
+/// right-to-left override could make a name read differently from what it is), HTML is
+/// escaped as usual, and Markdown (no auto-escape) is escaped by `markdown_text`, except for
+/// values a filter already escaped (marked safe).
+fn formatter(out: &mut Output<'_>, state: &mut State<'_, '_>, value: &TemplateValue) -> Result<(), TemplateError> {
+    if value.is_safe() || value.is_undefined() || value.is_none() {
+        return minijinja::escape_formatter(out, state, value);
+    }
+    let text = value.as_str().map_or_else(|| value.to_string(), str::to_string);
+    match state.auto_escape() {
+        AutoEscape::None => out.write_str(&markdown_text(&text)).map_err(TemplateError::from),
+        _ => minijinja::escape_formatter(out, state, &TemplateValue::from(visible(&text))),
+    }
 }
 
 /// `{{ x | num(3) }}`: a number with fixed decimals; missing or non-finite values show as "–".
@@ -55,6 +79,13 @@ fn num(value: TemplateValue, digits: Option<usize>) -> String {
     }
 }
 
+/// `{{ x | sig(3) }}`: a number already rounded to that many significant digits (the item
+/// summaries), written with exactly those digits (`1.00`, `4990`, `97000`); missing values
+/// show as "–".
+fn sig(value: TemplateValue, digits: Option<i32>) -> String {
+    f64::try_from(value).ok().and_then(|v| text::significant(v, digits.unwrap_or(3))).unwrap_or_else(|| "–".into())
+}
+
 fn pct(value: TemplateValue) -> String {
     match f64::try_from(value) {
         Ok(v) if v.is_finite() => format!("{:.1}%", v * 100.0),
@@ -62,11 +93,21 @@ fn pct(value: TemplateValue) -> String {
     }
 }
 
-/// Text safe inside a Markdown table cell: pipes escaped, angle brackets as entities so a name
-/// like `<script>` shows as text in any renderer.
-fn markdown_cell(value: TemplateValue) -> String {
-    let s = value.as_str().map(str::to_string).unwrap_or_else(|| value.to_string());
-    s.replace('&', "&amp;").replace('<', "&lt;").replace('>', "&gt;").replace('|', "\\|").replace('\n', " ")
+fn as_text(value: &TemplateValue) -> String {
+    value.as_str().map_or_else(|| value.to_string(), str::to_string)
+}
+
+/// `{{ x | cell }}` / `{{ x | md }}`: spec or data text as Markdown text (see `markdown_text`).
+fn markdown_filter(value: TemplateValue) -> TemplateValue {
+    if value.is_safe() {
+        return value;
+    }
+    TemplateValue::from_safe_string(markdown_text(&as_text(&value)))
+}
+
+/// `{{ x | code }}`: spec or data text as a Markdown code span, whatever backticks it holds.
+fn markdown_code(value: TemplateValue) -> TemplateValue {
+    TemplateValue::from_safe_string(code_span(&as_text(&value)))
 }
 
 /// Renders one format from the report context.

@@ -4,10 +4,11 @@
 
 use std::fmt::Write;
 
-/// Escapes text for XML/HTML content and attribute values.
+/// Escapes text for XML/HTML content and attribute values; invisible and direction-changing
+/// characters are written out as `<U+XXXX>` (`report::visible`) first.
 pub fn escape(text: &str) -> String {
     let mut out = String::with_capacity(text.len());
-    for c in text.chars() {
+    for c in super::visible(text).chars() {
         match c {
             '&' => out.push_str("&amp;"),
             '<' => out.push_str("&lt;"),
@@ -204,6 +205,7 @@ mod tests {
         let svg = heatmap(&items, &["x".into(), "y".into()], &[vec![1.0, 0.3], vec![0.3, 1.0]]);
         assert!(!svg.contains("<script>"));
         assert!(svg.contains("&lt;script&gt;"));
+        assert_eq!(escape("ab\u{202E}cd"), "ab&lt;U+202E&gt;cd");
     }
 
     #[test]

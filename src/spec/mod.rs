@@ -33,9 +33,13 @@ impl SpecFile {
     /// Reads and parses `path`. Syntax errors, unknown keys (all of them) and type errors come
     /// back as a `Report` that points into the file.
     pub fn read(path: &Path) -> Result<SpecFile, Report> {
-        let source = std::fs::read_to_string(path).map_err(|e| {
+        // A FIFO or device named as the spec is refused before a byte is read (issue 13).
+        let source = crate::fsguard::read_regular_text(path, crate::fsguard::MAX_TEXT_BYTES).map_err(|e| {
             let mut r = Report::default();
-            r.push(Diagnostic::error(format!("cannot read spec file `{}`\n  caused by: {e}", path.display())));
+            r.push(
+                Diagnostic::error(format!("cannot read spec file `{}`\n  caused by: {e}", path.display()))
+                    .with_help_opt(crate::fsguard::hint(&e).map(str::to_string)),
+            );
             r
         })?;
         Self::parse(path, source)

@@ -1,7 +1,9 @@
 //! `load`: read every wave (or the summary matrix), stack rows with their wave, apply missing
 //! codes and reverse coding, decide each item's type, and summarise each item.
 //! Central type: `LoadOutput`. Its table is the only place respondent rows live; `results`
-//! exposes the summary alone.
+//! exposes the summary alone, and the summary discloses no single respondent's answer
+//! (issue 13): no minimum or maximum; rounded means, SDs and tail percentiles; response
+//! levels only in groups of at least `MIN_GROUP` respondents.
 
 use std::path::PathBuf;
 
@@ -17,7 +19,21 @@ use crate::spec::SpecFile;
 use crate::spec::types::{AUTO_MAX_LEVELS, MatrixKind, OrdinalSpec};
 
 /// Bump when the loaded table or summary changes for the same files and parameters.
-pub const VERSION: u32 = 2;
+/// 3: the summary drops each item's minimum and maximum for disclosure-safe aggregates.
+pub const VERSION: u32 = 3;
+
+/// Fewest respondents behind any published value of an item summary: a response level with
+/// fewer is pooled with its neighbour, a percentile with fewer beyond it is not shown. Five
+/// is the usual minimum cell size of statistical disclosure control for frequency tables.
+pub const MIN_GROUP: usize = 5;
+
+/// Significant digits of published means and standard deviations (the report templates
+/// print them with `sig(3)`, and percentiles with `sig(2)`: keep them in step).
+pub const MEAN_DIGITS: i32 = 3;
+
+/// Significant digits of published percentiles: near the tails a value is close to a few
+/// respondents' answers, so it is shown coarser than the mean.
+pub const PERCENTILE_DIGITS: i32 = 2;
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "snake_case")]
@@ -33,15 +49,40 @@ pub struct ItemSummary {
     pub kind: ItemKind,
     pub n: usize,
     pub missing: usize,
-    /// Distinct observed values (ordinal items: their categories, in order).
+    /// Number of distinct observed values.
     pub levels: usize,
+    /// Ordinal items: every observed category, in order, for `covariance`'s contingency
+    /// tables. Kept in the artifact (see `Envelope`), never in results: a rare category is a
+    /// single respondent's answer.
+    #[serde(skip)]
     pub categories: Option<Vec<f64>>,
-    /// `None` for a summary matrix, which carries no means or ranges.
+    /// `None` for a summary matrix, which carries no means. Rounded to `MEAN_DIGITS`
+    /// significant digits.
     pub mean: Option<f64>,
     pub sd: Option<f64>,
-    pub min: Option<f64>,
-    pub max: Option<f64>,
+    /// Continuous items: the 5th and 95th percentiles (linear interpolation between order
+    /// statistics, Hyndman & Fan 1996 type 7), to `PERCENTILE_DIGITS` significant digits; `None`
+    /// when fewer than `MIN_GROUP` answers lie at or beyond one of them.
+    pub p5: Option<f64>,
+    pub p95: Option<f64>,
+    /// Ordinal items: response levels with their counts, pooled into groups of at least
+    /// `MIN_GROUP` respondents.
+    pub responses: Option<Vec<ResponseGroup>>,
     pub reversed: bool,
+}
+
+/// Adjacent response levels of an ordinal item and how many answered one of them. An outer
+/// group that pools several levels leaves its outer bound open (`None`): that bound would be
+/// the smallest or largest answer, possibly a single respondent's.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct ResponseGroup {
+    /// Lowest level in the group; `None` for "this level or below".
+    pub from: Option<f64>,
+    /// Highest level in the group; `None` for "this level or above".
+    pub to: Option<f64>,
+    pub count: usize,
+    /// `3`, `2–3`, `≤ 2`, `≥ 4` (or `all` when every answer is in one group).
+    pub label: String,
 }
 
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -79,6 +120,8 @@ pub struct LoadOutput {
 struct Envelope {
     summary: DataSummary,
     matrix: Option<SummaryMatrix>,
+    /// Each item's `categories`, which the summary's serialisation leaves out.
+    categories: Vec<Option<Vec<f64>>>,
 }
 
 impl LoadOutput {
@@ -92,7 +135,14 @@ impl LoadOutput {
     /// Writes `encode`'s bytes without building them in memory first.
     pub fn write_to(&self, out: &mut dyn std::io::Write) -> std::io::Result<()> {
         let mut head = Vec::new();
-        super::write_exact(&mut head, &Envelope { summary: self.summary.clone(), matrix: self.matrix.clone() })?;
+        super::write_exact(
+            &mut head,
+            &Envelope {
+                summary: self.summary.clone(),
+                matrix: self.matrix.clone(),
+                categories: self.summary.items.iter().map(|i| i.categories.clone()).collect(),
+            },
+        )?;
         out.write_all(&(head.len() as u64).to_le_bytes())?;
         out.write_all(&head)?;
         match &self.table {
@@ -104,7 +154,13 @@ impl LoadOutput {
     pub fn decode(bytes: &[u8]) -> Option<LoadOutput> {
         let (len, rest) = bytes.split_first_chunk::<8>()?;
         let len = usize::try_from(u64::from_le_bytes(*len)).ok()?;
-        let env: Envelope = super::read_exact(rest.get(..len)?)?;
+        let mut env: Envelope = super::read_exact(rest.get(..len)?)?;
+        if env.categories.len() != env.summary.items.len() {
+            return None;
+        }
+        for (item, categories) in env.summary.items.iter_mut().zip(env.categories) {
+            item.categories = categories;
+        }
         let tail = rest.get(len..)?;
         let table = if tail.is_empty() { None } else { Some(Table::from_bytes(tail)?) };
         Some(LoadOutput { summary: env.summary, table, matrix: env.matrix })
@@ -231,7 +287,7 @@ impl LoadStep {
     }
 
     fn summarise(&self, name: &str, construct: &str, col: &[f64]) -> Result<ItemSummary, DataError> {
-        let present: Vec<f64> = col.iter().copied().filter(|v| !v.is_nan()).collect();
+        let mut present: Vec<f64> = col.iter().copied().filter(|v| !v.is_nan()).collect();
         let n = present.len();
         if n == 0 {
             return Err(DataError::EmptyItem { item: name.into() });
@@ -253,6 +309,14 @@ impl LoadStep {
         };
         let mean = present.iter().sum::<f64>() / n as f64;
         let var = present.iter().map(|v| (v - mean).powi(2)).sum::<f64>() / (n as f64 - 1.0).max(1.0);
+        let (p5, p95, responses) = match kind {
+            ItemKind::Continuous => (
+                safe_percentile(&mut present, 0.05).map(|v| round_significant(v, PERCENTILE_DIGITS)),
+                safe_percentile(&mut present, 0.95).map(|v| round_significant(v, PERCENTILE_DIGITS)),
+                None,
+            ),
+            ItemKind::Ordinal => (None, None, Some(response_groups(&present, &distinct))),
+        };
         Ok(ItemSummary {
             name: name.into(),
             construct: construct.into(),
@@ -261,10 +325,11 @@ impl LoadStep {
             missing: col.len() - n,
             levels: distinct.len(),
             categories: (kind == ItemKind::Ordinal).then(|| distinct.clone()),
-            mean: Some(mean),
-            sd: Some(var.sqrt()),
-            min: Some(distinct[0]),
-            max: Some(distinct[distinct.len() - 1]),
+            mean: Some(round_significant(mean, MEAN_DIGITS)),
+            sd: Some(round_significant(var.sqrt(), MEAN_DIGITS)),
+            p5,
+            p95,
+            responses,
             reversed: self.reverse.contains_key(name),
         })
     }
@@ -297,9 +362,13 @@ impl LoadStep {
                     levels: 0,
                     categories: None,
                     mean: None,
-                    sd: Some(if kind == MatrixKind::Covariance { var.sqrt() } else { 1.0 }),
-                    min: None,
-                    max: None,
+                    sd: Some(round_significant(
+                        if kind == MatrixKind::Covariance { var.sqrt() } else { 1.0 },
+                        MEAN_DIGITS,
+                    )),
+                    p5: None,
+                    p95: None,
+                    responses: None,
                     reversed: false,
                 }
             })
@@ -368,6 +437,100 @@ impl Step for LoadStep {
     }
 }
 
+/// `x` rounded to `digits` significant digits (0, NaN and infinities unchanged). The power of
+/// ten is applied by multiplying or dividing by an exact integer power, so 96882 to 2 digits
+/// is exactly 97000.
+pub fn round_significant(x: f64, digits: i32) -> f64 {
+    if x == 0.0 || !x.is_finite() {
+        return x;
+    }
+    let shift = digits - 1 - x.abs().log10().floor() as i32;
+    let rounded = if shift >= 0 {
+        let scale = 10f64.powi(shift);
+        (x * scale).round() / scale
+    } else {
+        let scale = 10f64.powi(-shift);
+        (x / scale).round() * scale
+    };
+    // Rounding 9.96 up to 10.0 can leave one digit too many in the last place; a second pass
+    // at the new magnitude is exact.
+    if rounded != 0.0 && rounded.abs().log10().floor() as i32 != x.abs().log10().floor() as i32 {
+        return round_significant(rounded, digits);
+    }
+    rounded
+}
+
+/// The `p` quantile of `values` (Hyndman & Fan 1996, type 7: h = (n − 1)p, interpolated
+/// between the order statistics around h), or `None` when fewer than `MIN_GROUP` values lie at
+/// or below it (p < 0.5) or at or above it (p ≥ 0.5): near the tails of a small sample a
+/// percentile is close to one respondent's answer. Reorders `values` (selection, O(n)).
+fn safe_percentile(values: &mut [f64], p: f64) -> Option<f64> {
+    let n = values.len();
+    if n == 0 {
+        return None;
+    }
+    let h = (n - 1) as f64 * p;
+    let lo = h.floor() as usize;
+    let beyond = if p < 0.5 { lo + 1 } else { n - h.ceil() as usize };
+    if beyond < MIN_GROUP {
+        return None;
+    }
+    let (_, &mut below, above) = values.select_nth_unstable_by(lo, f64::total_cmp);
+    let next = above.iter().copied().min_by(f64::total_cmp).unwrap_or(below);
+    Some(below + (h - lo as f64) * (next - below))
+}
+
+/// Counts of each level in `distinct` (sorted) among `present`, pooled bottom-up into groups
+/// of at least `MIN_GROUP` respondents; a short last group joins the one before it.
+fn response_groups(present: &[f64], distinct: &[f64]) -> Vec<ResponseGroup> {
+    let mut counts = vec![0usize; distinct.len()];
+    for v in present {
+        let v = v + 0.0;
+        if let Ok(k) = distinct.binary_search_by(|x| x.total_cmp(&v)) {
+            counts[k] += 1;
+        }
+    }
+    // Groups as index ranges into `distinct`.
+    let mut spans: Vec<(usize, usize, usize)> = Vec::new();
+    let mut start = 0;
+    let mut sum = 0;
+    for (k, c) in counts.iter().enumerate() {
+        sum += c;
+        if sum >= MIN_GROUP {
+            spans.push((start, k, sum));
+            start = k + 1;
+            sum = 0;
+        }
+    }
+    if sum > 0 {
+        match spans.last_mut() {
+            Some(last) => {
+                last.1 = distinct.len() - 1;
+                last.2 += sum;
+            }
+            None => spans.push((0, distinct.len() - 1, sum)),
+        }
+    }
+    let groups = spans.len();
+    spans
+        .into_iter()
+        .enumerate()
+        .map(|(g, (a, b, count))| {
+            // An outer group pooling several levels keeps its outer bound to itself.
+            let from = (g > 0 || a == b).then_some(distinct[a]);
+            let to = (g + 1 < groups || a == b).then_some(distinct[b]);
+            let label = match (from, to) {
+                (Some(x), Some(y)) if x == y => format!("{x}"),
+                (Some(x), Some(y)) => format!("{x}–{y}"),
+                (None, Some(y)) => format!("≤ {y}"),
+                (Some(x), None) => format!("≥ {x}"),
+                (None, None) => "all".into(),
+            };
+            ResponseGroup { from, to, count, label }
+        })
+        .collect()
+}
+
 /// Most distinct values kept in the one-pass set before `distinct_values` falls back to sorting.
 const SMALL_SET_LIMIT: usize = 64;
 
@@ -403,6 +566,62 @@ mod tests {
         all.sort_by(f64::total_cmp);
         all.dedup();
         all
+    }
+
+    #[test]
+    fn significant_digits() {
+        assert_eq!(round_significant(96882.3, 2), 97000.0);
+        assert_eq!(round_significant(987654.321, 2), 990000.0);
+        assert_eq!(round_significant(4.56789, 3), 4.57);
+        assert_eq!(round_significant(-0.0123456, 2), -0.012);
+        assert_eq!(round_significant(9.96, 2), 10.0);
+        assert_eq!(round_significant(0.0, 2), 0.0);
+        assert!(round_significant(f64::NAN, 2).is_nan());
+    }
+
+    #[test]
+    fn percentiles_interpolate_and_hide_thin_tails() {
+        // Type 7 on 1..=101: h = 100 p, so the 5th percentile is 6 and the 95th is 96.
+        let mut v: Vec<f64> = (1..=101).rev().map(f64::from).collect();
+        assert_eq!(safe_percentile(&mut v, 0.05), Some(6.0));
+        assert_eq!(safe_percentile(&mut v, 0.95), Some(96.0));
+        // On 1..=100: h = 4.95 and 94.05.
+        let mut v: Vec<f64> = (1..=100).map(f64::from).collect();
+        assert!((safe_percentile(&mut v, 0.05).unwrap() - 5.95).abs() < 1e-12);
+        assert!((safe_percentile(&mut v, 0.95).unwrap() - 95.05).abs() < 1e-12);
+        // 80 answers: only 4 at or below h = 3.95; 81 answers: 5.
+        let mut v: Vec<f64> = (1..=80).map(f64::from).collect();
+        assert_eq!(safe_percentile(&mut v, 0.05), None);
+        assert_eq!(safe_percentile(&mut v, 0.95), None);
+        let mut v: Vec<f64> = (1..=81).map(f64::from).collect();
+        assert_eq!(safe_percentile(&mut v, 0.05), Some(5.0));
+        assert_eq!(safe_percentile(&mut v, 0.95), Some(77.0));
+    }
+
+    #[test]
+    fn rare_levels_are_pooled_and_outer_bounds_hidden() {
+        let mut present = Vec::new();
+        for (level, count) in [(1.0, 1), (2.0, 3), (3.0, 40), (4.0, 30), (5.0, 2), (7.0, 1)] {
+            present.extend(std::iter::repeat_n(level, count));
+        }
+        let distinct = distinct_values(&present);
+        let groups = response_groups(&present, &distinct);
+        let shown: Vec<(&str, usize)> = groups.iter().map(|g| (g.label.as_str(), g.count)).collect();
+        // 1, 2, 3 reach 44; 4 alone has 30; 5 and 7 (3 answers) join the group before them.
+        assert_eq!(shown, vec![("≤ 3", 44), ("≥ 4", 33)]);
+        assert_eq!(groups[0].from, None);
+        assert_eq!(groups[1].to, None);
+        // Every level common: one group each, bounds shown.
+        let present: Vec<f64> = (0..50).map(|i| f64::from(i % 5 + 1)).collect();
+        let groups = response_groups(&present, &distinct_values(&present));
+        assert_eq!(groups.len(), 5);
+        assert_eq!(
+            (groups[0].from, groups[0].to, groups[0].count, groups[0].label.as_str()),
+            (Some(1.0), Some(1.0), 10, "1")
+        );
+        // Fewer than MIN_GROUP answers in all: one group, no bounds.
+        let groups = response_groups(&[1.0, 2.0, 2.0], &[1.0, 2.0]);
+        assert_eq!(groups, vec![ResponseGroup { from: None, to: None, count: 3, label: "all".into() }]);
     }
 
     #[test]
