@@ -298,7 +298,7 @@ mod tests {
     // (tests/reference/polychoric/make_fixtures.R).
     #[test]
     fn cdf_matches_mvtnorm_fixtures() {
-        let fx: Fixture = serde_json::from_str(include_str!("../../../tests/reference/polychoric/bvn.json")).unwrap();
+        let fx: Fixture = crate::reference!("polychoric/bvn.json");
         assert!(fx.points.len() >= 200);
         let mut worst = 0.0_f64;
         for pt in &fx.points {

@@ -289,43 +289,10 @@ fn gcd(mut a: usize, mut b: usize) -> usize {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::purify::{PurifyOptions, purify};
-    use crate::tetrad::testutil::{draw_normal, factor_cov, sample_cov};
-    use nalgebra::DVector;
+    use crate::testkit::{cluster_pool as pool_model, draw_normal, sample_cov};
+    use rand::SeedableRng;
     use rand::seq::SliceRandom;
-    use rand::{Rng, SeedableRng};
     use rand_chacha::ChaCha8Rng;
-
-    /// `k` correlated latents (correlations from a random rank-2-plus-diagonal matrix, so that
-    /// no tetrad among four latents vanishes by accident) with `size` pure items each, then the
-    /// impure extras: item k*size loads on latents 0 and 1, item k*size + 1 on latents 1 and 2.
-    /// Loadings uniform in [0.55, 0.85]; unit item variances.
-    fn pool_model(k: usize, size: usize, impure: usize, rng: &mut ChaCha8Rng) -> DMatrix<f64> {
-        let p = k * size + impure;
-        let mut lambda = DMatrix::zeros(p, k);
-        for f in 0..k {
-            for j in 0..size {
-                lambda[(f * size + j, f)] = rng.random_range(0.55..0.85);
-            }
-        }
-        for e in 0..impure {
-            lambda[(k * size + e, e % k)] = 0.55;
-            lambda[(k * size + e, (e + 1) % k)] = 0.45;
-        }
-        let w: DMatrix<f64> =
-            DMatrix::from_fn(
-                k,
-                2,
-                |_, c| {
-                    if c == 0 { rng.random_range(0.3..0.7) } else { rng.random_range(-0.5..0.5) }
-                },
-            );
-        let raw = &w * w.transpose() + DMatrix::identity(k, k) * 0.8;
-        let phi = DMatrix::from_fn(k, k, |a, b| raw[(a, b)] / (raw[(a, a)] * raw[(b, b)]).sqrt());
-        let common = &lambda * &phi * lambda.transpose();
-        let theta = DMatrix::from_diagonal(&DVector::from_fn(p, |i, _| 1.0 - common[(i, i)]));
-        factor_cov(&lambda, &phi, &theta)
-    }
 
     // Simulation (REFERENCES.md, simulation checks; the setting of Kummerfeld & Ramsey 2016):
     // three pure clusters of five plus two cross-loading items, n = 2000. The three clusters
@@ -425,85 +392,5 @@ mod tests {
         assert!(find_clusters(&tester, &pool, &bad).is_err());
         assert!(find_clusters(&tester, &[0, 1, 1, 2], &ClusterOptions::default()).is_err());
         assert!(find_clusters(&tester, &[0, 1, 2, 99], &ClusterOptions::default()).is_err());
-    }
-
-    // Timing (performance targets of the project). Run with
-    // `cargo test --release timing_large_pools -- --ignored --nocapture`.
-    // Pools of 50, 100, 200 and 500 items (clusters of 25 plus two cross-loading items, in a
-    // shuffled order, n = 2000), and purification of 30 items in 6 declared groups.
-    #[test]
-    #[ignore]
-    fn timing_large_pools() {
-        for (k, label) in [(2, 50), (4, 100), (8, 200), (20, 500)] {
-            let mut rng = ChaCha8Rng::seed_from_u64(label as u64);
-            let sigma = pool_model(k, 25, 2, &mut rng);
-            let p = sigma.nrows();
-            let mut perm: Vec<usize> = (0..p).collect();
-            perm.shuffle(&mut rng);
-            let shuffled = DMatrix::from_fn(p, p, |a, b| sigma[(perm[a], perm[b])]);
-            let x = draw_normal(&shuffled, 2000, &mut rng);
-            let tester = TetradTester::wishart(&sample_cov(&x), 2000).unwrap();
-            let pool: Vec<usize> = (0..p).collect();
-            let start = std::time::Instant::now();
-            let got = find_clusters(&tester, &pool, &ClusterOptions::default()).unwrap();
-            let secs = start.elapsed().as_secs_f64();
-            let mut truth: Vec<Vec<usize>> = (0..k)
-                .map(|f| {
-                    let mut c: Vec<usize> = (0..p).filter(|&a| perm[a] / 25 == f && perm[a] < k * 25).collect();
-                    c.sort_unstable();
-                    c
-                })
-                .collect();
-            truth.sort();
-            let mut found = got.clusters.clone();
-            found.sort();
-            println!(
-                "{p} items: {secs:.2} s, {} clusters, exact recovery {}, unclustered {}",
-                got.clusters.len(),
-                found == truth,
-                got.unclustered.len()
-            );
-        }
-        // Adversarial pools: 250 latents with two indicators each (no cluster of three exists,
-        // so every correlated pair is tried as a seed), Wishart; and 200 items with the delta
-        // test.
-        for (k, size, delta) in [(250, 2, false), (100, 2, false), (8, 25, true)] {
-            let mut rng = ChaCha8Rng::seed_from_u64(7 + k as u64);
-            let sigma = pool_model(k, size, 0, &mut rng);
-            let p = sigma.nrows();
-            let x = draw_normal(&sigma, 2000, &mut rng);
-            let tester = if delta {
-                TetradTester::delta(&x).unwrap()
-            } else {
-                TetradTester::wishart(&sample_cov(&x), 2000).unwrap()
-            };
-            let pool: Vec<usize> = (0..p).collect();
-            let start = std::time::Instant::now();
-            let got = find_clusters(&tester, &pool, &ClusterOptions::default()).unwrap();
-            println!(
-                "{p} items ({k} latents x {size}, delta {delta}): {:.2} s, {} clusters",
-                start.elapsed().as_secs_f64(),
-                got.clusters.len()
-            );
-        }
-        let mut rng = ChaCha8Rng::seed_from_u64(30);
-        let sigma = pool_model(6, 5, 0, &mut rng);
-        let x = draw_normal(&sigma, 2000, &mut rng);
-        let s = sample_cov(&x);
-        let groups: Vec<Vec<usize>> = (0..6).map(|g| (g * 5..g * 5 + 5).collect()).collect();
-        for options in [
-            PurifyOptions::default(),
-            PurifyOptions { test: crate::tetrad::TetradTestKind::Delta, ..PurifyOptions::default() },
-        ] {
-            let start = std::time::Instant::now();
-            let r = purify(&s, 2000, Some(&x), &groups, &options).unwrap();
-            println!(
-                "purify 30 items ({:?}): {:.3} s, {} rounds, family {}",
-                options.test,
-                start.elapsed().as_secs_f64(),
-                r.family_sizes.len(),
-                r.family_sizes[0]
-            );
-        }
     }
 }

@@ -39,7 +39,7 @@ mod tests {
     use serde_json::Value;
 
     fn fixture() -> Value {
-        serde_json::from_str(include_str!("../../../tests/reference/tetrad/tetrad.json")).unwrap()
+        crate::reference!("tetrad/tetrad.json")
     }
 
     // Reference: scipy.stats.false_discovery_control(p, method="bh"), scipy 1.17.1 (version

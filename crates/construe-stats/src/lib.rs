@@ -17,14 +17,19 @@ pub mod search;
 pub mod sem;
 pub mod simulate;
 pub mod smoothing;
+pub mod testkit;
 pub mod tetrad;
 
-/// Simulation checks of the measurement-error pitfalls, structure recovery and test calibration.
-#[cfg(test)]
-mod pitfalls;
-
-/// Acceptance checks: classic-matrix CFA against scipy, purification and cluster recovery.
-#[cfg(test)]
-mod acceptance;
-
 pub use error::StatsError;
+
+/// Parses a committed reference fixture from the repository's `tests/reference/` (unit tests
+/// only; each fixture's generator and library versions sit beside it).
+#[cfg(test)]
+macro_rules! reference {
+    ($path:literal) => {
+        serde_json::from_str(include_str!(concat!(env!("CARGO_MANIFEST_DIR"), "/../../tests/reference/", $path)))
+            .expect(concat!("reference fixture ", $path))
+    };
+}
+#[cfg(test)]
+pub(crate) use reference;

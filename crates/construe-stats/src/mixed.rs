@@ -293,37 +293,7 @@ fn pearson(x: &[f64], y: &[f64]) -> Result<f64, StatsError> {
 mod tests {
     use super::*;
     use crate::polychoric::polychoric;
-    use rand::{Rng, SeedableRng};
-    use rand_chacha::ChaCha8Rng;
-    use rand_distr::{Distribution, StandardNormal};
-
-    /// A one-factor population: item = λ·F + √(1-λ²)·e, the first `continuous` columns kept
-    /// continuous, the rest cut at `cuts`; each value missing with probability `missing`.
-    fn one_factor_columns(n: usize, items: usize, continuous: usize, missing: f64, seed: u64) -> Vec<Column> {
-        let mut rng = ChaCha8Rng::seed_from_u64(seed);
-        let cuts = [-1.5, -0.5, 0.4, 1.3];
-        let loadings: Vec<f64> = (0..items).map(|k| 0.5 + 0.4 * (k % 5) as f64 / 4.0).collect();
-        let mut cont = vec![Vec::with_capacity(n); continuous];
-        let mut ord = vec![Vec::with_capacity(n); items - continuous];
-        for _ in 0..n {
-            let f: f64 = StandardNormal.sample(&mut rng);
-            for (k, &l) in loadings.iter().enumerate() {
-                let e: f64 = StandardNormal.sample(&mut rng);
-                let v = l * f + (1.0 - l * l).sqrt() * e;
-                let absent = rng.random::<f64>() < missing;
-                if k < continuous {
-                    cont[k].push((!absent).then_some(10.0 + 2.0 * v));
-                } else {
-                    let code = cuts.iter().filter(|&&c| v > c).count() as u32;
-                    ord[k - continuous].push((!absent).then_some(code));
-                }
-            }
-        }
-        cont.into_iter()
-            .map(Column::Continuous)
-            .chain(ord.into_iter().map(|codes| Column::Ordinal { codes, levels: 5 }))
-            .collect()
-    }
+    use crate::testkit::one_factor_columns;
 
     // Reference: R 4.2.2 cor(cbind(a, b, d), use = "pairwise.complete.obs") on the data
     // below (printed with 17 digits).
@@ -434,25 +404,5 @@ mod tests {
                 assert!(p.merged.is_empty());
             }
         }
-    }
-
-    // Performance check for the bench target (100 five-point items, n = 10,000, 4950
-    // polychoric pairs in under 3 s on 2 cores). Long, so ignored; run with
-    // `cargo test --release mixed_timing -- --ignored --nocapture`.
-    #[test]
-    #[ignore]
-    fn mixed_timing_100_items() {
-        let cols = one_factor_columns(10_000, 100, 0, 0.0, 11);
-        let start = std::time::Instant::now();
-        let m = mixed_correlation(&cols, OrdinalFit::TwoStep).unwrap();
-        let secs = start.elapsed().as_secs_f64();
-        let iters: usize = m.pairs.iter().map(|p| p.iterations).sum();
-        println!(
-            "100 ordinal items, n = 10000, {} pairs: {secs:.3} s on {} threads, mean {:.2} Newton iterations",
-            m.pairs.len(),
-            rayon::current_num_threads(),
-            iters as f64 / m.pairs.len() as f64
-        );
-        assert_eq!(m.pairs.len(), 4950);
     }
 }

@@ -658,7 +658,7 @@ mod tests {
     }
 
     fn fixture() -> Fixture {
-        serde_json::from_str(include_str!("../../../tests/reference/polychoric/polychoric.json")).unwrap()
+        crate::reference!("polychoric/polychoric.json")
     }
 
     fn table_of(rows: &[Vec<f64>]) -> ContingencyTable {

@@ -268,7 +268,7 @@ mod tests {
     }
 
     fn fixture() -> Fixture {
-        serde_json::from_str(include_str!("../../../tests/reference/polychoric/polyserial.json")).unwrap()
+        crate::reference!("polychoric/polyserial.json")
     }
 
     fn codes(y: &[f64]) -> Vec<u32> {

@@ -311,7 +311,7 @@ fn for_each_combination(items: &[usize], k: usize, mut f: impl FnMut(&[usize])) 
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::tetrad::testutil::{draw_normal, factor_cov, sample_cov};
+    use crate::testkit::{draw_normal, factor_cov, sample_cov};
     use crate::tetrad::tetrad_differences;
     use nalgebra::DVector;
     use rand::SeedableRng;

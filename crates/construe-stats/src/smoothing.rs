@@ -224,8 +224,7 @@ mod tests {
     // correlation matrix; ours is floored at 1e-6, hence the 1e-4 tolerance.
     #[test]
     fn matches_independent_nearest_correlation() {
-        let fx: Fixture =
-            serde_json::from_str(include_str!("../../../tests/reference/polychoric/smoothing.json")).unwrap();
+        let fx: Fixture = crate::reference!("polychoric/smoothing.json");
         for case in &fx.cases {
             let input = matrix(&case.input);
             let s = smooth_correlation(&input).unwrap();

@@ -551,48 +551,16 @@ fn check_n(n_obs: usize) -> Result<(), StatsError> {
     Ok(())
 }
 
-/// Simulation helpers shared by the tests of `tetrad`, `purify` and `cluster`.
-#[cfg(test)]
-pub(crate) mod testutil {
-    use nalgebra::DMatrix;
-    use rand::Rng;
-    use rand_distr::{Distribution, StandardNormal};
-
-    /// Population covariance Lambda Phi Lambda' + Theta of a linear factor model.
-    pub(crate) fn factor_cov(lambda: &DMatrix<f64>, phi: &DMatrix<f64>, theta: &DMatrix<f64>) -> DMatrix<f64> {
-        lambda * phi * lambda.transpose() + theta
-    }
-
-    /// n rows of N(0, sigma), drawn as L z with L the Cholesky factor of sigma.
-    pub(crate) fn draw_normal<R: Rng>(sigma: &DMatrix<f64>, n: usize, rng: &mut R) -> DMatrix<f64> {
-        let l = sigma.clone().cholesky().unwrap().l();
-        let p = sigma.nrows();
-        let z: DMatrix<f64> = DMatrix::from_fn(n, p, |_, _| StandardNormal.sample(rng));
-        z * l.transpose()
-    }
-
-    /// Unbiased sample covariance (divisor n - 1) of the rows of `x`.
-    pub(crate) fn sample_cov(x: &DMatrix<f64>) -> DMatrix<f64> {
-        let n = x.nrows();
-        let mean = x.row_mean();
-        let mut c = x.clone();
-        for mut row in c.row_iter_mut() {
-            row -= &mean;
-        }
-        c.tr_mul(&c) / (n as f64 - 1.0)
-    }
-}
-
 #[cfg(test)]
 mod tests {
-    use super::testutil::*;
     use super::*;
+    use crate::testkit::{draw_normal, factor_cov, sample_cov};
     use rand::{Rng, SeedableRng};
     use rand_chacha::ChaCha8Rng;
     use serde_json::Value;
 
     fn fixture() -> Value {
-        serde_json::from_str(include_str!("../../../tests/reference/tetrad/tetrad.json")).unwrap()
+        crate::reference!("tetrad/tetrad.json")
     }
 
     fn matrix(v: &Value) -> DMatrix<f64> {

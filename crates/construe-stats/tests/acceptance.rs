@@ -7,12 +7,12 @@
 use nalgebra::DMatrix;
 use serde_json::Value;
 
-use crate::cluster::{ClusterOptions, find_clusters};
-use crate::moments::{Deletion, pearson};
-use crate::purify::{PurifyOptions, purify};
-use crate::sem::{FitOptions, Identification, Matrix, SemModel};
-use crate::simulate::SimulationModel;
-use crate::tetrad::{TetradTestKind, TetradTester};
+use construe_stats::cluster::{ClusterOptions, find_clusters};
+use construe_stats::moments::{Deletion, pearson};
+use construe_stats::purify::{PurifyOptions, purify};
+use construe_stats::sem::{FitOptions, Identification, Matrix, SemModel};
+use construe_stats::simulate::SimulationModel;
+use construe_stats::tetrad::{TetradTestKind, TetradTester};
 
 fn matrix(v: &Value) -> DMatrix<f64> {
     let rows: Vec<Vec<f64>> = v

@@ -7,10 +7,10 @@
 
 use nalgebra::DMatrix;
 
-use crate::moments::{Deletion, pearson};
-use crate::search::{CiTest, FisherZ, Knowledge, PcOptions, PcResult, WaldPartial, pc};
-use crate::sem::{FitOptions, Identification, Matrix, SemFit, SemModel};
-use crate::simulate::SimulationModel;
+use construe_stats::moments::{Deletion, pearson};
+use construe_stats::search::{CiTest, FisherZ, Knowledge, PcOptions, PcResult, WaldPartial, pc};
+use construe_stats::sem::{FitOptions, Identification, Matrix, SemFit, SemModel};
+use construe_stats::simulate::SimulationModel;
 
 fn model(yaml: &str) -> SimulationModel {
     serde_yaml::from_str(yaml).unwrap()
