@@ -21,6 +21,25 @@ use crate::steps::StepKind;
 pub struct Cli {
     #[command(subcommand)]
     pub command: Command,
+    /// Trace each step on stderr with its timing (-v), or in detail (-vv); `CONSTRUE_LOG`
+    /// (a tracing filter such as `construe=debug`) overrides
+    #[arg(short, long, global = true, action = clap::ArgAction::Count)]
+    pub verbose: u8,
+}
+
+impl Cli {
+    /// The tracing filter: `CONSTRUE_LOG` if set, else warnings only, or construe's step spans
+    /// and timings with `-v` (`info`) and `-vv` (`debug`).
+    pub fn log_filter(&self) -> String {
+        match std::env::var("CONSTRUE_LOG") {
+            Ok(filter) if !filter.trim().is_empty() => filter,
+            _ => match self.verbose {
+                0 => "warn".into(),
+                1 => "warn,construe=info".into(),
+                _ => "warn,construe=debug".into(),
+            },
+        }
+    }
 }
 
 #[derive(Debug, clap::Args)]

@@ -3,10 +3,12 @@
 use clap::Parser;
 
 fn main() -> std::process::ExitCode {
+    let cli = construe::cli::Cli::parse();
     tracing_subscriber::fmt()
-        .with_env_filter(tracing_subscriber::EnvFilter::from_env("CONSTRUE_LOG"))
+        .with_env_filter(tracing_subscriber::EnvFilter::new(cli.log_filter()))
         .with_writer(std::io::stderr)
+        .with_ansi(std::io::IsTerminal::is_terminal(&std::io::stderr()))
         .init();
-    let exit = construe::cli::dispatch(construe::cli::Cli::parse());
+    let exit = construe::cli::dispatch(cli);
     std::process::ExitCode::from(exit as u8)
 }

@@ -67,14 +67,25 @@ pub fn run_chain<'s>(
 ) -> Result<(), ChainError> {
     for step in steps {
         let kind = step.kind();
+        // One span per step; its events are debug level, so `construe -v` shows only the
+        // executor's one line per planned step, and `-vv` every step of every replicate.
+        let _span = tracing::info_span!("step", kind = kind.name()).entered();
+        let started = std::time::Instant::now();
         let (artifact, reused) = match hooks.reuse(step) {
             Some(a) => (a, true),
             None => {
                 let inputs = Inputs { step: kind, artifacts, progress };
-                (step.run(&inputs).map_err(|source| ChainError::Step { kind, source })?, false)
+                match step.run(&inputs) {
+                    Ok(a) => (a, false),
+                    Err(source) => {
+                        tracing::debug!(error = %source, "step failed");
+                        return Err(ChainError::Step { kind, source });
+                    }
+                }
             }
         };
         hooks.finished(step, &artifact, reused)?;
+        tracing::debug!(seconds = started.elapsed().as_secs_f64(), cached = reused, "step done");
         artifacts.insert(kind, artifact);
     }
     Ok(())

@@ -122,6 +122,14 @@ impl<F: FnMut(Event<'_>)> ChainHooks for Caching<'_, F> {
             artifact_hash,
             description: step.describe(artifact),
         };
+        tracing::info!(
+            step = outcome.kind.name(),
+            key = %outcome.key.short(),
+            cached = outcome.cached,
+            seconds = outcome.seconds,
+            "{}",
+            outcome.description
+        );
         (self.observe)(Event::Done(&outcome));
         self.outcomes.push(outcome);
         self.index += 1;
