@@ -100,9 +100,23 @@ fn open_lock_file(path: &Path) -> std::io::Result<File> {
     #[cfg(unix)]
     {
         use std::os::unix::fs::OpenOptionsExt;
-        options.custom_flags(libc::O_NOFOLLOW | libc::O_NONBLOCK).mode(0o600);
+        // Readable by others, so a file left by another user's killed run can still be
+        // locked (flock needs only a read handle) instead of failing every later run.
+        options.custom_flags(libc::O_NOFOLLOW | libc::O_NONBLOCK).mode(0o644);
     }
-    let file = options.open(path)?;
+    let file = match options.open(path) {
+        Err(e) if e.kind() == std::io::ErrorKind::PermissionDenied => {
+            let mut read_only = OpenOptions::new();
+            read_only.read(true);
+            #[cfg(unix)]
+            {
+                use std::os::unix::fs::OpenOptionsExt;
+                read_only.custom_flags(libc::O_NOFOLLOW | libc::O_NONBLOCK);
+            }
+            read_only.open(path)?
+        }
+        other => other?,
+    };
     if !file.metadata()?.is_file() {
         return Err(std::io::Error::new(std::io::ErrorKind::InvalidInput, "it is not a regular file"));
     }
