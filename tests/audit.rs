@@ -134,6 +134,8 @@ fn verify_fails_on_an_edited_manifest_field() {
 fn verify_of_a_folder_without_manifest_is_exit_1_with_a_hint() {
     let case = small_run();
     case.run(["verify", "reports/small-panel"]).failure(1).stderr_contains("has no manifest.json");
+    case.run(["verify", "spec.yaml"]).failure(1).stderr_contains("`spec.yaml` is a file, not a report version folder");
+    case.run(["verify", "nowhere/v1"]).failure(1).stderr_contains("`nowhere/v1` does not exist");
 }
 
 /// Item 9: a damaged latest manifest, a stray `vN` file or folder, or `v1` replaced by a file

@@ -61,10 +61,21 @@ fn check(checks: &mut Vec<Check>, what: impl Into<String>, ok: bool, detail: imp
 
 /// Reads and parses the manifest of a version folder (exit 1 when the folder is not a version).
 fn read_manifest(report_dir: &Path) -> Result<Manifest, AppError> {
+    let hint = "hint: name a version folder such as `reports/<title>/v1`";
+    match std::fs::metadata(report_dir) {
+        Err(_) => return Err(invalid(format!("`{}` does not exist\n  {hint}", report_dir.display()))),
+        Ok(m) if !m.is_dir() => {
+            return Err(invalid(format!(
+                "`{}` is a file, not a report version folder\n  {hint}",
+                report_dir.display()
+            )));
+        }
+        Ok(_) => {}
+    }
     let path = report_dir.join("manifest.json");
     let text = read_regular_text(&path, MAX_TEXT_BYTES).map_err(|source| match source.kind() {
         std::io::ErrorKind::NotFound => invalid(format!(
-            "`{}` has no manifest.json, so it is not a construe report version\n  hint: name a version folder such as `reports/<title>/v1`",
+            "`{}` has no manifest.json, so it is not a construe report version\n  {hint}",
             report_dir.display()
         )),
         std::io::ErrorKind::InvalidInput | std::io::ErrorKind::InvalidData => {
