@@ -13,37 +13,10 @@ use crate::spec::SpecFile;
 use crate::spec::types::{Identification, MeasureSpec};
 use construe_stats::StatsError;
 use construe_stats::reliability::{cronbach_alpha, mcdonald_omega};
-use construe_stats::sem::{self, FitOptions, Matrix, ParameterKind, SemFit, SemModel};
+use construe_stats::sem::{self, FitIndices, FitOptions, Matrix, ParameterKind, SemFit, SemModel};
 
 /// Bump when the fit changes for the same covariances, purification and parameters.
 pub const VERSION: u32 = 2;
-
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
-pub struct FitSummary {
-    pub chisq: f64,
-    pub df: usize,
-    pub p: f64,
-    pub rmsea: f64,
-    pub rmsea_ci: [f64; 2],
-    pub cfi: f64,
-    pub tli: f64,
-    pub srmr: f64,
-}
-
-impl FitSummary {
-    pub fn of(fit: &SemFit) -> FitSummary {
-        FitSummary {
-            chisq: fit.chisq,
-            df: fit.df,
-            p: fit.p_value,
-            rmsea: fit.rmsea,
-            rmsea_ci: [fit.rmsea_ci.0, fit.rmsea_ci.1],
-            cfi: fit.cfi,
-            tli: fit.tli,
-            srmr: fit.srmr,
-        }
-    }
-}
 
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct Estimate {
@@ -97,7 +70,7 @@ pub struct MeasureOutput {
     pub identification: Identification,
     pub n: usize,
     pub constructs: IndexMap<String, Vec<String>>,
-    pub fit: FitSummary,
+    pub fit: FitIndices,
     pub loadings: IndexMap<String, IndexMap<String, Estimate>>,
     pub error_variances: IndexMap<String, ErrorVariance>,
     pub latent_correlation: NamedMatrix,
@@ -111,7 +84,7 @@ pub struct MeasureOutput {
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct UnpurifiedFit {
     pub converged: bool,
-    pub fit: FitSummary,
+    pub fit: FitIndices,
 }
 
 /// A construct as the measurement model sees it.
@@ -252,7 +225,7 @@ impl Step for MeasureStep {
             let declared = self.constructs(None);
             fit_constructs(&declared, &cov.items, &s, n, self.params.identification, &[])
                 .ok()
-                .map(|(f, _)| UnpurifiedFit { converged: f.converged, fit: FitSummary::of(&f) })
+                .map(|(f, _)| UnpurifiedFit { converged: f.converged, fit: f.indices.clone() })
         } else {
             None
         };
@@ -349,7 +322,7 @@ pub fn summarise(
         identification: ident,
         n,
         constructs: constructs.iter().map(|(n, i, _)| (n.clone(), i.clone())).collect(),
-        fit: FitSummary::of(fit),
+        fit: fit.indices.clone(),
         loadings,
         error_variances,
         latent_correlation: NamedMatrix { names: names.clone(), matrix: rows(&moments.correlation) },

@@ -7,19 +7,20 @@ use nalgebra::DMatrix;
 use serde::{Deserialize, Serialize};
 use serde_json::{Value, json};
 
-use super::measure::{FitSummary, fit_constructs};
+use super::measure::fit_constructs;
 use super::{Artifact, Inputs, Step, StepError, StepKind};
 use crate::spec::SpecFile;
 use crate::spec::types::{CiTest as CiTestKind, Knowledge as KnowledgeSpec, StructureSpec};
 use construe_stats::StatsError;
 use construe_stats::bvn::Z_975;
 use construe_stats::search::{
-    CiTest, ColliderRule, FisherZ, Knowledge, PcOptions, Reason, WaldPartial, enumerate_dags, pc,
+    CiTest, ColliderRule, EdgeKind, FisherZ, Knowledge, PcOptions, Reason, WaldPartial, enumerate_dags, pc,
 };
-use construe_stats::sem::{Matrix, ParameterKind};
+use construe_stats::sem::{FitIndices, Matrix, ParameterKind};
 
 /// Bump when search or fit results change for the same measurement model and parameters.
-pub const VERSION: u32 = 2;
+/// v3: edge kinds stored as `EdgeKind` (the artifact's bytes changed; results.json did not).
+pub const VERSION: u32 = 3;
 
 /// Class members fitted at most (the rest are counted, not fitted).
 const MAX_MEMBERS: usize = 8;
@@ -28,8 +29,8 @@ const MAX_MEMBERS: usize = 8;
 pub struct EdgeRecord {
     pub from: String,
     pub to: String,
-    /// `directed` or `undirected` (the data cannot orient it).
-    pub kind: String,
+    /// Directed, or undirected when the data cannot orient it (`"directed"` / `"undirected"`).
+    pub kind: EdgeKind,
     pub reason: String,
 }
 
@@ -56,7 +57,7 @@ pub struct EffectRecord {
 pub struct MemberFit {
     pub edges: Vec<[String; 2]>,
     pub converged: bool,
-    pub fit: FitSummary,
+    pub fit: FitIndices,
     pub effects: Vec<EffectRecord>,
     pub r_squared: IndexMap<String, f64>,
 }
@@ -71,7 +72,7 @@ pub struct StructureOutput {
     pub tests_run: usize,
     /// Effects and fit of the first DAG of the class (the one the report draws).
     pub effects: Vec<EffectRecord>,
-    pub fit: Option<FitSummary>,
+    pub fit: Option<FitIndices>,
     pub r_squared: IndexMap<String, f64>,
     pub members: Vec<MemberFit>,
     /// Members of the equivalence class consistent with the knowledge (at most the cap).
@@ -189,7 +190,7 @@ impl Step for StructureStep {
             .map(|e| EdgeRecord {
                 from: names[e.from].clone(),
                 to: names[e.to].clone(),
-                kind: if e.directed { "directed".into() } else { "undirected".into() },
+                kind: e.kind(),
                 reason: reason(e.reason),
             })
             .collect();
@@ -217,7 +218,7 @@ impl Step for StructureStep {
         let mut members = Vec::new();
         for dag in &class.dags {
             let paths: Vec<(usize, usize)> =
-                dag.edges().iter().filter(|e| e.directed).map(|e| (e.from, e.to)).collect();
+                dag.edges().iter().filter(|e| e.is_directed()).map(|e| (e.from, e.to)).collect();
             let (fit, _) = fit_constructs(&constructs, &cov.items, &s, measure.n, measure.identification, &paths)
                 .map_err(err("the structural model"))?;
             let z = Z_975;
@@ -245,7 +246,7 @@ impl Step for StructureStep {
             members.push(MemberFit {
                 edges: paths.iter().map(|&(a, b)| [names[a].clone(), names[b].clone()]).collect(),
                 converged: fit.converged,
-                fit: FitSummary::of(&fit),
+                fit: fit.indices.clone(),
                 effects,
                 r_squared,
             });
@@ -269,7 +270,7 @@ impl Step for StructureStep {
 
     fn describe(&self, artifact: &Artifact) -> String {
         let Artifact::Structure(s) = artifact else { return String::new() };
-        let directed = s.edges.iter().filter(|e| e.kind == "directed").count();
+        let directed = s.edges.iter().filter(|e| e.kind.is_directed()).count();
         format!(
             "{} ({directed} directed) after {} tests; class of {}{}",
             crate::spec::diagnostic::plural(s.edges.len(), "edge"),

@@ -83,7 +83,7 @@ fn descend(
     cap: usize,
     out: &mut Enumeration,
 ) -> bool {
-    let Some(e) = g.edges().into_iter().find(|e| !e.directed) else {
+    let Some(e) = g.edges().into_iter().find(|e| !e.is_directed()) else {
         if out.dags.len() == cap {
             out.complete = false;
             return false;

@@ -9,7 +9,7 @@ use std::collections::BTreeMap;
 use serde::{Deserialize, Serialize};
 
 use super::ci::{CiResult, CiTest};
-use super::graph::Graph;
+use super::graph::{EdgeKind, Graph};
 use super::knowledge::Knowledge;
 use super::meek;
 use crate::StatsError;
@@ -63,13 +63,20 @@ pub enum Reason {
 }
 
 /// One edge of the result: `from -> to` when `directed` (with its reason), else `from - to`
-/// with `from < to`.
+/// with `from < to`. `kind()` gives the orientation as the `EdgeKind` the rest of the project
+/// compares by. (The field stays a bool while the simulation checks in `pitfalls` read it.)
 #[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
 pub struct PcEdge {
     pub from: usize,
     pub to: usize,
     pub directed: bool,
     pub reason: Option<Reason>,
+}
+
+impl PcEdge {
+    pub fn kind(&self) -> EdgeKind {
+        EdgeKind::from_directed(self.directed)
+    }
 }
 
 /// A pair the search left non-adjacent (a < b).
@@ -351,8 +358,8 @@ pub fn pc(test: &dyn CiTest, knowledge: &Knowledge, options: &PcOptions) -> Resu
         .map(|e| PcEdge {
             from: e.from,
             to: e.to,
-            directed: e.directed,
-            reason: if e.directed { reasons.get(&(e.from, e.to)).copied() } else { None },
+            directed: e.is_directed(),
+            reason: if e.is_directed() { reasons.get(&(e.from, e.to)).copied() } else { None },
         })
         .collect();
     Ok(PcResult {

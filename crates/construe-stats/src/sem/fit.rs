@@ -6,7 +6,7 @@
 use nalgebra::{DMatrix, DVector};
 
 use super::implied::{Implied, implied};
-use super::indices::{FitIndices, fit_indices};
+use super::indices::{BaselineFit, FitIndices, fit_indices};
 use super::information::{Derivatives, latent_cov_jacobian};
 use super::linalg::{cholesky_lower, cholesky_solve, factor_model_inverse, inverse_from_factor, spd_inverse};
 use super::model::{Matrix, ModelMatrices, ParamLayout, ParameterKind, SemModel};
@@ -106,16 +106,12 @@ pub struct SemFit {
     pub discrepancy: f64,
     /// Sample size the covariance matrix came from.
     pub n: usize,
-    pub chisq: f64,
+    /// The model's degrees of freedom, p(p + 1)/2 - q (the same number as `indices.df`).
     pub df: usize,
-    pub p_value: f64,
-    pub rmsea: f64,
-    pub rmsea_ci: (f64, f64),
-    pub cfi: f64,
-    pub tli: f64,
-    pub srmr: f64,
-    /// Every index, including the baseline model's chi-square and df.
+    /// Chi-square, RMSEA, CFI, TLI, SRMR: the one fit-index record (`indices::FitIndices`).
     pub indices: FitIndices,
+    /// The independence model CFI and TLI compare with.
+    pub baseline: BaselineFit,
     /// Every meaningful entry with estimate, SE and standardized value.
     pub parameters: Vec<ParameterEstimate>,
     /// Free-parameter vector, indexed as `layout`.
@@ -329,7 +325,7 @@ pub fn fit(model: &SemModel, s: &DMatrix<f64>, n: usize, options: &FitOptions) -
     let std = standardized(&matrices, &point.imp);
     let parameters = estimates(model, &layout, &matrices, &std, &acov);
     let heywood = heywood_cases(&parameters, &point.imp);
-    let indices = fit_indices(point.f, &s, &point.imp.sigma, n, df)?;
+    let (indices, baseline) = fit_indices(point.f, &s, &point.imp.sigma, n, df)?;
     Ok(SemFit {
         converged,
         iterations,
@@ -337,15 +333,9 @@ pub fn fit(model: &SemModel, s: &DMatrix<f64>, n: usize, options: &FitOptions) -
         decrement,
         discrepancy: point.f,
         n,
-        chisq: indices.chisq,
         df,
-        p_value: indices.p_value,
-        rmsea: indices.rmsea,
-        rmsea_ci: indices.rmsea_ci,
-        cfi: indices.cfi,
-        tli: indices.tli,
-        srmr: indices.srmr,
         indices,
+        baseline,
         parameters,
         values,
         layout,

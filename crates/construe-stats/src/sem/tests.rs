@@ -128,19 +128,19 @@ fn check_against_scipy(case: &Value, name: &str) -> SemFit {
         let want = ix[key].as_f64().unwrap();
         assert!((got - want).abs() < 1e-4 * want.abs().max(1.0), "{name} {key}: {got} vs {want}");
     };
-    close(fit.chisq, "chisq");
-    close(fit.p_value, "p_value");
-    close(fit.rmsea, "rmsea");
-    close(fit.cfi, "cfi");
-    close(fit.tli, "tli");
-    close(fit.srmr, "srmr");
-    close(fit.indices.baseline_chisq, "baseline_chisq");
+    close(fit.indices.chisq, "chisq");
+    close(fit.indices.p_value, "p_value");
+    close(fit.indices.rmsea, "rmsea");
+    close(fit.indices.cfi, "cfi");
+    close(fit.indices.tli, "tli");
+    close(fit.indices.srmr, "srmr");
+    close(fit.baseline.chisq, "baseline_chisq");
     assert_eq!(fit.df as u64, ix["df"].as_u64().unwrap());
     let ci = floats(&ix["rmsea_ci"]);
     assert!(
-        (fit.rmsea_ci.0 - ci[0]).abs() < 1e-4 && (fit.rmsea_ci.1 - ci[1]).abs() < 1e-4,
+        (fit.indices.rmsea_ci.0 - ci[0]).abs() < 1e-4 && (fit.indices.rmsea_ci.1 - ci[1]).abs() < 1e-4,
         "{name} ci {:?} vs {ci:?}",
-        fit.rmsea_ci
+        fit.indices.rmsea_ci
     );
     fit
 }
@@ -154,7 +154,7 @@ fn three_factor_cfa_with_correlated_error_matches_scipy() {
     let g = fit.gradient(&matrix(&fixture["cfa3"]["cov"])).unwrap();
     assert!(g.amax() < 1e-6 && (g.amax() - fit.gradient_norm).abs() < 1e-12);
     // The fixture was built to misfit (an omitted cross-loading): a non-zero RMSEA lower bound.
-    assert!(fit.rmsea_ci.0 > 0.0);
+    assert!(fit.indices.rmsea_ci.0 > 0.0);
 }
 
 #[test]
@@ -267,8 +267,8 @@ fn large_cfa_matches_scipy_lbfgsb() {
         assert!((e.est - values[t]).abs() < 1e-4, "{cell}: {} vs {}", e.est, values[t]);
     }
     let ci = floats(&case["indices"]["rmsea_ci"]);
-    assert!((fit.rmsea_ci.1 - ci[1]).abs() < 1e-4);
-    assert!((fit.cfi - case["indices"]["cfi"].as_f64().unwrap()).abs() < 1e-4);
+    assert!((fit.indices.rmsea_ci.1 - ci[1]).abs() < 1e-4);
+    assert!((fit.indices.cfi - case["indices"]["cfi"].as_f64().unwrap()).abs() < 1e-4);
 }
 
 #[test]
@@ -309,9 +309,9 @@ fn saturated_model_has_zero_chisq_and_df() {
     let fit = model.fit(&s, 400, &FitOptions::default()).unwrap();
     assert!(fit.converged);
     assert_eq!(fit.df, 0);
-    assert!(fit.chisq < 1e-9, "chisq {}", fit.chisq);
+    assert!(fit.indices.chisq < 1e-9, "chisq {}", fit.indices.chisq);
     assert!((&fit.implied - &s).amax() < 1e-8);
-    assert!(fit.srmr < 1e-8);
+    assert!(fit.indices.srmr < 1e-8);
 }
 
 #[test]
@@ -334,7 +334,7 @@ fn identification_choices_give_the_same_fit_and_standardized_solution() {
     assert_eq!(a.df, b.df);
     assert!((&a.standardized.lambda - &b.standardized.lambda).amax() < 1e-6);
     assert!((&a.standardized.psi - &b.standardized.psi).amax() < 1e-6);
-    assert!((a.rmsea - b.rmsea).abs() < 1e-9 && (a.cfi - b.cfi).abs() < 1e-9);
+    assert!((a.indices.rmsea - b.indices.rmsea).abs() < 1e-9 && (a.indices.cfi - b.indices.cfi).abs() < 1e-9);
 }
 
 #[test]
