@@ -473,3 +473,32 @@ impl Step for CovarianceStep {
         format!("{p}x{p} matrix, {} pairs: {}; {pd}", p * p.saturating_sub(1) / 2, parts.join(", "))
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::steps::{read_exact, write_exact};
+
+    // results.json keys stay `"a|b"`; the artifact keeps both names, so pairs whose names
+    // contain `|` (`x|y` with `z`, `x` with `y|z`: both "x|y|z" as text) stay two pairs.
+    #[test]
+    fn pairs_key_results_as_text_and_artifacts_exactly() {
+        let one = ItemPair::new("x|y", "z");
+        let other = ItemPair::new("x", "y|z");
+        assert_eq!(one.to_string(), other.to_string());
+        let map: IndexMap<ItemPair, PairMethod> =
+            [(ItemPair::new("a", "b"), PairMethod::Pearson), (one.clone(), PairMethod::Polychoric)].into();
+        let json = serde_json::to_value(&map).unwrap();
+        assert_eq!(json, serde_json::json!({"a|b": "pearson", "x|y|z": "polychoric"}));
+        let pairs: IndexMap<ItemPair, PairMethod> =
+            [(one.clone(), PairMethod::Polychoric), (other.clone(), PairMethod::Polyserial)].into();
+        let mut bytes = Vec::new();
+        write_exact(&mut bytes, &pairs).unwrap();
+        let back: IndexMap<ItemPair, PairMethod> = read_exact(&bytes).unwrap();
+        assert_eq!(back, pairs);
+        assert!(back[&other] == PairMethod::Polyserial && other.contains("y|z") && !other.contains("y"));
+        // Text keys are read back only when they name one pair.
+        assert_eq!(serde_json::from_value::<ItemPair>("a|b".into()).unwrap(), ItemPair::new("a", "b"));
+        assert!(serde_json::from_value::<ItemPair>("x|y|z".into()).is_err());
+    }
+}

@@ -402,7 +402,69 @@ fn tipping(grid: &[f64], status: &[Option<bool>]) -> Option<f64> {
 
 #[cfg(test)]
 mod tests {
-    use super::tipping;
+    use super::*;
+    use crate::steps::{read_exact, write_exact};
+
+    fn conclusion(what: Statement) -> Conclusion {
+        Conclusion {
+            what,
+            holds_for: IndexMap::new(),
+            tipping: IndexMap::new(),
+            prior_probability: None,
+            holds_for_alpha: Vec::new(),
+        }
+    }
+
+    // results.json keeps the words scripts read; the artifact keeps the typed value.
+    #[test]
+    fn statements_read_as_before_in_results_and_exactly_from_the_artifact() {
+        let cases = [
+            (Statement::Edge { from: "a".into(), to: "b".into(), kind: EdgeKind::Directed }, "edge a → b"),
+            (Statement::Edge { from: "a".into(), to: "b".into(), kind: EdgeKind::Undirected }, "edge a — b"),
+            (Statement::NoEdge { a: "a".into(), b: "b".into() }, "no edge between a and b"),
+            (
+                Statement::Effect { from: "a".into(), to: "b".into(), verdict: EffectVerdict::PositiveSignificant },
+                "effect a → b is positive and significant",
+            ),
+            (
+                Statement::Effect { from: "a".into(), to: "b".into(), verdict: EffectVerdict::NegativeSignificant },
+                "effect a → b is negative and significant",
+            ),
+            (
+                Statement::Effect { from: "a".into(), to: "b".into(), verdict: EffectVerdict::NotSignificant },
+                "effect a → b is not significant",
+            ),
+        ];
+        for (what, words) in cases {
+            let c = conclusion(what);
+            assert_eq!(serde_json::to_value(&c).unwrap()["what"], words);
+            let mut bytes = Vec::new();
+            write_exact(&mut bytes, &c).unwrap();
+            assert_eq!(read_exact::<Conclusion>(&bytes), Some(c));
+        }
+    }
+
+    // As sentences, "no edge between p and q and r" was two different conclusions at once:
+    // p / `q and r`, and `p and q` / r. As values they stay apart.
+    #[test]
+    fn conclusions_are_compared_as_values_not_sentences() {
+        let one = Statement::NoEdge { a: "p".into(), b: "q and r".into() };
+        let other = Statement::NoEdge { a: "p and q".into(), b: "r".into() };
+        assert_eq!(one.to_string(), other.to_string());
+        assert!(!holds(&one, std::slice::from_ref(&other)));
+        assert!(holds(&one, &[other, one.clone()]));
+        let arrow = Statement::Edge { from: "a → b".into(), to: "c".into(), kind: EdgeKind::Directed };
+        let shifted = Statement::Edge { from: "a".into(), to: "b → c".into(), kind: EdgeKind::Directed };
+        assert!(!holds(&arrow, &[shifted]));
+    }
+
+    #[test]
+    fn verdicts_follow_the_interval() {
+        assert_eq!(EffectVerdict::of(0.3, [Some(0.1), Some(0.5)]), EffectVerdict::PositiveSignificant);
+        assert_eq!(EffectVerdict::of(-0.3, [Some(-0.5), Some(-0.1)]), EffectVerdict::NegativeSignificant);
+        assert_eq!(EffectVerdict::of(0.3, [Some(-0.1), Some(0.5)]), EffectVerdict::NotSignificant);
+        assert_eq!(EffectVerdict::of(0.3, [None, None]), EffectVerdict::NotSignificant);
+    }
 
     #[test]
     fn tipping_is_the_largest_value_with_the_other_verdict() {

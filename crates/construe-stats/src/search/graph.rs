@@ -320,6 +320,23 @@ impl Graph {
 #[cfg(test)]
 pub(crate) mod tests {
     use super::*;
+
+    // Edge kinds are one type with the words results.json has always shown, and sort as
+    // the bool they replaced (undirected before directed).
+    #[test]
+    fn edge_kinds_serialize_to_their_words_and_keep_their_order() {
+        assert_eq!(serde_json::to_value(EdgeKind::Directed).unwrap(), "directed");
+        assert_eq!(serde_json::to_value(EdgeKind::Undirected).unwrap(), "undirected");
+        assert_eq!(serde_json::from_value::<EdgeKind>("directed".into()).unwrap(), EdgeKind::Directed);
+        assert!(serde_json::from_value::<EdgeKind>("Directed".into()).is_err());
+        assert!(EdgeKind::Undirected < EdgeKind::Directed);
+        assert_eq!(EdgeKind::from_directed(true), EdgeKind::Directed);
+        let mut g = Graph::new(3);
+        g.add_undirected(0, 1);
+        g.add_directed(2, 1);
+        let kinds: Vec<EdgeKind> = g.edges().iter().map(|e| e.kind).collect();
+        assert_eq!(kinds, [EdgeKind::Undirected, EdgeKind::Directed]);
+    }
     use rand::{Rng, SeedableRng};
     use rand_chacha::ChaCha8Rng;
 

@@ -229,6 +229,23 @@ fn ncx2_cdf_pair(x: f64, df: f64, lambda: f64) -> (f64, f64) {
 mod tests {
     use super::*;
 
+    // One record for every `fit` block of results.json: its field names and order there
+    // (`p`, not `p_value`; `rmsea_ci` a two-element array) are what scripts read.
+    #[test]
+    fn fit_indices_serialize_as_the_results_fit_block() {
+        let s = DMatrix::from_row_slice(3, 3, &[1.0, 0.5, 0.4, 0.5, 1.0, 0.3, 0.4, 0.3, 1.0]);
+        let sigma = DMatrix::from_row_slice(3, 3, &[1.0, 0.45, 0.45, 0.45, 1.0, 0.35, 0.45, 0.35, 1.0]);
+        let (ix, baseline) = fit_indices(0.02, &s, &sigma, 300, 2).unwrap();
+        assert_eq!(baseline.df, 3);
+        let json = serde_json::to_value(&ix).unwrap();
+        let keys: Vec<&str> = json.as_object().unwrap().keys().map(String::as_str).collect();
+        assert_eq!(keys, ["chisq", "df", "p", "rmsea", "rmsea_ci", "cfi", "tli", "srmr"]);
+        assert_eq!(json["rmsea_ci"], serde_json::json!([ix.rmsea_ci.0, ix.rmsea_ci.1]));
+        assert_eq!(json["p"], serde_json::json!(ix.p_value));
+        let back: FitIndices = serde_json::from_value(json).unwrap();
+        assert_eq!(back, ix);
+    }
+
     #[test]
     fn noncentral_cdf_matches_scipy() {
         // scipy 1.17.1 scipy.stats.ncx2.cdf(x, df, nc), printed to 12 digits.
