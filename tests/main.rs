@@ -15,6 +15,6 @@ mod reference;
 mod report;
 mod robustness;
 mod sensitivity;
-mod types;
 mod simulate;
+mod types;
 mod verify;

@@ -197,11 +197,8 @@ impl SensitivityStep {
 /// sign and significance (95% interval excluding zero). Read off the baseline they are the
 /// conclusions; read off a refit, the verdicts the conclusions are looked up in.
 fn statements(s: &StructureOutput) -> Vec<Statement> {
-    let mut out: Vec<Statement> = s
-        .edges
-        .iter()
-        .map(|e| Statement::Edge { from: e.from.clone(), to: e.to.clone(), kind: e.kind })
-        .collect();
+    let mut out: Vec<Statement> =
+        s.edges.iter().map(|e| Statement::Edge { from: e.from.clone(), to: e.to.clone(), kind: e.kind }).collect();
     out.extend(s.removed.iter().map(|r| Statement::NoEdge { a: r.a.clone(), b: r.b.clone() }));
     out.extend(s.effects.iter().map(|f| Statement::Effect {
         from: f.from.clone(),

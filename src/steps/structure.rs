@@ -11,10 +11,10 @@ use super::measure::fit_constructs;
 use super::{Artifact, Inputs, Step, StepError, StepKind};
 use crate::spec::SpecFile;
 use crate::spec::types::{CiTest as CiTestKind, Knowledge as KnowledgeSpec, StructureSpec};
-use construe_stats::StatsError;
 use construe_stats::bvn::Z_975;
 use construe_stats::search::{
-    CiTest, ColliderRule, EdgeKind, FisherZ, Knowledge, PcOptions, Reason, WaldPartial, enumerate_dags, pc,
+    CiTest, ColliderRule, EdgeKind, FisherZ, Knowledge, KnowledgeError, PcOptions, Reason, WaldPartial, enumerate_dags,
+    pc,
 };
 use construe_stats::sem::{FitIndices, Matrix, ParameterKind};
 
@@ -111,13 +111,11 @@ impl StructureStep {
         step
     }
 
-    fn knowledge(&self, names: &[String]) -> Result<Knowledge, StatsError> {
+    fn knowledge(&self, names: &[String]) -> Result<Knowledge, StepError> {
         let idx = |n: &String| {
-            names
-                .iter()
-                .position(|x| x == n)
-                .ok_or_else(|| StatsError::InvalidInput(format!("unknown construct `{n}`")))
+            names.iter().position(|x| x == n).ok_or_else(|| StepError::UnknownConstruct { construct: n.clone() })
         };
+        let stats = |e: KnowledgeError| StepError::Stats { context: "background knowledge".into(), source: e.into() };
         let mut k = Knowledge::new(names.len());
         let tiers: Vec<Vec<usize>> = self
             .knowledge
@@ -125,12 +123,12 @@ impl StructureStep {
             .iter()
             .map(|t| t.iter().map(idx).collect::<Result<_, _>>())
             .collect::<Result<_, _>>()?;
-        k.set_tiers(&tiers)?;
+        k.set_tiers(&tiers).map_err(stats)?;
         for [a, b] in &self.knowledge.forbid {
-            k.forbid(idx(a)?, idx(b)?)?;
+            k.forbid(idx(a)?, idx(b)?).map_err(stats)?;
         }
         for [a, b] in &self.knowledge.require {
-            k.require(idx(a)?, idx(b)?)?;
+            k.require(idx(a)?, idx(b)?).map_err(stats)?;
         }
         Ok(k)
     }
@@ -181,7 +179,7 @@ impl Step for StructureStep {
             }
             CiTestKind::Fisher => Box::new(FisherZ::new(c, measure.n as f64).map_err(err("the Fisher-z tests"))?),
         };
-        let knowledge = self.knowledge(&names).map_err(err("background knowledge"))?;
+        let knowledge = self.knowledge(&names)?;
         let options = PcOptions { alpha: self.params.alpha, max_cond: None, colliders: ColliderRule::Standard };
         let result = pc(test.as_ref(), &knowledge, &options).map_err(err("the PC search"))?;
         let edges = result
@@ -219,8 +217,15 @@ impl Step for StructureStep {
         for dag in &class.dags {
             let paths: Vec<(usize, usize)> =
                 dag.edges().iter().filter(|e| e.is_directed()).map(|e| (e.from, e.to)).collect();
-            let (fit, _) = fit_constructs(&constructs, &cov.items, &s, measure.n, measure.identification, &paths)
-                .map_err(err("the structural model"))?;
+            let (fit, _) = fit_constructs(
+                &constructs,
+                &cov.items,
+                &s,
+                measure.n,
+                measure.identification,
+                &paths,
+                "the structural model",
+            )?;
             let z = Z_975;
             let effects = fit
                 .parameters

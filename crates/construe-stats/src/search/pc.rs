@@ -195,10 +195,11 @@ fn combinations(items: &[usize], k: usize) -> Vec<Vec<usize>> {
 pub fn pc(test: &dyn CiTest, knowledge: &Knowledge, options: &PcOptions) -> Result<PcResult, StatsError> {
     let n = test.n_vars();
     if knowledge.n() != n {
-        return Err(StatsError::InvalidInput(format!(
-            "knowledge speaks about {} nodes, the test about {n}",
-            knowledge.n()
-        )));
+        return Err(StatsError::SizeMismatch {
+            what: "nodes in the knowledge for the test's variables",
+            expected: n,
+            found: knowledge.n(),
+        });
     }
     if !(options.alpha > 0.0 && options.alpha < 1.0) {
         return Err(StatsError::InvalidInput(format!(
@@ -439,6 +440,7 @@ mod tests {
     use super::*;
     use crate::search::ci::tests::{linear_gaussian_cov, sample_cov};
     use crate::search::ci::{DSepOracle, FisherZ};
+    use crate::search::enumerate::enumerate_dags;
     use crate::search::graph::tests::random_dag;
     use rand::SeedableRng;
     use rand_chacha::ChaCha8Rng;
@@ -656,6 +658,13 @@ mod tests {
         let oracle = DSepOracle::new(Graph::new(3));
         let opts = PcOptions { alpha: 1.5, ..PcOptions::default() };
         assert!(pc(&oracle, &Knowledge::new(3), &opts).is_err());
-        assert!(pc(&oracle, &Knowledge::new(4), &PcOptions::default()).is_err());
+        assert_eq!(
+            pc(&oracle, &Knowledge::new(4), &PcOptions::default()).unwrap_err(),
+            StatsError::SizeMismatch { what: "nodes in the knowledge for the test's variables", expected: 3, found: 4 }
+        );
+        assert!(matches!(
+            enumerate_dags(&Graph::new(3), &Knowledge::new(2), 4),
+            Err(StatsError::SizeMismatch { expected: 3, found: 2, .. })
+        ));
     }
 }

@@ -203,12 +203,19 @@ fn evaluate(obj: &Objective, values: &[f64]) -> Option<Point> {
 /// A fit that stops early returns `converged = false` with the estimates reached.
 pub fn fit(model: &SemModel, s: &DMatrix<f64>, n: usize, options: &FitOptions) -> Result<SemFit, StatsError> {
     let p = model.p();
-    if s.nrows() != p || s.ncols() != p {
-        return Err(StatsError::InvalidInput(format!(
-            "covariance matrix is {}x{}, the model has {p} observed variables",
-            s.nrows(),
-            s.ncols()
-        )));
+    if s.nrows() != p {
+        return Err(StatsError::SizeMismatch {
+            what: "covariance matrix rows for the model's observed variables",
+            expected: p,
+            found: s.nrows(),
+        });
+    }
+    if s.ncols() != p {
+        return Err(StatsError::SizeMismatch {
+            what: "covariance matrix columns for the model's observed variables",
+            expected: p,
+            found: s.ncols(),
+        });
     }
     if n < 2 {
         return Err(StatsError::NotEnoughData { what: "ML structural equation model".into(), needed: 2, found: n });
@@ -224,15 +231,17 @@ pub fn fit(model: &SemModel, s: &DMatrix<f64>, n: usize, options: &FitOptions) -
     let q = layout.len();
     let moments_count = p * (p + 1) / 2;
     if q > moments_count {
-        return Err(StatsError::InvalidInput(format!(
-            "the model has {q} free parameters but only {moments_count} distinct variances and covariances"
-        )));
+        return Err(StatsError::NotIdentified { free: q, moments: moments_count });
     }
     let df = moments_count - q;
     let mut values = match &options.start {
         Some(v) if v.len() == q => v.clone(),
         Some(v) => {
-            return Err(StatsError::InvalidInput(format!("{} starting values for {q} free parameters", v.len())));
+            return Err(StatsError::SizeMismatch {
+                what: "starting values for the free parameters",
+                expected: q,
+                found: v.len(),
+            });
         }
         None => start_values(model, &layout, &s),
     };

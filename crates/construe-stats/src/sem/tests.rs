@@ -424,3 +424,25 @@ fn reliability_from_a_fitted_one_factor_model_matches_numpy() {
     let omega = crate::reliability::mcdonald_omega(&loadings, &errors).unwrap();
     assert!((omega - fixture["omega"].as_f64().unwrap()).abs() < 1e-5);
 }
+
+// Callers branch on what went wrong, so shape and identification errors are typed values,
+// not sentences.
+#[test]
+fn shape_and_identification_errors_are_typed() {
+    let out_of_range = SemModel::cfa(&[vec![0, 1, 5]], 3, Identification::UnitLatentVariance).unwrap_err();
+    assert_eq!(out_of_range, StatsError::OutOfRange { what: "indicator (observed variable)", index: 5, len: 3 });
+    let model = SemModel::cfa(&[vec![0, 1, 2]], 3, Identification::UnitLatentVariance).unwrap();
+    let names = model.clone().with_names(vec!["a".into(), "b".into()], vec!["f".into()]).unwrap_err();
+    assert!(matches!(names, StatsError::SizeMismatch { what: "observed variable names", expected: 3, found: 2 }));
+    let s = DMatrix::<f64>::identity(4, 4);
+    let wrong = model.fit(&s, 100, &FitOptions::default()).unwrap_err();
+    assert!(matches!(wrong, StatsError::SizeMismatch { expected: 3, found: 4, .. }), "{wrong:?}");
+    // Two indicators per factor, two correlated factors: 9 free parameters, 10 moments; with
+    // one indicator each and free error variances, 5 free parameters for 3 moments.
+    let one_each = SemModel::cfa(&[vec![0], vec![1]], 2, Identification::UnitLatentVariance).unwrap();
+    let e = one_each.fit(&DMatrix::identity(2, 2), 100, &FitOptions::default()).unwrap_err();
+    assert!(matches!(e, StatsError::NotIdentified { moments: 3, .. }), "{e:?}");
+    let start = FitOptions { start: Some(vec![0.5]), ..FitOptions::default() };
+    let e = model.fit(&DMatrix::identity(3, 3), 100, &start).unwrap_err();
+    assert!(matches!(e, StatsError::SizeMismatch { what: "starting values for the free parameters", found: 1, .. }));
+}
