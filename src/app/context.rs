@@ -232,7 +232,7 @@ fn edge_support(execution: &Execution) -> Value {
                 Some(x) => (x.present, x.backward, x.forward),
                 None => (0.0, 0.0, 0.0),
             };
-            json!({"key": format!("{}|{}", e.from, e.to), "present": present, "as_shown": same, "reversed": other})
+            json!({"present": present, "as_shown": same, "reversed": other})
         })
         .collect();
     Value::Array(rows)
