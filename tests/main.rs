@@ -16,4 +16,5 @@ mod report;
 mod robustness;
 mod sensitivity;
 mod simulate;
+mod types;
 mod verify;

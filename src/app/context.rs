@@ -8,6 +8,7 @@ use crate::pipeline::executor::Execution;
 use crate::report::diagram::{Link, Node, diagram};
 use crate::report::svg::heatmap;
 use crate::spec::SpecFile;
+use crate::steps::covariance::PairMethod;
 use crate::steps::{Artifact, StepKind};
 use construe_stats::simulate::SimulationModel;
 
@@ -39,25 +40,22 @@ pub fn report_context(spec: &SpecFile, execution: &Execution, results: &Value) -
                 .items
                 .iter()
                 .map(|item| {
-                    let mut methods: Vec<(String, usize)> = Vec::new();
-                    for (pair, m) in &c.method {
-                        let mut names = pair.splitn(2, '|');
-                        if names.next() == Some(item.as_str()) || names.next() == Some(item.as_str()) {
-                            let label = serde_json::to_value(m)
-                                .ok()
-                                .and_then(|v| v.as_str().map(str::to_string))
-                                .unwrap_or_default();
-                            match methods.iter_mut().find(|(l, _)| *l == label) {
-                                Some(entry) => entry.1 += 1,
-                                None => methods.push((label, 1)),
-                            }
+                    // Counted by value, in order of first appearance; named only for the table.
+                    let mut methods: Vec<(PairMethod, usize)> = Vec::new();
+                    for m in c.method.iter().filter(|(pair, _)| pair.contains(item)).map(|(_, m)| *m) {
+                        match methods.iter_mut().find(|(l, _)| *l == m) {
+                            Some(entry) => entry.1 += 1,
+                            None => methods.push((m, 1)),
                         }
                     }
+                    let label = |m: &PairMethod| {
+                        serde_json::to_value(m).ok().and_then(|v| v.as_str().map(str::to_string)).unwrap_or_default()
+                    };
                     let merges = c.merges.iter().filter(|m| &m.item == item).count();
                     json!({
                         "item": item,
                         "kind": c.kind.get(item),
-                        "methods": methods.iter().map(|(l, k)| format!("{l} ({k})")).collect::<Vec<_>>().join(", "),
+                        "methods": methods.iter().map(|(m, k)| format!("{} ({k})", label(m))).collect::<Vec<_>>().join(", "),
                         "merges": merges,
                     })
                 })
@@ -143,7 +141,7 @@ fn structure_diagram(spec: &SpecFile, execution: &Execution) -> Option<String> {
                 (None, Some(p)) => Some(format!("{:.0}%", p * 100.0)),
                 (None, None) => None,
             };
-            Some(Link { from: index(&e.from)?, to: index(&e.to)?, directed: e.kind == "directed", label })
+            Some(Link { from: index(&e.from)?, to: index(&e.to)?, kind: e.kind, label })
         })
         .collect();
     let dropped: Vec<String> = match execution.artifacts.get(&StepKind::Purify) {
@@ -187,8 +185,8 @@ fn truth_comparison(spec: &SpecFile, execution: &Execution) -> Option<Value> {
         let est =
             structure.and_then(|s| s.effects.iter().find(|f| f.from == p.from && f.to == p.to)).and_then(|f| f.std);
         let status = match edge {
-            Some(e) if e.kind == "directed" && e.from == p.from => "found, oriented as true",
-            Some(e) if e.kind == "directed" => "found, reversed",
+            Some(e) if e.kind.is_directed() && e.from == p.from => "found, oriented as true",
+            Some(e) if e.kind.is_directed() => "found, reversed",
             Some(_) => "found, unoriented",
             None => "missed",
         };
@@ -234,7 +232,7 @@ fn edge_support(execution: &Execution) -> Value {
                 Some(x) => (x.present, x.backward, x.forward),
                 None => (0.0, 0.0, 0.0),
             };
-            json!({"key": format!("{}|{}", e.from, e.to), "present": present, "as_shown": same, "reversed": other})
+            json!({"present": present, "as_shown": same, "reversed": other})
         })
         .collect();
     Value::Array(rows)

@@ -6,6 +6,7 @@
 use std::fmt::Write;
 
 use super::svg::escape;
+use construe_stats::search::EdgeKind;
 
 pub struct Node {
     pub name: String,
@@ -17,7 +18,7 @@ pub struct Node {
 pub struct Link {
     pub from: usize,
     pub to: usize,
-    pub directed: bool,
+    pub kind: EdgeKind,
     pub label: Option<String>,
 }
 
@@ -64,8 +65,8 @@ pub fn diagram(nodes: &[Node], links: &[Link], dropped: &[String]) -> String {
     let mut labels = String::new();
     for l in links {
         let (a, b) = (centres[l.from], centres[l.to]);
-        let marker = if l.directed { r#" marker-end="url(#arrowhead)""# } else { "" };
-        let colour = if l.directed { "#1d232a" } else { "#a84824" };
+        let marker = if l.kind.is_directed() { r#" marker-end="url(#arrowhead)""# } else { "" };
+        let colour = if l.kind.is_directed() { "#1d232a" } else { "#a84824" };
         let (mx, my) = if bows(nodes, l) {
             let control = ((a.0 + b.0) / 2.0, a.1.min(b.1) - bow_offset(nodes, l));
             let (x1, y1) = boundary(a, control);
@@ -157,8 +158,8 @@ mod tests {
             Node { name: "c".into(), column: 1, items: vec!["y1".into()] },
         ];
         let links = vec![
-            Link { from: 0, to: 1, directed: true, label: Some("0.42".into()) },
-            Link { from: 1, to: 0, directed: false, label: None },
+            Link { from: 0, to: 1, kind: EdgeKind::Directed, label: Some("0.42".into()) },
+            Link { from: 1, to: 0, kind: EdgeKind::Undirected, label: None },
         ];
         let svg = diagram(&nodes, &links, &["z<1>".into()]);
         assert_eq!(svg.matches("<ellipse").count(), 2);

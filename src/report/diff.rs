@@ -6,7 +6,8 @@
 
 use std::collections::{BTreeMap, BTreeSet};
 
-use serde::Serialize;
+use construe_stats::search::EdgeKind;
+use serde::{Deserialize, Serialize};
 use serde_json::Value;
 
 /// One titled group of change lines.
@@ -143,8 +144,12 @@ fn edge_map(r: &Value) -> Option<BTreeMap<(String, String), String>> {
             .map(|e| {
                 let (from, to) = (s(&e["from"]), s(&e["to"]));
                 let key = if from < to { (from.clone(), to.clone()) } else { (to.clone(), from.clone()) };
-                let shown =
-                    if e["kind"] == "directed" { format!("{from} → {to}") } else { format!("{from} — {to}") };
+                // Read as the type results.json wrote; anything else draws as undirected.
+                let kind = EdgeKind::deserialize(&e["kind"]).unwrap_or(EdgeKind::Undirected);
+                let shown = match kind {
+                    EdgeKind::Directed => format!("{from} → {to}"),
+                    EdgeKind::Undirected => format!("{from} — {to}"),
+                };
                 (key, shown)
             })
             .collect(),

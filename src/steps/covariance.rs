@@ -20,8 +20,65 @@ use construe_stats::smoothing::{self, smooth_correlation};
 /// Bump when the matrices change for the same loaded data and parameters.
 /// v2: polychoric / polyserial correlations for ordinal items, smoothing. v3: all-continuous
 /// data take one product-moment pass (last-digit differences in correlations). v4: blocked
-/// cross-products on shifted data (last-digit differences again).
-pub const VERSION: u32 = 4;
+/// cross-products on shifted data (last-digit differences again). v5: item pairs stored as
+/// typed `ItemPair`s (the artifact's bytes changed; results.json did not).
+pub const VERSION: u32 = 5;
+
+/// Two items of the matrix, `first` before `second` in item order: the key of every per-pair
+/// fact. results.json writes it `"first|second"` (scripts read those keys); the exact artifact
+/// encoding (postcard, not human-readable) keeps the two names apart, so a `|` inside an item
+/// name never splits a pair wrongly. Code compares and looks up pairs, never splits text.
+#[derive(Debug, Clone, PartialEq, Eq, Hash, PartialOrd, Ord)]
+pub struct ItemPair {
+    pub first: String,
+    pub second: String,
+}
+
+impl ItemPair {
+    pub fn new(first: impl Into<String>, second: impl Into<String>) -> ItemPair {
+        ItemPair { first: first.into(), second: second.into() }
+    }
+
+    /// Items `a` and `b` (a < b) of `items`.
+    fn of(items: &[String], a: usize, b: usize) -> ItemPair {
+        ItemPair::new(items[a].clone(), items[b].clone())
+    }
+
+    /// Whether `item` is one of the two.
+    pub fn contains(&self, item: &str) -> bool {
+        self.first == item || self.second == item
+    }
+}
+
+/// `first|second`, the key results.json shows.
+impl std::fmt::Display for ItemPair {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        write!(f, "{}|{}", self.first, self.second)
+    }
+}
+
+impl Serialize for ItemPair {
+    fn serialize<S: serde::Serializer>(&self, s: S) -> Result<S::Ok, S::Error> {
+        if s.is_human_readable() { s.collect_str(self) } else { (&self.first, &self.second).serialize(s) }
+    }
+}
+
+impl<'de> Deserialize<'de> for ItemPair {
+    /// From the artifact encoding, exactly; from the text key only when it has one `|`
+    /// (construe itself never reads pairs back from results.json).
+    fn deserialize<D: serde::Deserializer<'de>>(d: D) -> Result<ItemPair, D::Error> {
+        if d.is_human_readable() {
+            let key = String::deserialize(d)?;
+            match key.split_once('|') {
+                Some((a, b)) if !b.contains('|') => Ok(ItemPair::new(a, b)),
+                _ => Err(serde::de::Error::custom(format!("`{key}` is not one `first|second` item pair"))),
+            }
+        } else {
+            let (first, second) = <(String, String)>::deserialize(d)?;
+            Ok(ItemPair { first, second })
+        }
+    }
+}
 
 /// The estimator used for one item pair.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
@@ -48,27 +105,27 @@ pub struct Definiteness {
 pub struct CovarianceOutput {
     pub items: Vec<String>,
     pub kind: IndexMap<String, ItemKind>,
-    /// Keyed `"a|b"` for a < b in item order.
-    pub method: IndexMap<String, PairMethod>,
+    /// Per pair a < b in item order (results.json: keys `"a|b"`).
+    pub method: IndexMap<ItemPair, PairMethod>,
     pub correlation: Vec<Vec<f64>>,
     pub covariance: Vec<Vec<f64>>,
     pub n: Vec<Vec<usize>>,
     pub smoothed: bool,
     pub missing: Missing,
     pub definiteness: Definiteness,
-    /// Standard error of each pair's correlation (`"a|b"`), where defined.
-    pub se: IndexMap<String, Option<f64>>,
+    /// Standard error of each pair's correlation, where defined.
+    pub se: IndexMap<ItemPair, Option<f64>>,
     /// Categories empty among a pair's complete rows, merged with a neighbour for that pair.
     pub merges: Vec<Merge>,
     /// How much smoothing changed the matrix, when it did.
     pub smoothing: Option<SmoothingSummary>,
     /// Pairs whose polychoric or polyserial estimate reached the bound |rho| = 0.9999.
-    pub at_bound: Vec<String>,
+    pub at_bound: Vec<ItemPair>,
 }
 
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct Merge {
-    pub pair: String,
+    pub pair: ItemPair,
     pub item: String,
     /// The empty category and the one it was merged into, as response values.
     pub empty: f64,
@@ -145,7 +202,7 @@ impl CovarianceStep {
         let mut e = Estimates::new(correlation, covariance, vec![vec![m.n; p]; p]);
         for a in 0..p {
             for b in a + 1..p {
-                let key = pair_key(items, a, b);
+                let key = ItemPair::of(items, a, b);
                 e.method.insert(key.clone(), PairMethod::Given);
                 e.se.insert(key, None);
             }
@@ -230,7 +287,7 @@ impl CovarianceStep {
         let n = (0..p).map(|r| (0..p).map(|c| mixed.n[(r, c)]).collect()).collect();
         let mut e = Estimates::new(correlation, covariance, n);
         for pair in &mixed.pairs {
-            let key = pair_key(items, pair.first, pair.second);
+            let key = ItemPair::of(items, pair.first, pair.second);
             let method = match pair.method {
                 mixed::PairMethod::Pearson => PairMethod::Pearson,
                 mixed::PairMethod::Polychoric => PairMethod::Polychoric,
@@ -277,7 +334,7 @@ impl CovarianceStep {
         let mut e = Estimates::new(m.correlation.clone(), m.covariance.clone(), n);
         for a in 0..p {
             for b in a + 1..p {
-                let key = pair_key(&table.items, a, b);
+                let key = ItemPair::of(&table.items, a, b);
                 let r = m.correlation[(a, b)];
                 // Large-sample standard error of r, (1 - r^2) / sqrt(n), as the mixed estimator
                 // reports for Pearson pairs (common practice).
@@ -296,10 +353,10 @@ struct Estimates {
     correlation: DMatrix<f64>,
     covariance: DMatrix<f64>,
     n: Vec<Vec<usize>>,
-    method: IndexMap<String, PairMethod>,
-    se: IndexMap<String, Option<f64>>,
+    method: IndexMap<ItemPair, PairMethod>,
+    se: IndexMap<ItemPair, Option<f64>>,
     merges: Vec<Merge>,
-    at_bound: Vec<String>,
+    at_bound: Vec<ItemPair>,
 }
 
 impl Estimates {
@@ -314,10 +371,6 @@ impl Estimates {
             at_bound: Vec::new(),
         }
     }
-}
-
-fn pair_key(items: &[String], a: usize, b: usize) -> String {
-    format!("{}|{}", items[a], items[b])
 }
 
 /// Names the items of a failing pair instead of their column indices.
@@ -418,5 +471,34 @@ impl Step for CovarianceStep {
             (None, false) => format!("NOT positive definite (items {})", c.definiteness.involved.join(", ")),
         };
         format!("{p}x{p} matrix, {} pairs: {}; {pd}", p * p.saturating_sub(1) / 2, parts.join(", "))
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::steps::{read_exact, write_exact};
+
+    // results.json keys stay `"a|b"`; the artifact keeps both names, so pairs whose names
+    // contain `|` (`x|y` with `z`, `x` with `y|z`: both "x|y|z" as text) stay two pairs.
+    #[test]
+    fn pairs_key_results_as_text_and_artifacts_exactly() {
+        let one = ItemPair::new("x|y", "z");
+        let other = ItemPair::new("x", "y|z");
+        assert_eq!(one.to_string(), other.to_string());
+        let map: IndexMap<ItemPair, PairMethod> =
+            [(ItemPair::new("a", "b"), PairMethod::Pearson), (one.clone(), PairMethod::Polychoric)].into();
+        let json = serde_json::to_value(&map).unwrap();
+        assert_eq!(json, serde_json::json!({"a|b": "pearson", "x|y|z": "polychoric"}));
+        let pairs: IndexMap<ItemPair, PairMethod> =
+            [(one.clone(), PairMethod::Polychoric), (other.clone(), PairMethod::Polyserial)].into();
+        let mut bytes = Vec::new();
+        write_exact(&mut bytes, &pairs).unwrap();
+        let back: IndexMap<ItemPair, PairMethod> = read_exact(&bytes).unwrap();
+        assert_eq!(back, pairs);
+        assert!(back[&other] == PairMethod::Polyserial && other.contains("y|z") && !other.contains("y"));
+        // Text keys are read back only when they name one pair.
+        assert_eq!(serde_json::from_value::<ItemPair>("a|b".into()).unwrap(), ItemPair::new("a", "b"));
+        assert!(serde_json::from_value::<ItemPair>("x|y|z".into()).is_err());
     }
 }

@@ -13,37 +13,10 @@ use crate::spec::SpecFile;
 use crate::spec::types::{Identification, MeasureSpec};
 use construe_stats::StatsError;
 use construe_stats::reliability::{cronbach_alpha, mcdonald_omega};
-use construe_stats::sem::{self, FitOptions, Matrix, ParameterKind, SemFit, SemModel};
+use construe_stats::sem::{self, FitIndices, FitOptions, Matrix, ParameterKind, SemFit, SemModel};
 
 /// Bump when the fit changes for the same covariances, purification and parameters.
 pub const VERSION: u32 = 2;
-
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
-pub struct FitSummary {
-    pub chisq: f64,
-    pub df: usize,
-    pub p: f64,
-    pub rmsea: f64,
-    pub rmsea_ci: [f64; 2],
-    pub cfi: f64,
-    pub tli: f64,
-    pub srmr: f64,
-}
-
-impl FitSummary {
-    pub fn of(fit: &SemFit) -> FitSummary {
-        FitSummary {
-            chisq: fit.chisq,
-            df: fit.df,
-            p: fit.p_value,
-            rmsea: fit.rmsea,
-            rmsea_ci: [fit.rmsea_ci.0, fit.rmsea_ci.1],
-            cfi: fit.cfi,
-            tli: fit.tli,
-            srmr: fit.srmr,
-        }
-    }
-}
 
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct Estimate {
@@ -97,7 +70,7 @@ pub struct MeasureOutput {
     pub identification: Identification,
     pub n: usize,
     pub constructs: IndexMap<String, Vec<String>>,
-    pub fit: FitSummary,
+    pub fit: FitIndices,
     pub loadings: IndexMap<String, IndexMap<String, Estimate>>,
     pub error_variances: IndexMap<String, ErrorVariance>,
     pub latent_correlation: NamedMatrix,
@@ -111,7 +84,7 @@ pub struct MeasureOutput {
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct UnpurifiedFit {
     pub converged: bool,
-    pub fit: FitSummary,
+    pub fit: FitIndices,
 }
 
 /// A construct as the measurement model sees it.
@@ -163,7 +136,8 @@ fn rows(m: &DMatrix<f64>) -> Vec<Vec<f64>> {
     (0..m.nrows()).map(|r| (0..m.ncols()).map(|c| m[(r, c)]).collect()).collect()
 }
 
-/// Fits the CFA of `constructs` on the covariance of the named items.
+/// Fits the CFA of `constructs` on the covariance of the named items; a failing fit is a
+/// `StepError::Stats` with `context` ("the measurement model").
 pub fn fit_constructs(
     constructs: &[(String, Vec<String>, Option<f64>)],
     all_items: &[String],
@@ -171,13 +145,14 @@ pub fn fit_constructs(
     n: usize,
     ident: Identification,
     paths: &[(usize, usize)],
-) -> Result<(SemFit, Vec<String>), StatsError> {
+    context: &'static str,
+) -> Result<(SemFit, Vec<String>), StepError> {
     let observed: Vec<String> = constructs.iter().flat_map(|(_, items, _)| items.iter().cloned()).collect();
-    let index: Vec<usize> =
-        observed.iter().map(|i| all_items.iter().position(|a| a == i).unwrap_or(usize::MAX)).collect();
-    if index.contains(&usize::MAX) {
-        return Err(StatsError::InvalidInput("an item of the model is not in the covariance matrix".into()));
-    }
+    let index: Vec<usize> = observed
+        .iter()
+        .map(|i| all_items.iter().position(|a| a == i).ok_or_else(|| StepError::ItemNotInMatrix { item: i.clone() }))
+        .collect::<Result<_, _>>()?;
+    let stats = |source: StatsError| StepError::Stats { context: context.into(), source };
     let s = DMatrix::from_fn(index.len(), index.len(), |r, c| covariance[(index[r], index[c])]);
     let mut offset = 0;
     let groups: Vec<Vec<usize>> = constructs
@@ -190,23 +165,22 @@ pub fn fit_constructs(
         .collect();
     let names: Vec<String> = constructs.iter().map(|(n, _, _)| n.clone()).collect();
     let mut model = if paths.is_empty() {
-        SemModel::cfa(&groups, index.len(), identification(ident))?
+        SemModel::cfa(&groups, index.len(), identification(ident))
     } else {
-        SemModel::sem(&groups, index.len(), identification(ident), paths)?
-    };
+        SemModel::sem(&groups, index.len(), identification(ident), paths)
+    }
+    .map_err(stats)?;
     for ((name, _, reliability), g) in constructs.iter().zip(&groups) {
         match (reliability, g.as_slice()) {
             (Some(r), [single]) => {
                 model.fix_error_variance(*single, (1.0 - r) * s[(*single, *single)]);
             }
-            (None, [_]) => {
-                return Err(StatsError::InvalidInput(format!("construct `{name}` has one item and no reliability")));
-            }
+            (None, [_]) => return Err(StepError::NoReliability { construct: name.clone() }),
             _ => {}
         }
     }
-    let model = model.with_names(observed.clone(), names)?;
-    let fit = model.fit(&s, n, &FitOptions::default())?;
+    let model = model.with_names(observed.clone(), names).map_err(stats)?;
+    let fit = model.fit(&s, n, &FitOptions::default()).map_err(stats)?;
     Ok((fit, observed))
 }
 
@@ -245,14 +219,13 @@ impl Step for MeasureStep {
         let constructs = self.constructs(kept);
         let n = cov.min_n();
         let s = cov.covariance_matrix();
-        let err = |context: &'static str| move |source| StepError::Stats { context: context.to_string(), source };
-        let (fit, observed) = fit_constructs(&constructs, &cov.items, &s, n, self.params.identification, &[])
-            .map_err(err("the measurement model"))?;
+        let (fit, observed) =
+            fit_constructs(&constructs, &cov.items, &s, n, self.params.identification, &[], "the measurement model")?;
         let unpurified = if self.purified && constructs.iter().zip(&self.declared).any(|(c, d)| c.1 != d.items) {
             let declared = self.constructs(None);
-            fit_constructs(&declared, &cov.items, &s, n, self.params.identification, &[])
+            fit_constructs(&declared, &cov.items, &s, n, self.params.identification, &[], "the declared model")
                 .ok()
-                .map(|(f, _)| UnpurifiedFit { converged: f.converged, fit: FitSummary::of(&f) })
+                .map(|(f, _)| UnpurifiedFit { converged: f.converged, fit: f.indices.clone() })
         } else {
             None
         };
@@ -349,7 +322,7 @@ pub fn summarise(
         identification: ident,
         n,
         constructs: constructs.iter().map(|(n, i, _)| (n.clone(), i.clone())).collect(),
-        fit: FitSummary::of(fit),
+        fit: fit.indices.clone(),
         loadings,
         error_variances,
         latent_correlation: NamedMatrix { names: names.clone(), matrix: rows(&moments.correlation) },
@@ -362,5 +335,25 @@ pub fn summarise(
         reliability,
         heywood,
         unpurified,
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    // The two model problems a step can meet before any numerics are typed and name the item
+    // or construct.
+    #[test]
+    fn model_problems_name_the_item_or_construct() {
+        let items: Vec<String> = ["a", "b", "c"].map(String::from).to_vec();
+        let s = DMatrix::<f64>::identity(3, 3);
+        let missing = vec![("f".to_string(), vec!["a".to_string(), "b".to_string(), "q".to_string()], None)];
+        let e = fit_constructs(&missing, &items, &s, 100, Identification::UnitVariance, &[], "the model").unwrap_err();
+        assert!(matches!(&e, StepError::ItemNotInMatrix { item } if item == "q"), "{e:?}");
+        let single = vec![("g".to_string(), vec!["c".to_string()], None)];
+        let e = fit_constructs(&single, &items, &s, 100, Identification::UnitVariance, &[], "the model").unwrap_err();
+        assert!(matches!(&e, StepError::NoReliability { construct } if construct == "g"), "{e:?}");
+        assert_eq!(e.to_string(), "construct `g` has one item and no reliability");
     }
 }

@@ -76,6 +76,15 @@ pub enum StepError {
     Stats { context: String, source: StatsError },
     #[error("step `{step}` needs the output of `{needs}`, which is not in the plan")]
     MissingInput { step: StepKind, needs: StepKind },
+    /// An item of a model is not among the covariance matrix's items.
+    #[error("item `{item}` of the model is not in the covariance matrix")]
+    ItemNotInMatrix { item: String },
+    /// A one-item construct with no stated reliability: its error variance cannot be fixed.
+    #[error("construct `{construct}` has one item and no reliability")]
+    NoReliability { construct: String },
+    /// Background knowledge names a construct the model does not have.
+    #[error("background knowledge names `{construct}`, which is not a construct of the model")]
+    UnknownConstruct { construct: String },
 }
 
 impl StepError {

@@ -17,6 +17,7 @@ use crate::data::Table;
 use crate::pipeline::chain::{Compute, NoProgress, run_chain};
 use crate::spec::types::ResampleSpec;
 use construe_stats::bootstrap::{percentile_interval, replicate_rng, stratified_rows};
+use construe_stats::search::EdgeKind;
 
 /// Bump when bootstrap results change for the same inputs and parameters.
 pub const VERSION: u32 = 2;
@@ -79,8 +80,8 @@ impl ResampleStep {
 struct Replicate {
     kept: Vec<String>,
     clusters: Vec<Vec<String>>,
-    /// (from, to, directed) with from < to for undirected ones.
-    edges: Vec<(String, String, bool)>,
+    /// (from, to, kind) with from < to for undirected ones.
+    edges: Vec<(String, String, EdgeKind)>,
     effects: Vec<(String, String, f64, Option<f64>)>,
     converged: bool,
 }
@@ -121,7 +122,7 @@ impl ResampleStep {
             rep.converged &= m.converged;
         }
         if let Some(Artifact::Structure(s)) = artifacts.get(&StepKind::Structure) {
-            rep.edges = s.edges.iter().map(|e| (e.from.clone(), e.to.clone(), e.kind == "directed")).collect();
+            rep.edges = s.edges.iter().map(|e| (e.from.clone(), e.to.clone(), e.kind)).collect();
             rep.effects = s.effects.iter().map(|f| (f.from.clone(), f.to.clone(), f.est, f.std)).collect();
             rep.converged &= s.members.iter().all(|m| m.converged);
         }
@@ -188,11 +189,11 @@ impl Step for ResampleStep {
         clusters.truncate(20);
         let mut pairs: BTreeMap<(String, String), (usize, usize, usize)> = BTreeMap::new();
         for r in &ok {
-            for (from, to, directed) in &r.edges {
+            for (from, to, kind) in &r.edges {
                 let (a, b) = if from < to { (from.clone(), to.clone()) } else { (to.clone(), from.clone()) };
                 let e = pairs.entry((a.clone(), b)).or_default();
                 e.0 += 1;
-                if *directed {
+                if kind.is_directed() {
                     if *from == a { e.1 += 1 } else { e.2 += 1 }
                 }
             }

@@ -19,14 +19,94 @@ use super::{Artifact, Inputs, Step, StepError, StepKind};
 use crate::pipeline::chain::{ChainError, Compute, NoProgress, run_chain};
 use crate::spec::types::SensitivitySpec;
 use construe_stats::bootstrap::replicate_rng;
+use construe_stats::search::EdgeKind;
 
 /// Bump when sensitivity results change for the same inputs and parameters.
-pub const VERSION: u32 = 3;
+/// v4: conclusions stored as typed `Statement`s (the artifact's bytes changed; results.json
+/// did not).
+pub const VERSION: u32 = 4;
 
-/// A statement about the structure that a refit either repeats or contradicts.
+/// A statement about the structure that a refit either repeats or contradicts. Compared as a
+/// value; `Display` gives its words (results.json and the report show those).
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub enum Statement {
+    /// The edge as the search found it: `from -> to`, or `from - to` when it is undirected.
+    Edge { from: String, to: String, kind: EdgeKind },
+    /// The search left `a` and `b` non-adjacent.
+    NoEdge { a: String, b: String },
+    /// The sign and significance of the effect `from -> to` (first member of the class).
+    Effect { from: String, to: String, verdict: EffectVerdict },
+}
+
+/// An effect's sign and significance: its 95% interval excludes zero or not.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+pub enum EffectVerdict {
+    PositiveSignificant,
+    NegativeSignificant,
+    NotSignificant,
+}
+
+impl EffectVerdict {
+    /// The verdict on an estimate with its 95% interval (missing bounds: not significant).
+    pub fn of(est: f64, ci: [Option<f64>; 2]) -> EffectVerdict {
+        let significant = matches!(ci, [Some(lo), Some(hi)] if lo > 0.0 || hi < 0.0);
+        match (significant, est > 0.0) {
+            (true, true) => EffectVerdict::PositiveSignificant,
+            (true, false) => EffectVerdict::NegativeSignificant,
+            (false, _) => EffectVerdict::NotSignificant,
+        }
+    }
+}
+
+impl std::fmt::Display for EffectVerdict {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(match self {
+            EffectVerdict::PositiveSignificant => "positive and significant",
+            EffectVerdict::NegativeSignificant => "negative and significant",
+            EffectVerdict::NotSignificant => "not significant",
+        })
+    }
+}
+
+/// The words of results.json's `sensitivity.conclusions[].what` (scripts read them: keep them).
+impl std::fmt::Display for Statement {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        match self {
+            Statement::Edge { from, to, kind: EdgeKind::Directed } => write!(f, "edge {from} → {to}"),
+            Statement::Edge { from, to, kind: EdgeKind::Undirected } => write!(f, "edge {from} — {to}"),
+            Statement::NoEdge { a, b } => write!(f, "no edge between {a} and {b}"),
+            Statement::Effect { from, to, verdict } => write!(f, "effect {from} → {to} is {verdict}"),
+        }
+    }
+}
+
+/// A conclusion's statement in its two encodings: words in results.json (human-readable
+/// serializers: serde_json), the typed value in the exact artifact encoding (postcard), so a
+/// cached artifact reads back as the value it was, whatever the construct names contain.
+mod words_in_results {
+    use serde::de::Error;
+    use serde::{Deserialize, Deserializer, Serialize, Serializer};
+
+    use super::Statement;
+
+    pub fn serialize<S: Serializer>(what: &Statement, s: S) -> Result<S::Ok, S::Error> {
+        if s.is_human_readable() { s.collect_str(what) } else { what.serialize(s) }
+    }
+
+    pub fn deserialize<'de, D: Deserializer<'de>>(d: D) -> Result<Statement, D::Error> {
+        if d.is_human_readable() {
+            Err(D::Error::custom("a conclusion's words are not read back; decode the artifact instead"))
+        } else {
+            Statement::deserialize(d)
+        }
+    }
+}
+
+/// A statement with how it fares across the sensitivity analyses.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct Conclusion {
-    pub what: String,
+    #[serde(with = "words_in_results")]
+    pub what: Statement,
     /// Construct -> grid values at which the conclusion holds.
     pub holds_for: IndexMap<String, Vec<f64>>,
     /// Construct -> the largest grid value at which the conclusion's verdict differs from its
@@ -113,48 +193,24 @@ impl SensitivityStep {
     }
 }
 
-/// The verdicts a structure gives on each conclusion of the baseline, in baseline order.
-struct Verdicts;
-
-impl Verdicts {
-    /// Statements read off the baseline: each edge as found, each absent pair, and each
-    /// effect's sign and significance (95% interval excluding zero).
-    fn statements(base: &StructureOutput) -> Vec<String> {
-        let mut out: Vec<String> = base
-            .edges
-            .iter()
-            .map(|e| {
-                if e.kind == "directed" {
-                    format!("edge {} → {}", e.from, e.to)
-                } else {
-                    format!("edge {} — {}", e.from, e.to)
-                }
-            })
-            .collect();
-        out.extend(base.removed.iter().map(|r| format!("no edge between {} and {}", r.a, r.b)));
-        out.extend(
-            base.effects.iter().map(|f| format!("effect {} → {} is {}", f.from, f.to, effect_verdict(f.est, f.ci))),
-        );
-        out
-    }
-
-    fn of(s: &StructureOutput) -> Vec<String> {
-        Self::statements(s)
-    }
-}
-
-fn effect_verdict(est: f64, ci: [Option<f64>; 2]) -> &'static str {
-    let significant = matches!(ci, [Some(lo), Some(hi)] if lo > 0.0 || hi < 0.0);
-    match (significant, est > 0.0) {
-        (true, true) => "positive and significant",
-        (true, false) => "negative and significant",
-        (false, _) => "not significant",
-    }
+/// Statements read off a structure: each edge as found, each absent pair, and each effect's
+/// sign and significance (95% interval excluding zero). Read off the baseline they are the
+/// conclusions; read off a refit, the verdicts the conclusions are looked up in.
+fn statements(s: &StructureOutput) -> Vec<Statement> {
+    let mut out: Vec<Statement> =
+        s.edges.iter().map(|e| Statement::Edge { from: e.from.clone(), to: e.to.clone(), kind: e.kind }).collect();
+    out.extend(s.removed.iter().map(|r| Statement::NoEdge { a: r.a.clone(), b: r.b.clone() }));
+    out.extend(s.effects.iter().map(|f| Statement::Effect {
+        from: f.from.clone(),
+        to: f.to.clone(),
+        verdict: EffectVerdict::of(f.est, f.ci),
+    }));
+    out
 }
 
 /// Whether `what` (a baseline statement) holds in `refit`.
-fn holds(what: &str, refit: &[String]) -> bool {
-    refit.iter().any(|s| s == what)
+fn holds(what: &Statement, refit: &[Statement]) -> bool {
+    refit.contains(what)
 }
 
 impl Step for SensitivityStep {
@@ -188,7 +244,7 @@ impl Step for SensitivityStep {
             Some(Artifact::Structure(s)) => s.as_ref().clone(),
             _ => return Err(StepError::MissingInput { step: StepKind::Sensitivity, needs: StepKind::Structure }),
         };
-        let statements = Verdicts::statements(&base);
+        let baseline = statements(&base);
         let mut failed = 0;
         let failures = std::sync::Mutex::new(Vec::<String>::new());
         let note = |label: String, r: Result<StructureOutput, StepError>| -> Option<StructureOutput> {
@@ -201,10 +257,10 @@ impl Step for SensitivityStep {
             })
             .ok()
         };
-        let mut conclusions: Vec<Conclusion> = statements
-            .iter()
-            .map(|w| Conclusion {
-                what: w.clone(),
+        let mut conclusions: Vec<Conclusion> = baseline
+            .into_iter()
+            .map(|what| Conclusion {
+                what,
                 holds_for: IndexMap::new(),
                 tipping: IndexMap::new(),
                 prior_probability: None,
@@ -221,7 +277,7 @@ impl Step for SensitivityStep {
                 .map(|&r| note(format!("{construct} = {r}"), self.refit(inputs, &[(construct.clone(), r)], None)))
                 .collect();
             failed += fits.iter().filter(|f| f.is_none()).count();
-            let verdicts: Vec<Option<Vec<String>>> = fits.iter().map(|f| f.as_ref().map(Verdicts::of)).collect();
+            let verdicts: Vec<Option<Vec<Statement>>> = fits.iter().map(|f| f.as_ref().map(statements)).collect();
             for c in conclusions.iter_mut() {
                 let status: Vec<Option<bool>> =
                     verdicts.iter().map(|v| v.as_ref().map(|v| holds(&c.what, v))).collect();
@@ -236,7 +292,11 @@ impl Step for SensitivityStep {
                     fit.as_ref().and_then(|s| s.effects.iter().find(|e| e.from == f.from && e.to == f.to).cloned())
                 };
                 let pts: Vec<_> = fits.iter().map(point).collect();
-                let what = format!("effect {} → {} is {}", f.from, f.to, effect_verdict(f.est, f.ci));
+                let what = Statement::Effect {
+                    from: f.from.clone(),
+                    to: f.to.clone(),
+                    verdict: EffectVerdict::of(f.est, f.ci),
+                };
                 let tip = conclusions
                     .iter()
                     .find(|c| c.what == what)
@@ -254,11 +314,11 @@ impl Step for SensitivityStep {
             }
         }
         if !self.params.alpha.is_empty() {
-            let fits: Vec<Option<Vec<String>>> = self
+            let fits: Vec<Option<Vec<Statement>>> = self
                 .params
                 .alpha
                 .par_iter()
-                .map(|&a| note(format!("alpha = {a}"), self.refit(inputs, &[], Some(a))).map(|s| Verdicts::of(&s)))
+                .map(|&a| note(format!("alpha = {a}"), self.refit(inputs, &[], Some(a))).map(|s| statements(&s)))
                 .collect();
             failed += fits.iter().filter(|f| f.is_none()).count();
             for c in conclusions.iter_mut() {
@@ -280,7 +340,7 @@ impl Step for SensitivityStep {
                 .filter_map(|(c, p)| Beta::new(p.beta[0], p.beta[1]).ok().map(|b| (c.clone(), b)))
                 .collect();
             inputs.progress.start(StepKind::Sensitivity, self.params.draws);
-            let draws: Vec<Option<Vec<String>>> = (0..self.params.draws)
+            let draws: Vec<Option<Vec<Statement>>> = (0..self.params.draws)
                 .into_par_iter()
                 .map(|d| {
                     let mut rng = replicate_rng(self.params.seed, d);
@@ -297,11 +357,11 @@ impl Step for SensitivityStep {
                         ),
                         self.refit(inputs, &rs, None),
                     )
-                    .map(|s| Verdicts::of(&s))
+                    .map(|s| statements(&s))
                 })
                 .collect();
             inputs.progress.finish(StepKind::Sensitivity);
-            let ok: Vec<&Vec<String>> = draws.iter().flatten().collect();
+            let ok: Vec<&Vec<Statement>> = draws.iter().flatten().collect();
             failed += draws.len() - ok.len();
             for c in conclusions.iter_mut() {
                 c.prior_probability =
@@ -339,7 +399,69 @@ fn tipping(grid: &[f64], status: &[Option<bool>]) -> Option<f64> {
 
 #[cfg(test)]
 mod tests {
-    use super::tipping;
+    use super::*;
+    use crate::steps::{read_exact, write_exact};
+
+    fn conclusion(what: Statement) -> Conclusion {
+        Conclusion {
+            what,
+            holds_for: IndexMap::new(),
+            tipping: IndexMap::new(),
+            prior_probability: None,
+            holds_for_alpha: Vec::new(),
+        }
+    }
+
+    // results.json keeps the words scripts read; the artifact keeps the typed value.
+    #[test]
+    fn statements_read_as_before_in_results_and_exactly_from_the_artifact() {
+        let cases = [
+            (Statement::Edge { from: "a".into(), to: "b".into(), kind: EdgeKind::Directed }, "edge a → b"),
+            (Statement::Edge { from: "a".into(), to: "b".into(), kind: EdgeKind::Undirected }, "edge a — b"),
+            (Statement::NoEdge { a: "a".into(), b: "b".into() }, "no edge between a and b"),
+            (
+                Statement::Effect { from: "a".into(), to: "b".into(), verdict: EffectVerdict::PositiveSignificant },
+                "effect a → b is positive and significant",
+            ),
+            (
+                Statement::Effect { from: "a".into(), to: "b".into(), verdict: EffectVerdict::NegativeSignificant },
+                "effect a → b is negative and significant",
+            ),
+            (
+                Statement::Effect { from: "a".into(), to: "b".into(), verdict: EffectVerdict::NotSignificant },
+                "effect a → b is not significant",
+            ),
+        ];
+        for (what, words) in cases {
+            let c = conclusion(what);
+            assert_eq!(serde_json::to_value(&c).unwrap()["what"], words);
+            let mut bytes = Vec::new();
+            write_exact(&mut bytes, &c).unwrap();
+            assert_eq!(read_exact::<Conclusion>(&bytes), Some(c));
+        }
+    }
+
+    // As sentences, "no edge between p and q and r" was two different conclusions at once:
+    // p / `q and r`, and `p and q` / r. As values they stay apart.
+    #[test]
+    fn conclusions_are_compared_as_values_not_sentences() {
+        let one = Statement::NoEdge { a: "p".into(), b: "q and r".into() };
+        let other = Statement::NoEdge { a: "p and q".into(), b: "r".into() };
+        assert_eq!(one.to_string(), other.to_string());
+        assert!(!holds(&one, std::slice::from_ref(&other)));
+        assert!(holds(&one, &[other, one.clone()]));
+        let arrow = Statement::Edge { from: "a → b".into(), to: "c".into(), kind: EdgeKind::Directed };
+        let shifted = Statement::Edge { from: "a".into(), to: "b → c".into(), kind: EdgeKind::Directed };
+        assert!(!holds(&arrow, &[shifted]));
+    }
+
+    #[test]
+    fn verdicts_follow_the_interval() {
+        assert_eq!(EffectVerdict::of(0.3, [Some(0.1), Some(0.5)]), EffectVerdict::PositiveSignificant);
+        assert_eq!(EffectVerdict::of(-0.3, [Some(-0.5), Some(-0.1)]), EffectVerdict::NegativeSignificant);
+        assert_eq!(EffectVerdict::of(0.3, [Some(-0.1), Some(0.5)]), EffectVerdict::NotSignificant);
+        assert_eq!(EffectVerdict::of(0.3, [None, None]), EffectVerdict::NotSignificant);
+    }
 
     #[test]
     fn tipping_is_the_largest_value_with_the_other_verdict() {

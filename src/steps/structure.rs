@@ -7,19 +7,20 @@ use nalgebra::DMatrix;
 use serde::{Deserialize, Serialize};
 use serde_json::{Value, json};
 
-use super::measure::{FitSummary, fit_constructs};
+use super::measure::fit_constructs;
 use super::{Artifact, Inputs, Step, StepError, StepKind};
 use crate::spec::SpecFile;
 use crate::spec::types::{CiTest as CiTestKind, Knowledge as KnowledgeSpec, StructureSpec};
-use construe_stats::StatsError;
 use construe_stats::bvn::Z_975;
 use construe_stats::search::{
-    CiTest, ColliderRule, FisherZ, Knowledge, PcOptions, Reason, WaldPartial, enumerate_dags, pc,
+    CiTest, ColliderRule, EdgeKind, FisherZ, Knowledge, KnowledgeError, PcOptions, Reason, WaldPartial, enumerate_dags,
+    pc,
 };
-use construe_stats::sem::{Matrix, ParameterKind};
+use construe_stats::sem::{FitIndices, Matrix, ParameterKind};
 
 /// Bump when search or fit results change for the same measurement model and parameters.
-pub const VERSION: u32 = 2;
+/// v3: edge kinds stored as `EdgeKind` (the artifact's bytes changed; results.json did not).
+pub const VERSION: u32 = 3;
 
 /// Class members fitted at most (the rest are counted, not fitted).
 const MAX_MEMBERS: usize = 8;
@@ -28,8 +29,8 @@ const MAX_MEMBERS: usize = 8;
 pub struct EdgeRecord {
     pub from: String,
     pub to: String,
-    /// `directed` or `undirected` (the data cannot orient it).
-    pub kind: String,
+    /// Directed, or undirected when the data cannot orient it (`"directed"` / `"undirected"`).
+    pub kind: EdgeKind,
     pub reason: String,
 }
 
@@ -56,7 +57,7 @@ pub struct EffectRecord {
 pub struct MemberFit {
     pub edges: Vec<[String; 2]>,
     pub converged: bool,
-    pub fit: FitSummary,
+    pub fit: FitIndices,
     pub effects: Vec<EffectRecord>,
     pub r_squared: IndexMap<String, f64>,
 }
@@ -71,7 +72,7 @@ pub struct StructureOutput {
     pub tests_run: usize,
     /// Effects and fit of the first DAG of the class (the one the report draws).
     pub effects: Vec<EffectRecord>,
-    pub fit: Option<FitSummary>,
+    pub fit: Option<FitIndices>,
     pub r_squared: IndexMap<String, f64>,
     pub members: Vec<MemberFit>,
     /// Members of the equivalence class consistent with the knowledge (at most the cap).
@@ -110,13 +111,11 @@ impl StructureStep {
         step
     }
 
-    fn knowledge(&self, names: &[String]) -> Result<Knowledge, StatsError> {
+    fn knowledge(&self, names: &[String]) -> Result<Knowledge, StepError> {
         let idx = |n: &String| {
-            names
-                .iter()
-                .position(|x| x == n)
-                .ok_or_else(|| StatsError::InvalidInput(format!("unknown construct `{n}`")))
+            names.iter().position(|x| x == n).ok_or_else(|| StepError::UnknownConstruct { construct: n.clone() })
         };
+        let stats = |e: KnowledgeError| StepError::Stats { context: "background knowledge".into(), source: e.into() };
         let mut k = Knowledge::new(names.len());
         let tiers: Vec<Vec<usize>> = self
             .knowledge
@@ -124,12 +123,12 @@ impl StructureStep {
             .iter()
             .map(|t| t.iter().map(idx).collect::<Result<_, _>>())
             .collect::<Result<_, _>>()?;
-        k.set_tiers(&tiers)?;
+        k.set_tiers(&tiers).map_err(stats)?;
         for [a, b] in &self.knowledge.forbid {
-            k.forbid(idx(a)?, idx(b)?)?;
+            k.forbid(idx(a)?, idx(b)?).map_err(stats)?;
         }
         for [a, b] in &self.knowledge.require {
-            k.require(idx(a)?, idx(b)?)?;
+            k.require(idx(a)?, idx(b)?).map_err(stats)?;
         }
         Ok(k)
     }
@@ -180,7 +179,7 @@ impl Step for StructureStep {
             }
             CiTestKind::Fisher => Box::new(FisherZ::new(c, measure.n as f64).map_err(err("the Fisher-z tests"))?),
         };
-        let knowledge = self.knowledge(&names).map_err(err("background knowledge"))?;
+        let knowledge = self.knowledge(&names)?;
         let options = PcOptions { alpha: self.params.alpha, max_cond: None, colliders: ColliderRule::Standard };
         let result = pc(test.as_ref(), &knowledge, &options).map_err(err("the PC search"))?;
         let edges = result
@@ -189,7 +188,7 @@ impl Step for StructureStep {
             .map(|e| EdgeRecord {
                 from: names[e.from].clone(),
                 to: names[e.to].clone(),
-                kind: if e.directed { "directed".into() } else { "undirected".into() },
+                kind: e.kind(),
                 reason: reason(e.reason),
             })
             .collect();
@@ -217,9 +216,16 @@ impl Step for StructureStep {
         let mut members = Vec::new();
         for dag in &class.dags {
             let paths: Vec<(usize, usize)> =
-                dag.edges().iter().filter(|e| e.directed).map(|e| (e.from, e.to)).collect();
-            let (fit, _) = fit_constructs(&constructs, &cov.items, &s, measure.n, measure.identification, &paths)
-                .map_err(err("the structural model"))?;
+                dag.edges().iter().filter(|e| e.is_directed()).map(|e| (e.from, e.to)).collect();
+            let (fit, _) = fit_constructs(
+                &constructs,
+                &cov.items,
+                &s,
+                measure.n,
+                measure.identification,
+                &paths,
+                "the structural model",
+            )?;
             let z = Z_975;
             let effects = fit
                 .parameters
@@ -245,7 +251,7 @@ impl Step for StructureStep {
             members.push(MemberFit {
                 edges: paths.iter().map(|&(a, b)| [names[a].clone(), names[b].clone()]).collect(),
                 converged: fit.converged,
-                fit: FitSummary::of(&fit),
+                fit: fit.indices.clone(),
                 effects,
                 r_squared,
             });
@@ -269,7 +275,7 @@ impl Step for StructureStep {
 
     fn describe(&self, artifact: &Artifact) -> String {
         let Artifact::Structure(s) = artifact else { return String::new() };
-        let directed = s.edges.iter().filter(|e| e.kind == "directed").count();
+        let directed = s.edges.iter().filter(|e| e.kind.is_directed()).count();
         format!(
             "{} ({directed} directed) after {} tests; class of {}{}",
             crate::spec::diagnostic::plural(s.edges.len(), "edge"),

@@ -145,12 +145,15 @@ pub struct FisherZ {
 impl FisherZ {
     /// A test on covariance or correlation `cov` estimated from `n` observations.
     pub fn new(cov: DMatrix<f64>, n: f64) -> Result<Self, StatsError> {
-        if !cov.is_square() || !n.is_finite() || n <= 0.0 {
-            return Err(StatsError::InvalidInput(format!(
-                "Fisher-z test needs a square matrix and a positive sample size, got {}x{} and {n}",
-                cov.nrows(),
-                cov.ncols()
-            )));
+        if !cov.is_square() {
+            return Err(StatsError::SizeMismatch {
+                what: "columns of the Fisher-z test's covariance for its rows",
+                expected: cov.nrows(),
+                found: cov.ncols(),
+            });
+        }
+        if !n.is_finite() || n <= 0.0 {
+            return Err(StatsError::InvalidInput(format!("Fisher-z test needs a positive sample size, got {n}")));
         }
         Ok(FisherZ { cov, n })
     }
@@ -194,15 +197,12 @@ impl WaldPartial {
     pub fn new(cov: DMatrix<f64>, acov: DMatrix<f64>) -> Result<Self, StatsError> {
         let m = cov.nrows();
         let q = m * (m + 1) / 2;
-        if !cov.is_square() || acov.nrows() != q || acov.ncols() != q {
-            return Err(StatsError::InvalidInput(format!(
-                "Wald test needs an m x m covariance and an m(m+1)/2 square acov, got {}x{} and {}x{}",
-                cov.nrows(),
-                cov.ncols(),
-                acov.nrows(),
-                acov.ncols()
-            )));
-        }
+        let size = |what, expected, found| {
+            if expected == found { Ok(()) } else { Err(StatsError::SizeMismatch { what, expected, found }) }
+        };
+        size("columns of the Wald test's covariance for its rows", m, cov.ncols())?;
+        size("rows of the Wald test's acov for m(m + 1)/2 covariance elements", q, acov.nrows())?;
+        size("columns of the Wald test's acov for m(m + 1)/2 covariance elements", q, acov.ncols())?;
         if cov.iter().chain(acov.iter()).any(|v| !v.is_finite()) {
             return Err(StatsError::InvalidInput("Wald test inputs contain a non-finite value".into()));
         }
@@ -529,7 +529,14 @@ pub(crate) mod tests {
         let c = DMatrix::identity(3, 3);
         assert!(matches!(partial_correlation(&c, 0, 0, &[]), Err(StatsError::InvalidInput(_))));
         assert!(matches!(partial_correlation(&c, 0, 1, &[1]), Err(StatsError::InvalidInput(_))));
-        assert!(WaldPartial::new(c.clone(), DMatrix::identity(5, 5)).is_err());
+        assert!(matches!(
+            WaldPartial::new(c.clone(), DMatrix::identity(5, 5)),
+            Err(StatsError::SizeMismatch { found: 5, .. })
+        ));
+        assert!(matches!(
+            FisherZ::new(DMatrix::identity(3, 2), 10.0),
+            Err(StatsError::SizeMismatch { expected: 3, found: 2, .. })
+        ));
         let f = FisherZ::new(c.clone(), 4.0).unwrap();
         assert!(matches!(f.test(0, 1, &[2]), Err(StatsError::NotEnoughData { .. })));
         let singular = DMatrix::from_element(3, 3, 1.0);

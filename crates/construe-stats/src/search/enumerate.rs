@@ -27,14 +27,15 @@ pub struct Enumeration {
 /// branch at its first cycle or new v-structure; both only grow as edges are oriented. For a
 /// CPDAG every branch reaches a member (Meek 1995; from memory), so the work is proportional to
 /// the number of members. Required edges that are not adjacent in `pdag` admit no member.
-/// A knowledge about a different number of nodes is an `InvalidInput` error.
+/// A knowledge about a different number of nodes is a `SizeMismatch` error.
 pub fn enumerate_dags(pdag: &Graph, knowledge: &Knowledge, cap: usize) -> Result<Enumeration, StatsError> {
     let n = pdag.n();
     if knowledge.n() != n {
-        return Err(StatsError::InvalidInput(format!(
-            "knowledge speaks about {} nodes, the graph has {n}",
-            knowledge.n()
-        )));
+        return Err(StatsError::SizeMismatch {
+            what: "nodes in the knowledge for the graph's nodes",
+            expected: n,
+            found: knowledge.n(),
+        });
     }
     let mut out = Enumeration { dags: Vec::new(), complete: true };
     search(pdag, knowledge, cap, &mut out);
@@ -83,7 +84,7 @@ fn descend(
     cap: usize,
     out: &mut Enumeration,
 ) -> bool {
-    let Some(e) = g.edges().into_iter().find(|e| !e.directed) else {
+    let Some(e) = g.edges().into_iter().find(|e| !e.is_directed()) else {
         if out.dags.len() == cap {
             out.complete = false;
             return false;

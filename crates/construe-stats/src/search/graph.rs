@@ -21,12 +21,41 @@ pub enum Link {
     In,
 }
 
-/// One edge of a graph: `from -> to` when `directed`, otherwise `from - to` with `from < to`.
+/// Whether an edge is oriented. Serialized as `"directed"` / `"undirected"` (the `kind` of
+/// results.json's `structure.edges`); the one type every layer compares edges by.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Hash, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum EdgeKind {
+    // Undirected first, so edges sort as they did when this was a `directed: bool`.
+    /// `from - to`: the data and the knowledge leave the orientation open.
+    Undirected,
+    /// `from -> to`.
+    Directed,
+}
+
+impl EdgeKind {
+    pub fn is_directed(self) -> bool {
+        self == EdgeKind::Directed
+    }
+
+    /// `Directed` when `directed`, else `Undirected`.
+    pub fn from_directed(directed: bool) -> EdgeKind {
+        if directed { EdgeKind::Directed } else { EdgeKind::Undirected }
+    }
+}
+
+/// One edge of a graph: `from -> to` when directed, otherwise `from - to` with `from < to`.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Hash, Serialize, Deserialize)]
 pub struct Edge {
     pub from: usize,
     pub to: usize,
-    pub directed: bool,
+    pub kind: EdgeKind,
+}
+
+impl Edge {
+    pub fn is_directed(&self) -> bool {
+        self.kind.is_directed()
+    }
 }
 
 /// A graph over `n` nodes with at most one edge, directed or undirected, per pair.
@@ -137,8 +166,8 @@ impl Graph {
         for a in 0..self.n {
             for b in 0..self.n {
                 match self.link(a, b) {
-                    Link::Out => out.push(Edge { from: a, to: b, directed: true }),
-                    Link::Undirected if a < b => out.push(Edge { from: a, to: b, directed: false }),
+                    Link::Out => out.push(Edge { from: a, to: b, kind: EdgeKind::Directed }),
+                    Link::Undirected if a < b => out.push(Edge { from: a, to: b, kind: EdgeKind::Undirected }),
                     _ => {}
                 }
             }
@@ -291,6 +320,23 @@ impl Graph {
 #[cfg(test)]
 pub(crate) mod tests {
     use super::*;
+
+    // Edge kinds are one type with the words results.json has always shown, and sort as
+    // the bool they replaced (undirected before directed).
+    #[test]
+    fn edge_kinds_serialize_to_their_words_and_keep_their_order() {
+        assert_eq!(serde_json::to_value(EdgeKind::Directed).unwrap(), "directed");
+        assert_eq!(serde_json::to_value(EdgeKind::Undirected).unwrap(), "undirected");
+        assert_eq!(serde_json::from_value::<EdgeKind>("directed".into()).unwrap(), EdgeKind::Directed);
+        assert!(serde_json::from_value::<EdgeKind>("Directed".into()).is_err());
+        assert!(EdgeKind::Undirected < EdgeKind::Directed);
+        assert_eq!(EdgeKind::from_directed(true), EdgeKind::Directed);
+        let mut g = Graph::new(3);
+        g.add_undirected(0, 1);
+        g.add_directed(2, 1);
+        let kinds: Vec<EdgeKind> = g.edges().iter().map(|e| e.kind).collect();
+        assert_eq!(kinds, [EdgeKind::Undirected, EdgeKind::Directed]);
+    }
     use rand::{Rng, SeedableRng};
     use rand_chacha::ChaCha8Rng;
 
@@ -353,7 +399,7 @@ pub(crate) mod tests {
         assert_eq!(g.edge_count(), 2);
         g.remove(0, 1);
         assert!(!g.is_adjacent(1, 0));
-        assert_eq!(g.edges(), vec![Edge { from: 1, to: 2, directed: false }]);
+        assert_eq!(g.edges(), vec![Edge { from: 1, to: 2, kind: EdgeKind::Undirected }]);
     }
 
     #[test]

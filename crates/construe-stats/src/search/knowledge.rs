@@ -9,8 +9,6 @@ use std::collections::BTreeSet;
 use serde::{Deserialize, Serialize};
 use thiserror::Error;
 
-use crate::StatsError;
-
 /// Why a piece of background knowledge was rejected. Fields are node indices.
 #[derive(Debug, Clone, PartialEq, Eq, Error)]
 pub enum KnowledgeError {
@@ -35,12 +33,6 @@ pub enum KnowledgeError {
     /// The required edges contain a directed cycle through these nodes.
     #[error("the required edges form a directed cycle through node {node}")]
     RequiredCycle { node: usize },
-}
-
-impl From<KnowledgeError> for StatsError {
-    fn from(e: KnowledgeError) -> Self {
-        StatsError::InvalidInput(e.to_string())
-    }
 }
 
 /// Tiers, forbidden and required directed edges over `n` nodes.
@@ -204,6 +196,7 @@ impl Knowledge {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::StatsError;
 
     // Hand-worked cases of the tier semantics stated in the design (own or later tiers only).
     #[test]
@@ -252,6 +245,6 @@ mod tests {
             serde_json::from_str(r#"{"n":2,"tier":[null,null],"forbidden":[],"required":[[0,5]]}"#).unwrap();
         assert_eq!(bad.validate(), Err(KnowledgeError::OutOfRange { node: 5, n: 2 }));
         let e: StatsError = KnowledgeError::SelfLoop { node: 1 }.into();
-        assert!(matches!(e, StatsError::InvalidInput(_)));
+        assert!(matches!(e, StatsError::Knowledge(_)), "{e:?}");
     }
 }

@@ -13,7 +13,7 @@ pub mod pc;
 
 pub use ci::{CiResult, CiTest, DSepOracle, FisherZ, WaldPartial};
 pub use enumerate::{Enumeration, enumerate_dags};
-pub use graph::{Edge, Graph, Link};
+pub use graph::{Edge, EdgeKind, Graph, Link};
 pub use knowledge::{Knowledge, KnowledgeError};
 pub use meek::MeekOrientation;
 pub use pc::{

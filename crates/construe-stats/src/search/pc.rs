@@ -9,7 +9,7 @@ use std::collections::BTreeMap;
 use serde::{Deserialize, Serialize};
 
 use super::ci::{CiResult, CiTest};
-use super::graph::Graph;
+use super::graph::{EdgeKind, Graph};
 use super::knowledge::Knowledge;
 use super::meek;
 use crate::StatsError;
@@ -63,13 +63,20 @@ pub enum Reason {
 }
 
 /// One edge of the result: `from -> to` when `directed` (with its reason), else `from - to`
-/// with `from < to`.
+/// with `from < to`. `kind()` gives the orientation as the `EdgeKind` the rest of the project
+/// compares by. (The field stays a bool while the simulation checks in `pitfalls` read it.)
 #[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
 pub struct PcEdge {
     pub from: usize,
     pub to: usize,
     pub directed: bool,
     pub reason: Option<Reason>,
+}
+
+impl PcEdge {
+    pub fn kind(&self) -> EdgeKind {
+        EdgeKind::from_directed(self.directed)
+    }
 }
 
 /// A pair the search left non-adjacent (a < b).
@@ -188,10 +195,11 @@ fn combinations(items: &[usize], k: usize) -> Vec<Vec<usize>> {
 pub fn pc(test: &dyn CiTest, knowledge: &Knowledge, options: &PcOptions) -> Result<PcResult, StatsError> {
     let n = test.n_vars();
     if knowledge.n() != n {
-        return Err(StatsError::InvalidInput(format!(
-            "knowledge speaks about {} nodes, the test about {n}",
-            knowledge.n()
-        )));
+        return Err(StatsError::SizeMismatch {
+            what: "nodes in the knowledge for the test's variables",
+            expected: n,
+            found: knowledge.n(),
+        });
     }
     if !(options.alpha > 0.0 && options.alpha < 1.0) {
         return Err(StatsError::InvalidInput(format!(
@@ -351,8 +359,8 @@ pub fn pc(test: &dyn CiTest, knowledge: &Knowledge, options: &PcOptions) -> Resu
         .map(|e| PcEdge {
             from: e.from,
             to: e.to,
-            directed: e.directed,
-            reason: if e.directed { reasons.get(&(e.from, e.to)).copied() } else { None },
+            directed: e.is_directed(),
+            reason: if e.is_directed() { reasons.get(&(e.from, e.to)).copied() } else { None },
         })
         .collect();
     Ok(PcResult {
@@ -432,6 +440,7 @@ mod tests {
     use super::*;
     use crate::search::ci::tests::{linear_gaussian_cov, sample_cov};
     use crate::search::ci::{DSepOracle, FisherZ};
+    use crate::search::enumerate::enumerate_dags;
     use crate::search::graph::tests::random_dag;
     use rand::SeedableRng;
     use rand_chacha::ChaCha8Rng;
@@ -649,6 +658,13 @@ mod tests {
         let oracle = DSepOracle::new(Graph::new(3));
         let opts = PcOptions { alpha: 1.5, ..PcOptions::default() };
         assert!(pc(&oracle, &Knowledge::new(3), &opts).is_err());
-        assert!(pc(&oracle, &Knowledge::new(4), &PcOptions::default()).is_err());
+        assert_eq!(
+            pc(&oracle, &Knowledge::new(4), &PcOptions::default()).unwrap_err(),
+            StatsError::SizeMismatch { what: "nodes in the knowledge for the test's variables", expected: 3, found: 4 }
+        );
+        assert!(matches!(
+            enumerate_dags(&Graph::new(3), &Knowledge::new(2), 4),
+            Err(StatsError::SizeMismatch { expected: 3, found: 2, .. })
+        ));
     }
 }

@@ -6,7 +6,7 @@
 use nalgebra::{DMatrix, DVector};
 
 use super::implied::{Implied, implied};
-use super::indices::{FitIndices, fit_indices};
+use super::indices::{BaselineFit, FitIndices, fit_indices};
 use super::information::{Derivatives, latent_cov_jacobian};
 use super::linalg::{cholesky_lower, cholesky_solve, factor_model_inverse, inverse_from_factor, spd_inverse};
 use super::model::{Matrix, ModelMatrices, ParamLayout, ParameterKind, SemModel};
@@ -106,16 +106,12 @@ pub struct SemFit {
     pub discrepancy: f64,
     /// Sample size the covariance matrix came from.
     pub n: usize,
-    pub chisq: f64,
+    /// The model's degrees of freedom, p(p + 1)/2 - q (the same number as `indices.df`).
     pub df: usize,
-    pub p_value: f64,
-    pub rmsea: f64,
-    pub rmsea_ci: (f64, f64),
-    pub cfi: f64,
-    pub tli: f64,
-    pub srmr: f64,
-    /// Every index, including the baseline model's chi-square and df.
+    /// Chi-square, RMSEA, CFI, TLI, SRMR: the one fit-index record (`indices::FitIndices`).
     pub indices: FitIndices,
+    /// The independence model CFI and TLI compare with.
+    pub baseline: BaselineFit,
     /// Every meaningful entry with estimate, SE and standardized value.
     pub parameters: Vec<ParameterEstimate>,
     /// Free-parameter vector, indexed as `layout`.
@@ -207,12 +203,19 @@ fn evaluate(obj: &Objective, values: &[f64]) -> Option<Point> {
 /// A fit that stops early returns `converged = false` with the estimates reached.
 pub fn fit(model: &SemModel, s: &DMatrix<f64>, n: usize, options: &FitOptions) -> Result<SemFit, StatsError> {
     let p = model.p();
-    if s.nrows() != p || s.ncols() != p {
-        return Err(StatsError::InvalidInput(format!(
-            "covariance matrix is {}x{}, the model has {p} observed variables",
-            s.nrows(),
-            s.ncols()
-        )));
+    if s.nrows() != p {
+        return Err(StatsError::SizeMismatch {
+            what: "covariance matrix rows for the model's observed variables",
+            expected: p,
+            found: s.nrows(),
+        });
+    }
+    if s.ncols() != p {
+        return Err(StatsError::SizeMismatch {
+            what: "covariance matrix columns for the model's observed variables",
+            expected: p,
+            found: s.ncols(),
+        });
     }
     if n < 2 {
         return Err(StatsError::NotEnoughData { what: "ML structural equation model".into(), needed: 2, found: n });
@@ -228,15 +231,17 @@ pub fn fit(model: &SemModel, s: &DMatrix<f64>, n: usize, options: &FitOptions) -
     let q = layout.len();
     let moments_count = p * (p + 1) / 2;
     if q > moments_count {
-        return Err(StatsError::InvalidInput(format!(
-            "the model has {q} free parameters but only {moments_count} distinct variances and covariances"
-        )));
+        return Err(StatsError::NotIdentified { free: q, moments: moments_count });
     }
     let df = moments_count - q;
     let mut values = match &options.start {
         Some(v) if v.len() == q => v.clone(),
         Some(v) => {
-            return Err(StatsError::InvalidInput(format!("{} starting values for {q} free parameters", v.len())));
+            return Err(StatsError::SizeMismatch {
+                what: "starting values for the free parameters",
+                expected: q,
+                found: v.len(),
+            });
         }
         None => start_values(model, &layout, &s),
     };
@@ -329,7 +334,7 @@ pub fn fit(model: &SemModel, s: &DMatrix<f64>, n: usize, options: &FitOptions) -
     let std = standardized(&matrices, &point.imp);
     let parameters = estimates(model, &layout, &matrices, &std, &acov);
     let heywood = heywood_cases(&parameters, &point.imp);
-    let indices = fit_indices(point.f, &s, &point.imp.sigma, n, df)?;
+    let (indices, baseline) = fit_indices(point.f, &s, &point.imp.sigma, n, df)?;
     Ok(SemFit {
         converged,
         iterations,
@@ -337,15 +342,9 @@ pub fn fit(model: &SemModel, s: &DMatrix<f64>, n: usize, options: &FitOptions) -
         decrement,
         discrepancy: point.f,
         n,
-        chisq: indices.chisq,
         df,
-        p_value: indices.p_value,
-        rmsea: indices.rmsea,
-        rmsea_ci: indices.rmsea_ci,
-        cfi: indices.cfi,
-        tli: indices.tli,
-        srmr: indices.srmr,
         indices,
+        baseline,
         parameters,
         values,
         layout,

@@ -1,22 +1,26 @@
 //! Global fit of an ML SEM: chi-square, its p-value, RMSEA with its interval, CFI, TLI, SRMR,
 //! all against the independence baseline (free variances, zero covariances). Central type:
-//! `FitIndices`. Cut-offs are never applied here; they are guidance for the report only.
+//! `FitIndices`, the one fit-index record of the project (a `fit` block of results.json
+//! serializes it). Cut-offs are never applied here; they are guidance for the report only.
 //! Also owns the noncentral chi-square CDF the RMSEA interval needs.
 
 use nalgebra::DMatrix;
+use serde::{Deserialize, Serialize};
 use statrs::distribution::{ChiSquared, ContinuousCDF};
 use statrs::function::gamma::{gamma_lr, ln_gamma};
 
 use crate::StatsError;
 
-/// Global fit statistics of one ML fit.
-#[derive(Debug, Clone, PartialEq)]
+/// Global fit statistics of one ML fit. Serialized with the field names of results.json's
+/// `fit` blocks (`p` for the p-value, `rmsea_ci` as a two-element array), in this order.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct FitIndices {
     /// Likelihood-ratio statistic (n - 1) F_min.
     pub chisq: f64,
     /// p(p + 1)/2 minus the number of free parameters.
     pub df: usize,
     /// Upper-tail chi-square probability of `chisq` on `df`; 1 when df = 0.
+    #[serde(rename = "p")]
     pub p_value: f64,
     /// Root mean square error of approximation; 0 when df = 0.
     pub rmsea: f64,
@@ -28,14 +32,20 @@ pub struct FitIndices {
     pub tli: f64,
     /// Standardized root mean square residual over the p(p + 1)/2 distinct elements.
     pub srmr: f64,
+}
+
+/// The independence baseline model the incremental indices (CFI, TLI) compare with.
+#[derive(Debug, Clone, PartialEq)]
+pub struct BaselineFit {
     /// Chi-square of the independence baseline, (n - 1) (ln|diag S| - ln|S|).
-    pub baseline_chisq: f64,
+    pub chisq: f64,
     /// Degrees of freedom of the baseline, p(p - 1)/2.
-    pub baseline_df: usize,
+    pub df: usize,
 }
 
 /// Compute every index from the minimised discrepancy `f_min`, the sample covariance `s`, the
-/// implied covariance `sigma`, the sample size `n` and the model's `df`.
+/// implied covariance `sigma`, the sample size `n` and the model's `df`; also returns the
+/// independence baseline they were computed against.
 /// chisq = (n - 1) F (Joreskog 1969); RMSEA = sqrt(max(chisq - df, 0) / (df (n - 1)))
 /// (Steiger & Lind 1980) with the 90% interval of Browne & Cudeck (1993); CFI = 1 -
 /// max(chisq - df, 0) / max(chisq0 - df0, chisq - df, 0) (Bentler 1990); TLI = (chisq0/df0 -
@@ -48,7 +58,7 @@ pub fn fit_indices(
     sigma: &DMatrix<f64>,
     n: usize,
     df: usize,
-) -> Result<FitIndices, StatsError> {
+) -> Result<(FitIndices, BaselineFit), StatsError> {
     let p = s.nrows();
     let nm1 = (n as f64) - 1.0;
     // F is non-negative at a minimum; a tiny negative value is round-off of a saturated fit.
@@ -90,7 +100,10 @@ pub fn fit_indices(
         }
     }
     let srmr = (sum / (p * (p + 1) / 2) as f64).sqrt();
-    Ok(FitIndices { chisq, df, p_value, rmsea, rmsea_ci, cfi, tli, srmr, baseline_chisq, baseline_df })
+    Ok((
+        FitIndices { chisq, df, p_value, rmsea, rmsea_ci, cfi, tli, srmr },
+        BaselineFit { chisq: baseline_chisq, df: baseline_df },
+    ))
 }
 
 /// Two-sided `level` interval of RMSEA (Browne & Cudeck 1993; Steiger & Lind 1980): find the
@@ -215,6 +228,23 @@ fn ncx2_cdf_pair(x: f64, df: f64, lambda: f64) -> (f64, f64) {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    // One record for every `fit` block of results.json: its field names and order there
+    // (`p`, not `p_value`; `rmsea_ci` a two-element array) are what scripts read.
+    #[test]
+    fn fit_indices_serialize_as_the_results_fit_block() {
+        let s = DMatrix::from_row_slice(3, 3, &[1.0, 0.5, 0.4, 0.5, 1.0, 0.3, 0.4, 0.3, 1.0]);
+        let sigma = DMatrix::from_row_slice(3, 3, &[1.0, 0.45, 0.45, 0.45, 1.0, 0.35, 0.45, 0.35, 1.0]);
+        let (ix, baseline) = fit_indices(0.02, &s, &sigma, 300, 2).unwrap();
+        assert_eq!(baseline.df, 3);
+        let json = serde_json::to_value(&ix).unwrap();
+        let keys: Vec<&str> = json.as_object().unwrap().keys().map(String::as_str).collect();
+        assert_eq!(keys, ["chisq", "df", "p", "rmsea", "rmsea_ci", "cfi", "tli", "srmr"]);
+        assert_eq!(json["rmsea_ci"], serde_json::json!([ix.rmsea_ci.0, ix.rmsea_ci.1]));
+        assert_eq!(json["p"], serde_json::json!(ix.p_value));
+        let back: FitIndices = serde_json::from_value(json).unwrap();
+        assert_eq!(back, ix);
+    }
 
     #[test]
     fn noncentral_cdf_matches_scipy() {

@@ -14,7 +14,7 @@ pub mod standardized;
 pub mod start;
 
 pub use fit::{FitOptions, Heywood, HeywoodKind, LatentMoments, ParameterEstimate, SemFit, fit};
-pub use indices::{FitIndices, fit_indices, ncx2_cdf, rmsea_interval};
+pub use indices::{BaselineFit, FitIndices, fit_indices, ncx2_cdf, rmsea_interval};
 pub use model::{Identification, Matrix, Param, ParamLayout, ParameterKind, SemModel};
 
 #[cfg(test)]

@@ -179,9 +179,7 @@ impl SemModel {
             }
             for &i in group {
                 if i >= p {
-                    return Err(StatsError::InvalidInput(format!(
-                        "indicator {i} of latent {k} is out of range for {p} observed variables"
-                    )));
+                    return Err(StatsError::OutOfRange { what: "indicator (observed variable)", index: i, len: p });
                 }
                 if seen[i] {
                     return Err(StatsError::InvalidInput(format!(
@@ -248,14 +246,19 @@ impl SemModel {
 
     /// Replace the default names (`x1..`, `f1..`); lengths must match p and m.
     pub fn with_names(mut self, observed: Vec<String>, latent: Vec<String>) -> Result<Self, StatsError> {
-        if observed.len() != self.p() || latent.len() != self.m() {
-            return Err(StatsError::InvalidInput(format!(
-                "expected {} observed and {} latent names, got {} and {}",
-                self.p(),
-                self.m(),
-                observed.len(),
-                latent.len()
-            )));
+        if observed.len() != self.p() {
+            return Err(StatsError::SizeMismatch {
+                what: "observed variable names",
+                expected: self.p(),
+                found: observed.len(),
+            });
+        }
+        if latent.len() != self.m() {
+            return Err(StatsError::SizeMismatch {
+                what: "latent variable names",
+                expected: self.m(),
+                found: latent.len(),
+            });
         }
         self.observed_names = observed;
         self.latent_names = latent;

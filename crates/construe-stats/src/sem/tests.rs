@@ -128,19 +128,19 @@ fn check_against_scipy(case: &Value, name: &str) -> SemFit {
         let want = ix[key].as_f64().unwrap();
         assert!((got - want).abs() < 1e-4 * want.abs().max(1.0), "{name} {key}: {got} vs {want}");
     };
-    close(fit.chisq, "chisq");
-    close(fit.p_value, "p_value");
-    close(fit.rmsea, "rmsea");
-    close(fit.cfi, "cfi");
-    close(fit.tli, "tli");
-    close(fit.srmr, "srmr");
-    close(fit.indices.baseline_chisq, "baseline_chisq");
+    close(fit.indices.chisq, "chisq");
+    close(fit.indices.p_value, "p_value");
+    close(fit.indices.rmsea, "rmsea");
+    close(fit.indices.cfi, "cfi");
+    close(fit.indices.tli, "tli");
+    close(fit.indices.srmr, "srmr");
+    close(fit.baseline.chisq, "baseline_chisq");
     assert_eq!(fit.df as u64, ix["df"].as_u64().unwrap());
     let ci = floats(&ix["rmsea_ci"]);
     assert!(
-        (fit.rmsea_ci.0 - ci[0]).abs() < 1e-4 && (fit.rmsea_ci.1 - ci[1]).abs() < 1e-4,
+        (fit.indices.rmsea_ci.0 - ci[0]).abs() < 1e-4 && (fit.indices.rmsea_ci.1 - ci[1]).abs() < 1e-4,
         "{name} ci {:?} vs {ci:?}",
-        fit.rmsea_ci
+        fit.indices.rmsea_ci
     );
     fit
 }
@@ -154,7 +154,7 @@ fn three_factor_cfa_with_correlated_error_matches_scipy() {
     let g = fit.gradient(&matrix(&fixture["cfa3"]["cov"])).unwrap();
     assert!(g.amax() < 1e-6 && (g.amax() - fit.gradient_norm).abs() < 1e-12);
     // The fixture was built to misfit (an omitted cross-loading): a non-zero RMSEA lower bound.
-    assert!(fit.rmsea_ci.0 > 0.0);
+    assert!(fit.indices.rmsea_ci.0 > 0.0);
 }
 
 #[test]
@@ -267,8 +267,8 @@ fn large_cfa_matches_scipy_lbfgsb() {
         assert!((e.est - values[t]).abs() < 1e-4, "{cell}: {} vs {}", e.est, values[t]);
     }
     let ci = floats(&case["indices"]["rmsea_ci"]);
-    assert!((fit.rmsea_ci.1 - ci[1]).abs() < 1e-4);
-    assert!((fit.cfi - case["indices"]["cfi"].as_f64().unwrap()).abs() < 1e-4);
+    assert!((fit.indices.rmsea_ci.1 - ci[1]).abs() < 1e-4);
+    assert!((fit.indices.cfi - case["indices"]["cfi"].as_f64().unwrap()).abs() < 1e-4);
 }
 
 #[test]
@@ -309,9 +309,9 @@ fn saturated_model_has_zero_chisq_and_df() {
     let fit = model.fit(&s, 400, &FitOptions::default()).unwrap();
     assert!(fit.converged);
     assert_eq!(fit.df, 0);
-    assert!(fit.chisq < 1e-9, "chisq {}", fit.chisq);
+    assert!(fit.indices.chisq < 1e-9, "chisq {}", fit.indices.chisq);
     assert!((&fit.implied - &s).amax() < 1e-8);
-    assert!(fit.srmr < 1e-8);
+    assert!(fit.indices.srmr < 1e-8);
 }
 
 #[test]
@@ -334,7 +334,7 @@ fn identification_choices_give_the_same_fit_and_standardized_solution() {
     assert_eq!(a.df, b.df);
     assert!((&a.standardized.lambda - &b.standardized.lambda).amax() < 1e-6);
     assert!((&a.standardized.psi - &b.standardized.psi).amax() < 1e-6);
-    assert!((a.rmsea - b.rmsea).abs() < 1e-9 && (a.cfi - b.cfi).abs() < 1e-9);
+    assert!((a.indices.rmsea - b.indices.rmsea).abs() < 1e-9 && (a.indices.cfi - b.indices.cfi).abs() < 1e-9);
 }
 
 #[test]
@@ -423,4 +423,26 @@ fn reliability_from_a_fitted_one_factor_model_matches_numpy() {
     let errors: Vec<f64> = (0..4).map(|i| fit.entry(Matrix::Theta, i, i).unwrap().est).collect();
     let omega = crate::reliability::mcdonald_omega(&loadings, &errors).unwrap();
     assert!((omega - fixture["omega"].as_f64().unwrap()).abs() < 1e-5);
+}
+
+// Callers branch on what went wrong, so shape and identification errors are typed values,
+// not sentences.
+#[test]
+fn shape_and_identification_errors_are_typed() {
+    let out_of_range = SemModel::cfa(&[vec![0, 1, 5]], 3, Identification::UnitLatentVariance).unwrap_err();
+    assert_eq!(out_of_range, StatsError::OutOfRange { what: "indicator (observed variable)", index: 5, len: 3 });
+    let model = SemModel::cfa(&[vec![0, 1, 2]], 3, Identification::UnitLatentVariance).unwrap();
+    let names = model.clone().with_names(vec!["a".into(), "b".into()], vec!["f".into()]).unwrap_err();
+    assert!(matches!(names, StatsError::SizeMismatch { what: "observed variable names", expected: 3, found: 2 }));
+    let s = DMatrix::<f64>::identity(4, 4);
+    let wrong = model.fit(&s, 100, &FitOptions::default()).unwrap_err();
+    assert!(matches!(wrong, StatsError::SizeMismatch { expected: 3, found: 4, .. }), "{wrong:?}");
+    // Two indicators per factor, two correlated factors: 9 free parameters, 10 moments; with
+    // one indicator each and free error variances, 5 free parameters for 3 moments.
+    let one_each = SemModel::cfa(&[vec![0], vec![1]], 2, Identification::UnitLatentVariance).unwrap();
+    let e = one_each.fit(&DMatrix::identity(2, 2), 100, &FitOptions::default()).unwrap_err();
+    assert!(matches!(e, StatsError::NotIdentified { moments: 3, .. }), "{e:?}");
+    let start = FitOptions { start: Some(vec![0.5]), ..FitOptions::default() };
+    let e = model.fit(&DMatrix::identity(3, 3), 100, &start).unwrap_err();
+    assert!(matches!(e, StatsError::SizeMismatch { what: "starting values for the free parameters", found: 1, .. }));
 }
