@@ -104,7 +104,7 @@ fi
 
 if want 5; then
   echo "== 5. CFA of 60 items on 4 factors: construe vs the scipy L-BFGS-B reference"
-  cargo test --release --quiet --lib -- --ignored --nocapture cfa_60_items_timing 2>&1 | grep "per fit"
+  cargo bench --quiet -p construe-stats -- cfa 2>&1 | grep "per fit"
   python3 bench/cfa_reference.py tests/reference/sem/cfa60x4.json --repeat "$runs" | sed 's/^/  peer: /'
   model cfa 4 15 cfa.parquet "{covariance: {}, measure: {}}" 1000
   step_medians "$work/cfa.yaml" measure

@@ -108,6 +108,23 @@ pub fn one_factor_columns(
         .collect()
 }
 
+/// Population covariance of the linear Gaussian model x = B x + e on a DAG, with
+/// coefficients ±U(0.5, 1.5) and error variances U(0.5, 1.5):
+/// Sigma = (I - B)^-1 Omega (I - B)^-T (Wright 1921; Bollen 1989, ch. 4).
+pub fn linear_gaussian_cov(dag: &crate::search::Graph, seed: u64) -> DMatrix<f64> {
+    let n = dag.n();
+    let mut rng = seeded(seed);
+    let mut b = DMatrix::zeros(n, n);
+    for e in dag.edges() {
+        let mag = rng.random_range(0.5..1.5);
+        let sign = if rng.random::<bool>() { 1.0 } else { -1.0 };
+        b[(e.to, e.from)] = sign * mag;
+    }
+    let omega = DMatrix::from_diagonal(&DVector::from_fn(n, |_, _| rng.random_range(0.5..1.5)));
+    let a = (DMatrix::identity(n, n) - b).try_inverse().unwrap();
+    &a * omega * a.transpose()
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

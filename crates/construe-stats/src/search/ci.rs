@@ -266,39 +266,11 @@ impl CiTest for DSepOracle {
 }
 
 #[cfg(test)]
-pub(crate) mod tests {
+mod tests {
     use super::*;
-    use rand::{Rng, SeedableRng};
+    use crate::testkit::{linear_gaussian_cov, sample_cov_of_draws};
+    use rand::SeedableRng;
     use rand_chacha::ChaCha8Rng;
-    use rand_distr::StandardNormal;
-
-    /// Population covariance of the linear Gaussian model x = B x + e on a DAG, with
-    /// coefficients ±U(0.5, 1.5) and error variances U(0.5, 1.5):
-    /// Sigma = (I - B)^-1 Omega (I - B)^-T (Wright 1921; Bollen 1989, ch. 4).
-    pub(crate) fn linear_gaussian_cov(dag: &Graph, seed: u64) -> DMatrix<f64> {
-        let n = dag.n();
-        let mut rng = ChaCha8Rng::seed_from_u64(seed);
-        let mut b = DMatrix::zeros(n, n);
-        for e in dag.edges() {
-            let mag = rng.random_range(0.5..1.5);
-            let sign = if rng.random::<bool>() { 1.0 } else { -1.0 };
-            b[(e.to, e.from)] = sign * mag;
-        }
-        let omega = DMatrix::from_diagonal(&DVector::from_fn(n, |_, _| rng.random_range(0.5..1.5)));
-        let a = (DMatrix::identity(n, n) - b).try_inverse().unwrap();
-        &a * omega * a.transpose()
-    }
-
-    /// Sample covariance (divisor n - 1) of `n` draws from N(0, sigma).
-    pub(crate) fn sample_cov(sigma: &DMatrix<f64>, n: usize, rng: &mut ChaCha8Rng) -> DMatrix<f64> {
-        let m = sigma.nrows();
-        let l = sigma.clone().cholesky().unwrap().l();
-        let z = DMatrix::from_fn(m, n, |_, _| rng.sample::<f64, _>(StandardNormal));
-        let x = l * z;
-        let mean = x.column_mean();
-        let xc = DMatrix::from_fn(m, n, |r, c| x[(r, c)] - mean[r]);
-        &xc * xc.transpose() / (n as f64 - 1.0)
-    }
 
     fn corr3(r12: f64, r13: f64, r23: f64) -> DMatrix<f64> {
         DMatrix::from_row_slice(3, 3, &[1.0, r12, r13, r12, 1.0, r23, r13, r23, 1.0])
@@ -418,7 +390,7 @@ pub(crate) mod tests {
         let mut rng = ChaCha8Rng::seed_from_u64(17);
         let n = 20000usize;
         for _ in 0..5 {
-            let s = sample_cov(&sigma, n, &mut rng);
+            let s = sample_cov_of_draws(&sigma, n, &mut rng);
             let w = WaldPartial::new(s.clone(), normal_theory_acov(&s, n as f64)).unwrap();
             let f = FisherZ::new(s, n as f64).unwrap();
             for cond in [vec![2], vec![2, 3]] {
@@ -446,7 +418,7 @@ pub(crate) mod tests {
         let mut vechs = DMatrix::zeros(reps, q);
         let mut partials = Vec::with_capacity(reps);
         for rep in 0..reps {
-            let s = sample_cov(&sigma, n, &mut rng);
+            let s = sample_cov_of_draws(&sigma, n, &mut rng);
             for (u, &(a, b)) in vech_pairs(4).iter().enumerate() {
                 vechs[(rep, u)] = s[(a, b)];
             }
@@ -488,7 +460,7 @@ pub(crate) mod tests {
         let n = 300usize;
         let mut rejections = 0usize;
         for case in 0..cases {
-            let s = sample_cov(&sigma, n, &mut rng);
+            let s = sample_cov_of_draws(&sigma, n, &mut rng);
             // (c_ik c_jl + c_il c_jk) / (n - 1) is the exact covariance of the unbiased sample
             // covariance under normality (moments of the Wishart distribution; Wishart 1928), here
             // with the sample's own S plugged in, as an estimation routine would supply it

@@ -438,10 +438,10 @@ fn judge(rule: ColliderRule, with_c: usize, total: usize) -> TripleKind {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::search::ci::tests::{linear_gaussian_cov, sample_cov};
     use crate::search::ci::{DSepOracle, FisherZ};
     use crate::search::enumerate::enumerate_dags;
     use crate::search::graph::tests::random_dag;
+    use crate::testkit::{linear_gaussian_cov, sample_cov_of_draws};
     use rand::SeedableRng;
     use rand_chacha::ChaCha8Rng;
 
@@ -614,7 +614,7 @@ mod tests {
         let dag = random_dag(8, 0.35, 4242);
         let sigma = linear_gaussian_cov(&dag, 4243);
         let mut rng = ChaCha8Rng::seed_from_u64(4244);
-        let s = sample_cov(&sigma, 120, &mut rng);
+        let s = sample_cov_of_draws(&sigma, 120, &mut rng);
         let fz = FisherZ::new(s, 120.0).unwrap();
         let base = run(&fz, &Knowledge::new(8), ColliderRule::Conservative);
         for perm in [vec![7, 6, 5, 4, 3, 2, 1, 0], vec![3, 0, 6, 1, 7, 2, 5, 4]] {
