@@ -22,7 +22,7 @@ use construe_stats::smoothing::{self, smooth_correlation};
 /// data take one product-moment pass (last-digit differences in correlations). v4: blocked
 /// cross-products on shifted data (last-digit differences again). v5: item pairs stored as
 /// typed `ItemPair`s (the artifact's bytes changed; results.json did not).
-pub const VERSION: u32 = 5;
+pub const VERSION: u32 = 6;
 
 /// Two items of the matrix, `first` before `second` in item order: the key of every per-pair
 /// fact. results.json writes it `"first|second"` (scripts read those keys); the exact artifact
@@ -127,9 +127,11 @@ pub struct CovarianceOutput {
 pub struct Merge {
     pub pair: ItemPair,
     pub item: String,
-    /// The empty category and the one it was merged into, as response values.
-    pub empty: f64,
-    pub into: f64,
+    /// The empty category and the one it was merged into, as 1-based positions among the
+    /// item's response levels (lowest first), never as response values: a category that is
+    /// empty for one pair may hold a single respondent's rare answer overall (issue 13).
+    pub empty_level: u32,
+    pub into_level: u32,
 }
 
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -299,13 +301,11 @@ impl CovarianceStep {
                 e.at_bound.push(key.clone());
             }
             for m in &pair.merged {
-                let levels = load.summary.items[m.column].categories.clone().unwrap_or_default();
-                let value = |code: u32| levels.get(code as usize).copied().unwrap_or(f64::NAN);
                 e.merges.push(Merge {
                     pair: key.clone(),
                     item: items[m.column].clone(),
-                    empty: value(m.empty),
-                    into: value(m.into),
+                    empty_level: m.empty + 1,
+                    into_level: m.into + 1,
                 });
             }
         }
