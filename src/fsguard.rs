@@ -74,7 +74,10 @@ pub fn read_regular_text(path: &Path, max_bytes: u64) -> std::io::Result<String>
     let bytes = read_regular(path, max_bytes)?;
     String::from_utf8(bytes).map_err(|e| {
         let at = e.utf8_error().valid_up_to();
-        std::io::Error::new(std::io::ErrorKind::InvalidData, format!("it is not UTF-8 text (invalid byte at offset {at})"))
+        std::io::Error::new(
+            std::io::ErrorKind::InvalidData,
+            format!("it is not UTF-8 text (invalid byte at offset {at})"),
+        )
     })
 }
 

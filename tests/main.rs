@@ -9,6 +9,7 @@ mod coverage;
 mod demo;
 mod diff;
 mod faults;
+mod inputs;
 mod reference;
 mod report;
 mod robustness;

@@ -79,12 +79,9 @@ fn check_size(what: &'static str, n: usize, columns: usize) -> Result<(), Simula
     }
     let needed = (n as u64).saturating_mul(columns.max(1) as u64).saturating_mul(BYTES_PER_CELL);
     match available_memory() {
-        Some(available) if needed > available => Err(SimulateError::NotEnoughMemory {
-            n,
-            columns,
-            needed_mb: needed >> 20,
-            available_mb: available >> 20,
-        }),
+        Some(available) if needed > available => {
+            Err(SimulateError::NotEnoughMemory { n, columns, needed_mb: needed >> 20, available_mb: available >> 20 })
+        }
         _ => Ok(()),
     }
 }
@@ -153,7 +150,8 @@ fn duplicate_keys(path: &Path, source: &str) -> Result<(), SimulateError> {
     let Ok(positions) = Positions::index(source) else { return Ok(()) }; // serde reports syntax
     let mut report = Report::default();
     for d in positions.duplicates() {
-        let problem = SpecProblem::DuplicateKey { parent: d.parent.clone(), key: d.key.clone(), first_line: d.first.line };
+        let problem =
+            SpecProblem::DuplicateKey { parent: d.parent.clone(), key: d.key.clone(), first_line: d.first.line };
         let help = problem.help();
         report.push(
             Diagnostic::error(problem.to_string())

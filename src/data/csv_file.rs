@@ -153,7 +153,10 @@ mod tests {
     fn a_record_after_a_multi_line_field_names_its_own_line() {
         let (_d, p) = file(b"a,note\n1,\"two\nlines\"\nzz,ok\n");
         let e = numeric_columns(&p, &wanted(&["a"])).unwrap_err().to_string();
-        assert_eq!(e, "`".to_string() + &p.display().to_string() + "` row 2 (line 4), column `a`: `zz` is not a number");
+        assert_eq!(
+            e,
+            "`".to_string() + &p.display().to_string() + "` row 2 (line 4), column `a`: `zz` is not a number"
+        );
     }
 
     #[test]

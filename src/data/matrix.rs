@@ -50,7 +50,9 @@ pub enum MatrixProblem {
         "line {line} (row `{row}`), column `{column}`: {value} differs from {mirror} at row `{column}`, column `{row}`; the matrix must be symmetric"
     )]
     NotSymmetric { line: usize, row: String, column: String, value: f64, mirror: f64 },
-    #[error("line {line} (row `{item}`), column `{item}`: the diagonal of a correlation matrix must be 1, found {value}")]
+    #[error(
+        "line {line} (row `{item}`), column `{item}`: the diagonal of a correlation matrix must be 1, found {value}"
+    )]
     Diagonal { line: usize, item: String, value: f64 },
     #[error("line {line} (row `{row}`), column `{column}`: a correlation must lie in [-1, 1], found {value}")]
     CorrelationRange { line: usize, row: String, column: String, value: f64 },
@@ -265,13 +267,25 @@ mod tests {
     #[test]
     fn each_defect_names_its_place() {
         let cases = [
-            (GOOD.replace("b,0.5,1,", "b,0.5,0.9,"), "line 3 (row `b`), column `b`: the diagonal of a correlation matrix must be 1, found 0.9"),
-            (GOOD.replace("\nc,0.3", "\nd,0.3"), "line 4: row 3 is labelled `d`, but column 3 of the header is `c`; rows must name the header's items in the same order"),
+            (
+                GOOD.replace("b,0.5,1,", "b,0.5,0.9,"),
+                "line 3 (row `b`), column `b`: the diagonal of a correlation matrix must be 1, found 0.9",
+            ),
+            (
+                GOOD.replace("\nc,0.3", "\nd,0.3"),
+                "line 4: row 3 is labelled `d`, but column 3 of the header is `c`; rows must name the header's items in the same order",
+            ),
             (GOOD.replace(",a,b,c", ",a,b,a"), "line 1: `a` names two columns (2 and 4); each item may appear once"),
-            (GOOD.replace("c,0.3,0.4,1", "c,0.3,0.45,1"), "line 4 (row `c`), column `b`: 0.45 differs from 0.4 at row `b`, column `c`; the matrix must be symmetric"),
+            (
+                GOOD.replace("c,0.3,0.4,1", "c,0.3,0.45,1"),
+                "line 4 (row `c`), column `b`: 0.45 differs from 0.4 at row `b`, column `c`; the matrix must be symmetric",
+            ),
             (GOOD.replace("a,1,0.5", "a,inf,0.5"), "line 2 (row `a`), column `a`: `inf` is not a finite number"),
             (GOOD.replace("b,0.5,1,0.4", "b,0.5,1,"), "line 3 (row `b`), column `c`: the entry is missing"),
-            (GOOD.replace("c,0.3,0.4,1\n", ""), "has 2 rows of values for 3 named columns; a square matrix needs one row per column"),
+            (
+                GOOD.replace("c,0.3,0.4,1\n", ""),
+                "has 2 rows of values for 3 named columns; a square matrix needs one row per column",
+            ),
             (GOOD.replace("b,0.5,1,0.4", "b,0.5,1"), "line 3 has 3 fields, but the header has 4"),
         ];
         for (text, expected) in cases {
@@ -290,7 +304,10 @@ mod tests {
         let m = read(",a,b,c\na,1,0.99,-0.9\nb,0.99,1,0.99\nc,-0.9,0.99,1\n", MatrixKind::Correlation).unwrap();
         let e = check_positive_definite(&m, &[0, 1, 2]).unwrap_err();
         assert!(matches!(e, MatrixProblem::NotPositiveDefinite { items: 3, smallest } if smallest < 0.0), "{e}");
-        assert!(e.to_string().starts_with("is not positive definite over the 3 items the spec uses: its smallest eigenvalue is -"));
+        assert!(
+            e.to_string()
+                .starts_with("is not positive definite over the 3 items the spec uses: its smallest eigenvalue is -")
+        );
         assert!(check_positive_definite(&m, &[0, 1]).is_ok());
     }
 }

@@ -224,11 +224,8 @@ mod tests {
     fn repeated_keys_are_found_at_every_level() {
         let src = "title: a\nconstructs:\n  t: {items: [a]}\n  t:\n    items: [b]\n    items: [c]\ntitle: b\n";
         let p = Positions::index(src).unwrap();
-        let found: Vec<(String, String, usize, usize)> = p
-            .duplicates()
-            .iter()
-            .map(|d| (d.parent.clone(), d.key.clone(), d.first.line, d.second.line))
-            .collect();
+        let found: Vec<(String, String, usize, usize)> =
+            p.duplicates().iter().map(|d| (d.parent.clone(), d.key.clone(), d.first.line, d.second.line)).collect();
         assert_eq!(
             found,
             [

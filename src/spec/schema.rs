@@ -74,7 +74,8 @@ pub fn unknown_keys(positions: &Positions) -> Vec<Finding> {
         .iter()
         .map(|d| {
             // The key's path points at its last copy, which is where the diagnostic goes.
-            let problem = SpecProblem::DuplicateKey { parent: d.parent.clone(), key: d.key.clone(), first_line: d.first.line };
+            let problem =
+                SpecProblem::DuplicateKey { parent: d.parent.clone(), key: d.key.clone(), first_line: d.first.line };
             Finding::key(problem, child(&d.parent, &d.key))
         })
         .collect();

@@ -103,7 +103,9 @@ fn check_sources(spec: &Spec, sources: &[SourceColumns], out: &mut Vec<Finding>)
             ColumnsRead::Unreadable(reason) => {
                 SpecProblem::UnreadableFile { path: s.path.clone(), reason: reason.clone() }
             }
-            ColumnsRead::BadMatrix(problem) => SpecProblem::BadMatrix { path: s.path.clone(), problem: problem.clone() },
+            ColumnsRead::BadMatrix(problem) => {
+                SpecProblem::BadMatrix { path: s.path.clone(), problem: problem.clone() }
+            }
         };
         out.push(Finding::value(problem, path));
     }
@@ -129,10 +131,7 @@ fn check_matrix_n(spec: &Spec, out: &mut Vec<Finding>) {
     items.sort_unstable();
     items.dedup();
     if m.n > MAX_MATRIX_N {
-        out.push(Finding::value(
-            SpecProblem::TooMany { what: "`data.matrix.n`".into(), value: m.n as u64, max: MAX_MATRIX_N as u64 },
-            "data.matrix.n",
-        ));
+        out.push(Finding::value(SpecProblem::MatrixTooManyCases { n: m.n, max: MAX_MATRIX_N }, "data.matrix.n"));
     } else if m.n <= items.len() {
         out.push(Finding::value(SpecProblem::MatrixTooFewCases { n: m.n, items: items.len() }, "data.matrix.n"));
     }
@@ -174,11 +173,16 @@ fn check_constructs(spec: &Spec, sources: &[SourceColumns], available: Option<&V
                     child(&base, "reliability"),
                 ));
             }
-        } else if let Some(p) = spec.analyses.purify.as_ref().filter(|p| c.items.len() < p.min_items && !c.items.is_empty()) {
+        } else if let Some(p) =
+            spec.analyses.purify.as_ref().filter(|p| c.items.len() < p.min_items && !c.items.is_empty())
+        {
             out.push(Finding::key(
                 SpecProblem::BelowMinItems { construct: name.clone(), count: c.items.len(), min_items: p.min_items },
                 base.clone(),
             ));
+        } else if c.items.len() == 1 && (spec.analyses.measure.is_some() || spec.analyses.structure.is_some()) {
+            // One item and no reliability: the model fit would fail after computing the rest.
+            out.push(Finding::key(SpecProblem::Unidentified { construct: name.clone() }, base.clone()));
         } else if !c.items.is_empty() && c.items.len() < 3 {
             out.push(Finding::key(
                 SpecProblem::TooFewItems { construct: name.clone(), count: c.items.len() },
@@ -498,12 +502,20 @@ fn check_analyses(spec: &Spec, available: Option<&Vec<String>>, out: &mut Vec<Fi
         }
         if s.draws > MAX_DRAWS {
             out.push(Finding::value(
-                SpecProblem::TooMany { what: "`sensitivity.draws`".into(), value: s.draws as u64, max: MAX_DRAWS as u64 },
+                SpecProblem::TooMany {
+                    what: "`sensitivity.draws`".into(),
+                    value: s.draws as u64,
+                    max: MAX_DRAWS as u64,
+                },
                 "analyses.sensitivity.draws",
             ));
         } else if s.draws == 0 && !s.prior.is_empty() {
             out.push(Finding::value(
-                SpecProblem::OutOfRange { what: "`sensitivity.draws`".into(), range: "1 or more with a prior".into(), value: 0.0 },
+                SpecProblem::OutOfRange {
+                    what: "`sensitivity.draws`".into(),
+                    range: "1 or more with a prior".into(),
+                    value: 0.0,
+                },
                 "analyses.sensitivity.draws",
             ));
         }
