@@ -237,7 +237,9 @@ pub fn check_positive_definite(m: &NamedMatrix, used: &[usize]) -> Result<(), Ma
     let eigen = sub.symmetric_eigenvalues();
     let smallest = eigen.iter().copied().fold(f64::INFINITY, f64::min);
     let largest = eigen.iter().copied().fold(f64::NEG_INFINITY, f64::max);
-    if !(smallest > 1e-10 * largest.abs()) {
+    // NaN (from a degenerate input) fails too: `is_some_and` is false for an unordered pair.
+    let positive = smallest.partial_cmp(&(1e-10 * largest.abs())).is_some_and(|o| o.is_gt());
+    if !positive {
         return Err(MatrixProblem::NotPositiveDefinite { items: k, smallest });
     }
     Ok(())
