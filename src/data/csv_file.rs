@@ -172,6 +172,15 @@ mod tests {
     }
 
     #[test]
+    fn blank_lines_are_skipped_and_short_records_named() {
+        let (_d, p) = file(b"a,b\n1,2\n\n3,4\n");
+        assert_eq!(numeric_columns(&p, &wanted(&["b"])).unwrap(), vec![vec![2.0, 4.0]]);
+        let (_d, p) = file(b"a,b\n1,2\n3\n");
+        let e = numeric_columns(&p, &wanted(&["b"])).unwrap_err().to_string();
+        assert!(e.ends_with("row 2 (line 3) has 1 field, but the header names 2 columns"), "{e}");
+    }
+
+    #[test]
     fn bad_bytes_only_matter_in_wanted_columns() {
         let (_d, p) = file(b"a,b\n1,\xff\n2,3\n");
         assert_eq!(numeric_columns(&p, &wanted(&["a"])).unwrap(), vec![vec![1.0, 2.0]]);

@@ -34,7 +34,7 @@ pub enum MatrixProblem {
     DuplicateName { name: String, first: usize, second: usize },
     #[error("names no item columns")]
     NoItems,
-    #[error("line {line} has {found} fields, but the header has {expected}")]
+    #[error("line {line} has {}, but the header has {expected}", crate::spec::diagnostic::plural(*found, "field"))]
     FieldCount { line: usize, found: usize, expected: usize },
     #[error("has {found} rows of values for {expected} named columns; a square matrix needs one row per column")]
     RowCount { found: usize, expected: usize },

@@ -13,6 +13,8 @@ pub mod table;
 use std::path::{Path, PathBuf};
 
 use polars::prelude::*;
+
+use crate::spec::diagnostic::plural;
 use thiserror::Error;
 
 pub use matrix::MatrixProblem;
@@ -45,7 +47,7 @@ pub enum DataError {
     HeaderNotUtf8 { path: PathBuf, column: usize },
     #[error("`{}` names column `{column}` twice (columns {first} and {second})", path.display())]
     DuplicateColumn { path: PathBuf, column: String, first: usize, second: usize },
-    #[error("`{}` row {row} (line {line}) has {found} fields, but the header names {expected} columns", path.display())]
+    #[error("`{}` row {row} (line {line}) has {}, but the header names {}", path.display(), plural(*found, "field"), plural(*expected, "column"))]
     FieldCount { path: PathBuf, row: usize, line: usize, found: usize, expected: usize },
     #[error("`{}` row {row} (line {line}), column `{column}`: the value is not UTF-8 text", path.display())]
     NotUtf8 { path: PathBuf, row: usize, line: usize, column: String },
