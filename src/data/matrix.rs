@@ -59,8 +59,9 @@ pub enum MatrixProblem {
     #[error("line {line} (row `{item}`), column `{item}`: a variance must be positive, found {value}")]
     Variance { line: usize, item: String, value: f64 },
     #[error(
-        "is not positive definite over the {} the spec uses: its smallest eigenvalue is {smallest:.3e}",
-        crate::spec::diagnostic::plural(*items, "item")
+        "is not positive definite over the {} the spec uses: its smallest eigenvalue is {}",
+        crate::spec::diagnostic::plural(*items, "item"),
+        short_number(*smallest)
     )]
     NotPositiveDefinite { items: usize, smallest: f64 },
 }
@@ -79,6 +80,11 @@ impl MatrixProblem {
             _ => None,
         }
     }
+}
+
+/// Four decimals, or scientific notation for a value too small to show that way.
+fn short_number(x: f64) -> String {
+    if x == 0.0 || x.abs() >= 1e-3 { format!("{x:.4}") } else { format!("{x:.3e}") }
 }
 
 /// A named square matrix as read, row-major.
@@ -311,5 +317,7 @@ mod tests {
                 .starts_with("is not positive definite over the 3 items the spec uses: its smallest eigenvalue is -")
         );
         assert!(check_positive_definite(&m, &[0, 1]).is_ok());
+        assert_eq!(short_number(-0.92541), "-0.9254");
+        assert_eq!(short_number(-6.505e-4), "-6.505e-4");
     }
 }
