@@ -190,7 +190,9 @@ pub fn dispatch(cli: Cli) -> Exit {
 
 fn render_error(e: &AppError) -> String {
     match e {
-        AppError::Invalid(report) => report.to_string(),
+        AppError::Invalid(report) | AppError::Simulate(crate::app::simulate::SimulateError::Model(report)) => {
+            report.to_string()
+        }
         other => {
             let mut s = format!("error: {other}");
             if let Some(h) = other.hint() {

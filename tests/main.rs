@@ -11,6 +11,7 @@ mod demo;
 mod diff;
 mod faults;
 mod guard;
+mod inputs;
 mod reference;
 mod report;
 mod robustness;

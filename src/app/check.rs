@@ -3,7 +3,9 @@
 
 use std::path::Path;
 
-use crate::data::{FileKind, column_names};
+use crate::data::matrix::{check_positive_definite, read_matrix};
+use crate::data::{DataError, FileKind, column_names};
+use crate::spec::types::MatrixKind;
 use crate::spec::validate::{ColumnsRead, SourceColumns, validate};
 use crate::spec::{Report, SpecFile};
 
@@ -87,7 +89,8 @@ fn scale_score_lints(spec: &SpecFile) -> Vec<crate::spec::Finding> {
     out
 }
 
-/// Reads the header of each data source named by the spec.
+/// Reads the header of each data source named by the spec; a summary matrix is read whole
+/// (it is small) and checked, so a bad matrix is refused here rather than after computing.
 pub fn source_columns(spec: &SpecFile) -> Vec<SourceColumns> {
     let data = &spec.spec.data;
     let waves = data.waves.iter().enumerate().map(|(i, w)| (Some(w.id.clone()), i, &w.file));
@@ -100,21 +103,40 @@ pub fn source_columns(spec: &SpecFile) -> Vec<SourceColumns> {
                 ColumnsRead::Missing
             } else if FileKind::of(&path).is_none() {
                 ColumnsRead::Unsupported
+            } else if let (None, Some(m)) = (&wave, &data.matrix) {
+                matrix_columns(spec, &path, m.kind)
             } else {
                 match column_names(&path) {
-                    Ok(mut cols) => {
-                        // A summary matrix's row-label column is not an item.
-                        if wave.is_none() && cols.first().is_some_and(|c| c.is_empty() || c == "item" || c == "name") {
-                            cols.remove(0);
-                        }
-                        ColumnsRead::Columns(cols)
-                    }
+                    Ok(cols) => ColumnsRead::Columns(cols),
                     Err(e) => ColumnsRead::Unreadable(e.to_string()),
                 }
             };
             SourceColumns { wave, index, path, columns }
         })
         .collect()
+}
+
+/// A summary matrix's item names, once the whole matrix and the part the spec uses pass
+/// `read_matrix` and `check_positive_definite`.
+fn matrix_columns(spec: &SpecFile, path: &Path, kind: MatrixKind) -> ColumnsRead {
+    let m = match read_matrix(path, kind) {
+        Ok(m) => m,
+        Err(DataError::Matrix { problem, .. }) => return ColumnsRead::BadMatrix(problem),
+        Err(e) => return ColumnsRead::Unreadable(e.to_string()),
+    };
+    let mut used: Vec<usize> = spec
+        .spec
+        .constructs
+        .values()
+        .flat_map(|c| c.items.iter())
+        .filter_map(|i| m.names.iter().position(|n| n == i))
+        .collect();
+    used.sort_unstable();
+    used.dedup();
+    match check_positive_definite(&m, &used) {
+        Ok(()) => ColumnsRead::Columns(m.names),
+        Err(problem) => ColumnsRead::BadMatrix(problem),
+    }
 }
 
 /// Most categories for a single indicator to count as coarsened.

@@ -61,6 +61,7 @@ impl AppError {
             AppError::Pipeline(PipelineError::Internal(_)) => {
                 Some("this is a bug in construe; please report it".into())
             }
+            AppError::Simulate(e) => e.hint(),
             _ => None,
         }
     }
@@ -77,6 +78,16 @@ fn data_hint(e: &DataError) -> Option<String> {
         DataError::OutsideReverseRange { .. } => {
             Some("check the `[lowest, highest]` range under `data.reverse`, or declare the code as missing".into())
         }
+        DataError::Overflow { .. } => {
+            Some("rescale the item in the data file (for example, divide it by a power of ten)".into())
+        }
+        DataError::NonFinite { .. } => Some("write a finite number, or leave the value missing".into()),
+        DataError::NotUtf8 { .. } | DataError::HeaderNotUtf8 { .. } => Some("save the file as UTF-8 text".into()),
+        DataError::FieldCount { .. } => {
+            Some("check the separators and quotes on that line; a field with a comma must be in double quotes".into())
+        }
+        DataError::DuplicateColumn { .. } => Some("rename or remove one of the two columns".into()),
+        DataError::Matrix { problem, .. } => problem.help(),
         _ => None,
     }
 }

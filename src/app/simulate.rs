@@ -9,8 +9,8 @@ use thiserror::Error;
 
 use super::Exit;
 use crate::data::FileKind;
-use crate::spec::positions::Position;
-use crate::spec::{Diagnostic, Report};
+use crate::spec::positions::{Position, Positions};
+use crate::spec::{Diagnostic, Report, SpecProblem};
 use construe_stats::StatsError;
 use construe_stats::simulate::{ConstantValue, SimulatedTable, SimulationModel};
 
@@ -30,6 +30,12 @@ pub enum SimulateError {
     Unsupported { path: PathBuf },
     #[error("cannot write `{}`\n  caused by: {reason}", path.display())]
     Write { path: PathBuf, reason: String },
+    #[error("{what} = {n} is more rows than construe simulates (at most {max})")]
+    TooManyRows { what: &'static str, n: usize, max: usize },
+    #[error(
+        "{n} rows of {columns} columns need about {needed_mb} MB of memory, but only {available_mb} MB are available"
+    )]
+    NotEnoughMemory { n: usize, columns: usize, needed_mb: u64, available_mb: u64 },
 }
 
 impl SimulateError {
@@ -38,6 +44,45 @@ impl SimulateError {
             SimulateError::Write { .. } => Exit::Failed,
             _ => Exit::Invalid,
         }
+    }
+
+    /// A hint line for the user, where one helps.
+    pub fn hint(&self) -> Option<String> {
+        match self {
+            SimulateError::TooManyRows { .. } | SimulateError::NotEnoughMemory { .. } => Some(
+                "draw fewer rows, or draw several files with different `--seed` values and list them as waves".into(),
+            ),
+            _ => None,
+        }
+    }
+}
+
+/// Most rows one `simulate` call draws.
+pub const MAX_ROWS: usize = 10_000_000;
+
+/// Bytes held per drawn cell at the peak: the value (`Option<f64>`, 16), its text or Parquet
+/// copy, and the latent draws behind it; measured within a factor of two.
+const BYTES_PER_CELL: u64 = 48;
+
+/// Memory the system can still give, from `/proc/meminfo` (`None` where it is not known).
+fn available_memory() -> Option<u64> {
+    let text = std::fs::read_to_string("/proc/meminfo").ok()?;
+    let line = text.lines().find(|l| l.starts_with("MemAvailable:"))?;
+    let kb: u64 = line.split_whitespace().nth(1)?.parse().ok()?;
+    Some(kb * 1024)
+}
+
+/// Refuses a draw above `MAX_ROWS` rows or one that would not fit in memory.
+fn check_size(what: &'static str, n: usize, columns: usize) -> Result<(), SimulateError> {
+    if n > MAX_ROWS {
+        return Err(SimulateError::TooManyRows { what, n, max: MAX_ROWS });
+    }
+    let needed = (n as u64).saturating_mul(columns.max(1) as u64).saturating_mul(BYTES_PER_CELL);
+    match available_memory() {
+        Some(available) if needed > available => {
+            Err(SimulateError::NotEnoughMemory { n, columns, needed_mb: needed >> 20, available_mb: available >> 20 })
+        }
+        _ => Ok(()),
     }
 }
 
@@ -55,6 +100,8 @@ pub struct SimulateRequest<'a> {
 pub fn simulate(req: &SimulateRequest<'_>) -> Result<usize, SimulateError> {
     let source = crate::fsguard::read_regular_text(req.model, crate::fsguard::MAX_TEXT_BYTES)
         .map_err(|source| SimulateError::Read { path: req.model.into(), source: crate::fsguard::hinted(source) })?;
+    let source = source.strip_prefix('\u{feff}').map(str::to_string).unwrap_or(source);
+    duplicate_keys(req.model, &source)?;
     let mut model: SimulationModel = serde_yaml::from_str(&source).map_err(|e| {
         let position = e.location().map(|l| Position { line: l.line(), column: l.column() });
         let message = e.to_string();
@@ -78,7 +125,13 @@ pub fn simulate(req: &SimulateRequest<'_>) -> Result<usize, SimulateError> {
     }
     let invalid = |source| SimulateError::Invalid { path: req.model.into(), source };
     model.validate().map_err(invalid)?;
-    let table = model.draw(req.n.unwrap_or(model.n), req.seed.unwrap_or(model.seed)).map_err(invalid)?;
+    let (what, n) = match req.n {
+        Some(n) => ("`--n`", n),
+        None => ("the model's `n`", model.n),
+    };
+    let columns = usize::from(model.id.is_some()) + model.constants.len() + model.items.len() + model.observed.len();
+    check_size(what, n, columns)?;
+    let table = model.draw(n, req.seed.unwrap_or(model.seed)).map_err(invalid)?;
     let bytes = match FileKind::of(req.out) {
         Some(FileKind::Csv) => table.csv_string().into_bytes(),
         Some(FileKind::Parquet) => {
@@ -89,6 +142,24 @@ pub fn simulate(req: &SimulateRequest<'_>) -> Result<usize, SimulateError> {
     write_atomically(req.out, &bytes)
         .map_err(|e| SimulateError::Write { path: req.out.into(), reason: e.to_string() })?;
     Ok(table.rows())
+}
+
+/// A key written twice in one mapping of the model file is an error at its second copy (serde
+/// would silently keep one of them).
+fn duplicate_keys(path: &Path, source: &str) -> Result<(), SimulateError> {
+    let Ok(positions) = Positions::index(source) else { return Ok(()) }; // serde reports syntax
+    let mut report = Report::default();
+    for d in positions.duplicates() {
+        let problem =
+            SpecProblem::DuplicateKey { parent: d.parent.clone(), key: d.key.clone(), first_line: d.first.line };
+        let help = problem.help();
+        report.push(
+            Diagnostic::error(problem.to_string())
+                .at(path, source, Some(d.second), d.key.chars().count())
+                .with_help_opt(help),
+        );
+    }
+    if report.diagnostics.is_empty() { Ok(()) } else { Err(SimulateError::Model(report)) }
 }
 
 fn parquet_bytes(table: &SimulatedTable) -> PolarsResult<Vec<u8>> {

@@ -1,8 +1,11 @@
 //! Reading survey files (CSV, Parquet) and published summary matrices into plain numbers.
-//! Central types: `RawSource` (one file's named columns as text or numbers) and `DataError`.
-//! Only this module talks to polars; everything downstream sees `Vec<f64>` columns with NaN
-//! for missing values. Errors name the file, the data row (and CSV line) and the column.
+//! Central type: `DataError`. CSV is streamed by `csv_file` (only the wanted columns are kept);
+//! Parquet goes through polars, and only this module talks to polars. Everything downstream
+//! sees `Vec<f64>` columns with NaN for missing values. Errors name the file, the 1-based data
+//! row (and CSV line) and the column; data text they echo is cut to `ECHO_CHARS` characters.
+//! Every file is opened through `fsguard` first, so a FIFO or device is refused, never read.
 
+pub mod csv_file;
 pub mod matrix;
 pub mod parquet_footer;
 pub mod table;
@@ -10,30 +13,64 @@ pub mod table;
 use std::path::{Path, PathBuf};
 
 use polars::prelude::*;
+
+use crate::spec::diagnostic::plural;
 use thiserror::Error;
 
+pub use matrix::MatrixProblem;
 pub use table::Table;
+
+/// Most characters of a data value echoed in a message.
+pub const ECHO_CHARS: usize = 40;
+
+/// `text` as shown in a message: at most `ECHO_CHARS` characters, an ellipsis marking a cut.
+pub fn echo(text: &str) -> String {
+    match text.char_indices().nth(ECHO_CHARS) {
+        Some((at, _)) => format!("{}…", &text[..at]),
+        None => text.to_string(),
+    }
+}
 
 #[derive(Debug, Error)]
 pub enum DataError {
     #[error("cannot read `{}`\n  caused by: {reason}", path.display())]
     Read { path: PathBuf, reason: String },
+    #[error("`{}`{}: {reason}", path.display(), line.map(|l| format!(" line {l}")).unwrap_or_default())]
+    Csv { path: PathBuf, line: Option<usize>, reason: String },
     #[error("data file `{}` has unsupported extension; use .csv or .parquet", path.display())]
     Unsupported { path: PathBuf },
+    #[error("`{}` is empty; it needs a header line naming the columns", path.display())]
+    EmptyFile { path: PathBuf },
+    #[error("`{}` has a header line but no data rows", path.display())]
+    NoDataRows { path: PathBuf },
+    #[error("`{}` line 1, column {column}: the column name is not UTF-8 text", path.display())]
+    HeaderNotUtf8 { path: PathBuf, column: usize },
+    #[error("`{}` names column `{column}` twice (columns {first} and {second})", path.display())]
+    DuplicateColumn { path: PathBuf, column: String, first: usize, second: usize },
+    #[error("`{}` row {row} (line {line}) has {}, but the header names {}", path.display(), plural(*found, "field"), plural(*expected, "column"))]
+    FieldCount { path: PathBuf, row: usize, line: usize, found: usize, expected: usize },
+    #[error("`{}` row {row} (line {line}), column `{column}`: the value is not UTF-8 text", path.display())]
+    NotUtf8 { path: PathBuf, row: usize, line: usize, column: String },
     #[error("`{}` row {row}{}, column `{column}`: `{value}` is not a number", path.display(), line_note(*line))]
     NonNumeric { path: PathBuf, row: usize, line: Option<usize>, column: String, value: String },
+    #[error("`{}` row {row}, column `{column}`: {value} is not a finite number", path.display())]
+    NonFinite { path: PathBuf, row: usize, column: String, value: f64 },
     #[error("`{}` has no column `{column}`", path.display())]
     MissingColumn { path: PathBuf, column: String },
     #[error("item `{item}` is constant ({value} in every row with a value), so it carries no information")]
     ConstantItem { item: String, value: f64 },
+    #[error(
+        "item `{item}` has values so large in magnitude that its variance overflows (the square of a value beyond about 1.3e154 exceeds the largest floating-point number)"
+    )]
+    Overflow { item: String },
     #[error("item `{item}` has no values at all")]
     EmptyItem { item: String },
     #[error("item `{item}` has value {value} outside its reverse range [{lo}, {hi}] (`{}` row {row})", path.display())]
     OutsideReverseRange { item: String, value: f64, lo: f64, hi: f64, path: PathBuf, row: usize },
     #[error("item `{item}` is listed as ordinal but has non-integer value {value}")]
     NonIntegerOrdinal { item: String, value: f64 },
-    #[error("matrix file `{}`: {reason}", path.display())]
-    BadMatrix { path: PathBuf, reason: String },
+    #[error("matrix file `{}` {problem}", path.display())]
+    Matrix { path: PathBuf, problem: MatrixProblem },
 }
 
 fn line_note(line: Option<usize>) -> String {
@@ -61,6 +98,12 @@ fn read_error(path: &Path, e: impl std::fmt::Display) -> DataError {
     DataError::Read { path: path.to_path_buf(), reason: e.to_string() }
 }
 
+/// Opens a data file only if it is a regular file, so a FIFO or device is refused before
+/// polars (which would block on a FIFO, or read /dev/zero without end) touches the path.
+fn open_data(path: &Path) -> Result<std::fs::File, DataError> {
+    crate::fsguard::open_regular(path).map_err(|e| read_error(path, e))
+}
+
 /// Runs a polars read, turning a panic inside polars (seen on damaged Parquet files) into a
 /// `DataError`, so no input file can crash construe.
 fn guarded<T>(path: &Path, read: impl FnOnce() -> Result<T, DataError>) -> Result<T, DataError> {
@@ -69,85 +112,61 @@ fn guarded<T>(path: &Path, read: impl FnOnce() -> Result<T, DataError>) -> Resul
     })
 }
 
-/// The column names of a data file, reading as little as possible.
+/// The column names of a data file, reading as little as possible (a CSV's header line, a
+/// Parquet file's footer).
 pub fn column_names(path: &Path) -> Result<Vec<String>, DataError> {
-    guarded(path, || column_names_unguarded(path))
-}
-
-fn column_names_unguarded(path: &Path) -> Result<Vec<String>, DataError> {
-    let df = match FileKind::of(path) {
-        Some(FileKind::Csv) => csv_frame(path, Some(0))?,
+    guarded(path, || match FileKind::of(path) {
+        Some(FileKind::Csv) => csv_file::header(path),
         Some(FileKind::Parquet) => {
+            let file = open_data(path)?;
             parquet_footer::check_footer(path).map_err(|e| read_error(path, e))?;
-            let file = std::fs::File::open(path).map_err(|e| read_error(path, e))?;
             let schema = ParquetReader::new(file).schema().map_err(|e| read_error(path, e))?;
-            return Ok(schema.iter_names().map(|n| n.to_string()).collect());
+            Ok(schema.iter_names().map(|n| n.to_string()).collect())
         }
-        None => return Err(DataError::Unsupported { path: path.to_path_buf() }),
-    };
-    Ok(df.get_column_names().iter().map(|n| n.to_string()).collect())
-}
-
-/// CSV read with every column as text, so that this module, not schema inference, decides
-/// what is a number and can name the exact cell that is not.
-fn csv_frame(path: &Path, n_rows: Option<usize>) -> Result<DataFrame, DataError> {
-    CsvReadOptions::default()
-        .with_has_header(true)
-        .with_infer_schema_length(Some(0))
-        .with_n_rows(n_rows)
-        .map_parse_options(|o| o.with_null_values(Some(NullValues::AllColumns(vec!["".into(), "NA".into()]))))
-        .try_into_reader_with_file_path(Some(path.to_path_buf()))
-        .and_then(|r| r.finish())
-        .map_err(|e| read_error(path, e))
+        None => Err(DataError::Unsupported { path: path.to_path_buf() }),
+    })
 }
 
 /// One file's requested columns as numbers (NaN = missing), in the order asked.
 pub fn read_numeric_columns(path: &Path, wanted: &[String]) -> Result<Vec<Vec<f64>>, DataError> {
-    guarded(path, || read_numeric_columns_unguarded(path, wanted))
-}
-
-fn read_numeric_columns_unguarded(path: &Path, wanted: &[String]) -> Result<Vec<Vec<f64>>, DataError> {
-    let kind = FileKind::of(path).ok_or_else(|| DataError::Unsupported { path: path.to_path_buf() })?;
-    if kind == FileKind::Parquet {
-        return read_parquet_columns(path, wanted);
-    }
-    let df = csv_frame(path, None)?;
-    wanted
-        .iter()
-        .map(|name| {
-            let column = df
-                .column(name)
-                .map_err(|_| DataError::MissingColumn { path: path.to_path_buf(), column: name.clone() })?;
-            numeric_values(path, kind, name, column.as_materialized_series())
-        })
-        .collect()
+    guarded(path, || match FileKind::of(path) {
+        Some(FileKind::Csv) => csv_file::numeric_columns(path, wanted),
+        Some(FileKind::Parquet) => read_parquet_columns(path, wanted),
+        None => Err(DataError::Unsupported { path: path.to_path_buf() }),
+    })
 }
 
 /// Parquet is columnar: reading one column at a time keeps at most one column in polars' form
 /// beside the numbers already converted, so peak memory stays near the size of the items read.
 fn read_parquet_columns(path: &Path, wanted: &[String]) -> Result<Vec<Vec<f64>>, DataError> {
+    let file = open_data(path)?;
     parquet_footer::check_footer(path).map_err(|e| read_error(path, e))?;
-    let open = || std::fs::File::open(path).map_err(|e| read_error(path, e));
-    let schema = ParquetReader::new(open()?).schema().map_err(|e| read_error(path, e))?;
-    wanted
+    let schema = ParquetReader::new(file).schema().map_err(|e| read_error(path, e))?;
+    let columns = wanted
         .iter()
         .map(|name| {
             if !schema.iter_names().any(|n| n.as_str() == name.as_str()) {
                 return Err(DataError::MissingColumn { path: path.to_path_buf(), column: name.clone() });
             }
-            let df = ParquetReader::new(open()?)
+            let df = ParquetReader::new(open_data(path)?)
                 .with_columns(Some(vec![name.clone()]))
                 .finish()
                 .map_err(|e| read_error(path, e))?;
             let column = df
                 .column(name)
                 .map_err(|_| DataError::MissingColumn { path: path.to_path_buf(), column: name.clone() })?;
-            numeric_values(path, FileKind::Parquet, name, column.as_materialized_series())
+            numeric_values(path, name, column.as_materialized_series())
         })
-        .collect()
+        .collect::<Result<Vec<_>, _>>()?;
+    if columns.first().is_some_and(Vec::is_empty) {
+        return Err(DataError::NoDataRows { path: path.to_path_buf() });
+    }
+    Ok(columns)
 }
 
-fn numeric_values(path: &Path, kind: FileKind, name: &str, series: &Series) -> Result<Vec<f64>, DataError> {
+/// A Parquet column as numbers: text is parsed (empty and `NA` are missing), numbers are cast;
+/// nulls and NaN are missing, infinities are refused with their 1-based row.
+fn numeric_values(path: &Path, name: &str, series: &Series) -> Result<Vec<f64>, DataError> {
     if let Ok(text) = series.str() {
         return text
             .iter()
@@ -158,9 +177,9 @@ fn numeric_values(path: &Path, kind: FileKind, name: &str, series: &Series) -> R
                     s.trim().parse::<f64>().ok().filter(|x| x.is_finite()).ok_or_else(|| DataError::NonNumeric {
                         path: path.to_path_buf(),
                         row: i + 1,
-                        line: (kind == FileKind::Csv).then_some(i + 2),
+                        line: None,
                         column: name.to_string(),
-                        value: s.to_string(),
+                        value: echo(s),
                     })
                 }
             })
@@ -177,8 +196,44 @@ fn numeric_values(path: &Path, kind: FileKind, name: &str, series: &Series) -> R
     }
     let floats = series.cast(&DataType::Float64).map_err(|e| read_error(path, e))?;
     let ca = floats.f64().map_err(|e| read_error(path, e))?;
-    if let Ok(values) = ca.cont_slice() {
-        return Ok(values.to_vec());
+    let values: Vec<f64> = match ca.cont_slice() {
+        Ok(values) => values.to_vec(),
+        Err(_) => ca.iter().map(|v| v.unwrap_or(f64::NAN)).collect(),
+    };
+    if let Some(i) = values.iter().position(|v| v.is_infinite()) {
+        return Err(DataError::NonFinite {
+            path: path.to_path_buf(),
+            row: i + 1,
+            column: name.to_string(),
+            value: values[i],
+        });
     }
-    Ok(ca.iter().map(|v| v.unwrap_or(f64::NAN)).collect())
+    Ok(values)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn echo_cuts_long_values() {
+        assert_eq!(echo("12"), "12");
+        let long = "9".repeat(1_000_000);
+        assert_eq!(echo(&long), format!("{}…", "9".repeat(ECHO_CHARS)));
+        assert_eq!(echo(&"é".repeat(50)).chars().count(), ECHO_CHARS + 1);
+    }
+
+    #[cfg(unix)]
+    #[test]
+    fn special_files_are_refused_by_every_reader() {
+        let dir = tempfile::tempdir().unwrap();
+        for name in ["pipe.csv", "pipe.parquet"] {
+            let fifo = dir.path().join(name);
+            assert!(std::process::Command::new("mkfifo").arg(&fifo).status().unwrap().success());
+            let e = column_names(&fifo).unwrap_err().to_string();
+            assert!(e.contains("named pipe"), "{e}");
+            let e = read_numeric_columns(&fifo, &["a".to_string()]).unwrap_err().to_string();
+            assert!(e.contains("named pipe"), "{e}");
+        }
+    }
 }

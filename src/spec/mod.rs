@@ -47,6 +47,11 @@ impl SpecFile {
 
     /// Parses spec text as if read from `path` (tests use this).
     pub fn parse(path: &Path, source: String) -> Result<SpecFile, Report> {
+        // A leading byte-order mark (some editors write one) is not part of the first key.
+        let source = match source.strip_prefix('\u{feff}') {
+            Some(rest) => rest.to_string(),
+            None => source,
+        };
         let positions = match Positions::index(&source) {
             Ok(p) => p,
             Err(e) => {

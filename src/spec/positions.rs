@@ -39,6 +39,19 @@ pub struct Positions {
     mappings: HashMap<String, Vec<KeyEntry>>,
     /// The length in characters of each scalar value, for carets.
     widths: HashMap<String, usize>,
+    /// Keys written twice in one mapping, in file order.
+    duplicates: Vec<DuplicateKey>,
+}
+
+/// A key that a mapping holds twice: YAML leaves such a file's meaning open (serde keeps the
+/// last copy of a map entry), so it is refused.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct DuplicateKey {
+    /// The mapping's path (`constructs`).
+    pub parent: String,
+    pub key: String,
+    pub first: Position,
+    pub second: Position,
 }
 
 /// A YAML syntax error with its position.
@@ -49,8 +62,10 @@ pub struct SyntaxError {
 }
 
 impl Positions {
-    /// Parses `source` and records the position of every key and value.
+    /// Parses `source` and records the position of every key and value. A leading UTF-8
+    /// byte-order mark is skipped (editors on some systems write one).
     pub fn index(source: &str) -> Result<Positions, SyntaxError> {
+        let source = source.strip_prefix('\u{feff}').unwrap_or(source);
         let mut builder = Builder::default();
         let mut parser = Parser::new_from_str(source);
         parser
@@ -77,6 +92,11 @@ impl Positions {
     /// Every mapping path recorded.
     pub fn mapping_paths(&self) -> impl Iterator<Item = &str> {
         self.mappings.keys().map(String::as_str)
+    }
+
+    /// Keys written twice in one mapping, in file order of their second copy.
+    pub fn duplicates(&self) -> &[DuplicateKey] {
+        &self.duplicates
     }
 
     /// The width in characters of the scalar at `path`, for underlining it.
@@ -136,8 +156,17 @@ impl MarkedEventReceiver for Builder {
             Event::Scalar(text, ..) => match self.next_slot() {
                 Slot::Key(map_path) => {
                     let path = child(&map_path, &text);
+                    let entries = self.positions.mappings.entry(map_path.clone()).or_default();
+                    if let Some(first) = entries.iter().find(|e| e.key == text) {
+                        self.positions.duplicates.push(DuplicateKey {
+                            parent: map_path,
+                            key: text.clone(),
+                            first: first.position,
+                            second: position,
+                        });
+                    }
+                    entries.push(KeyEntry { key: text.clone(), position });
                     self.positions.keys.insert(path, position);
-                    self.positions.mappings.entry(map_path).or_default().push(KeyEntry { key: text.clone(), position });
                     if let Some(Frame::Mapping { pending_key, .. }) = self.stack.last_mut() {
                         *pending_key = Some(text);
                     }
@@ -152,7 +181,9 @@ impl MarkedEventReceiver for Builder {
                     Slot::Value(p) | Slot::Key(p) => p,
                 };
                 self.positions.values.insert(path.clone(), position);
-                self.positions.mappings.entry(path.clone()).or_default();
+                // A mapping seen before at this path sits under a repeated key (reported as
+                // such); its keys start afresh so the two copies are not mixed up.
+                self.positions.mappings.insert(path.clone(), Vec::new());
                 self.stack.push(Frame::Mapping { path, pending_key: None });
             }
             Event::SequenceStart(..) => {
@@ -187,6 +218,28 @@ mod tests {
         assert_eq!(p.value("constructs.crowding.items[1]"), Some(Position { line: 8, column: 9 }));
         let keys: Vec<&str> = p.keys_of("constructs").iter().map(|k| k.key.as_str()).collect();
         assert_eq!(keys, ["trust", "crowding"]);
+    }
+
+    #[test]
+    fn repeated_keys_are_found_at_every_level() {
+        let src = "title: a\nconstructs:\n  t: {items: [a]}\n  t:\n    items: [b]\n    items: [c]\ntitle: b\n";
+        let p = Positions::index(src).unwrap();
+        let found: Vec<(String, String, usize, usize)> =
+            p.duplicates().iter().map(|d| (d.parent.clone(), d.key.clone(), d.first.line, d.second.line)).collect();
+        assert_eq!(
+            found,
+            [
+                ("constructs".to_string(), "t".to_string(), 3, 4),
+                ("constructs.t".to_string(), "items".to_string(), 5, 6),
+                (String::new(), "title".to_string(), 1, 7),
+            ]
+        );
+    }
+
+    #[test]
+    fn a_byte_order_mark_is_skipped() {
+        let p = Positions::index("\u{feff}construe: 1\ntitle: T\n").unwrap();
+        assert_eq!(p.key("construe"), Some(Position { line: 1, column: 1 }));
     }
 
     #[test]

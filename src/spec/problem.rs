@@ -6,6 +6,8 @@ use std::path::PathBuf;
 
 use thiserror::Error;
 
+use crate::data::MatrixProblem;
+
 #[derive(Debug, Clone, PartialEq, Error)]
 pub enum SpecProblem {
     #[error("the spec is not valid YAML: {message}")]
@@ -14,6 +16,30 @@ pub enum SpecProblem {
     UnknownKey { parent: String, key: String, suggestion: Option<String> },
     #[error("{message}")]
     Type { message: String },
+    #[error("key `{key}` appears twice in {} (first on line {first_line})", place(parent))]
+    DuplicateKey { parent: String, key: String, first_line: usize },
+    #[error("the title is {length} characters long; at most {max} are allowed")]
+    TitleTooLong { length: usize, max: usize },
+    #[error("summary matrix `{}` {problem}", path.display())]
+    BadMatrix { path: PathBuf, problem: MatrixProblem },
+    #[error(
+        "`n` = {n} is too small for a matrix of {}: the sample must be larger than the number of items (at least {})",
+        crate::spec::diagnostic::plural(*items, "item"), items + 1
+    )]
+    MatrixTooFewCases { n: usize, items: usize },
+    #[error("`n` = {n} is more respondents than construe accepts for a summary matrix (at most {max})")]
+    MatrixTooManyCases { n: usize, max: usize },
+    #[error(
+        "construct `{construct}` has {} but `purify.min_items` is {min_items}, so purification cannot test it",
+        crate::spec::diagnostic::plural(*count, "item")
+    )]
+    BelowMinItems { construct: String, count: usize, min_items: usize },
+    #[error("construct `{construct}` has 1 item and no `reliability`, so the measurement model cannot identify it")]
+    Unidentified { construct: String },
+    #[error("{what} is {value}; at most {max} are allowed")]
+    TooMany { what: String, value: u64, max: u64 },
+    #[error("{what} must be a finite number, found {value}")]
+    NotFinite { what: String, value: f64 },
     #[error("spec format version {found} is not supported; this build reads version {supported}")]
     WrongVersion { found: u32, supported: u32 },
     #[error("`data` needs either `waves` or `matrix`")]
@@ -101,7 +127,13 @@ impl SpecProblem {
             ScaleScore { .. } => Some("conditioning on a sum or mean of noisy items does not screen off what they measure; model the construct from its items instead, and drop the score".into()),
             CoarsenedSingleIndicator { .. } => Some("a coarse measure of a construct in the middle of a causal chain cannot screen off what it transmits; add indicators or state a reliability with care".into()),
             UnusualAlpha { .. } => Some("levels between 0.001 and 0.2 are usual; a very small one hides real dependence, a large one admits chance findings".into()),
-            TooFewItems { .. } => Some("add items (at least 3), or give the single indicator a `reliability`".into()),
+            TooFewItems { .. } | Unidentified { .. } => Some("add items (at least 3), or give the single indicator a `reliability`".into()),
+            DuplicateKey { .. } => Some("keep one copy; YAML does not say which of two copies counts".into()),
+            TitleTooLong { .. } => Some("the title names the report folder; put longer text elsewhere".into()),
+            BadMatrix { problem, .. } => problem.help(),
+            MatrixTooFewCases { .. } | MatrixTooManyCases { .. } => Some("check `n` against the publication: it is the number of respondents".into()),
+            BelowMinItems { .. } => Some("add items to the construct, or lower `purify.min_items` (at least 3)".into()),
+            TooMany { .. } => Some("the bound keeps a run within memory and a working day; split the work or lower the count".into()),
             ItemInTwoConstructs { .. } => {
                 Some("an item can indicate only one declared construct; purification looks for cross-loadings".into())
             }

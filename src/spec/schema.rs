@@ -66,9 +66,19 @@ fn allowed(path: &str) -> Allowed {
     }
 }
 
-/// Every key of every mapping that the format does not define.
+/// Every key of every mapping that the format does not define, and every key a mapping holds
+/// twice (at any level, user-named ones such as constructs included).
 pub fn unknown_keys(positions: &Positions) -> Vec<Finding> {
-    let mut findings = Vec::new();
+    let mut findings: Vec<Finding> = positions
+        .duplicates()
+        .iter()
+        .map(|d| {
+            // The key's path points at its last copy, which is where the diagnostic goes.
+            let problem =
+                SpecProblem::DuplicateKey { parent: d.parent.clone(), key: d.key.clone(), first_line: d.first.line };
+            Finding::key(problem, child(&d.parent, &d.key))
+        })
+        .collect();
     for map_path in positions.mapping_paths() {
         let Allowed::Only(keys) = allowed(map_path) else { continue };
         for entry in positions.keys_of(map_path) {

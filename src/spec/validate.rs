@@ -10,6 +10,7 @@ use super::diagnostic::suggest;
 use super::positions::{child, element};
 use super::problem::{Finding, SpecProblem};
 use super::types::{ItemPool, OrdinalSpec, Spec, TetradTest};
+use crate::data::MatrixProblem;
 
 /// What the caller found when reading a data source's header.
 #[derive(Debug, Clone, PartialEq)]
@@ -18,7 +19,22 @@ pub enum ColumnsRead {
     Missing,
     Unsupported,
     Unreadable(String),
+    /// A summary matrix whose file reads but is not a valid matrix.
+    BadMatrix(MatrixProblem),
 }
+
+/// Most characters in a title (it names the report folder; file names stop at 255 bytes).
+pub const MAX_TITLE_CHARS: usize = 255;
+/// Largest `n` of a summary matrix: more respondents than any survey has.
+pub const MAX_MATRIX_N: usize = 100_000_000;
+/// Largest `purify.min_items`.
+pub const MAX_MIN_ITEMS: usize = 1_000;
+/// Most bootstrap replicates (each reruns every analysis).
+pub const MAX_REPLICATES: usize = 100_000;
+/// Most Monte Carlo draws of the sensitivity prior (each refits the models).
+pub const MAX_DRAWS: usize = 100_000;
+/// Most reliability values in one construct's sensitivity grid (each refits the models).
+pub const MAX_GRID_POINTS: usize = 1_000;
 
 /// One data source (a wave, or the summary matrix when `wave` is `None`) and its columns.
 #[derive(Debug, Clone, PartialEq)]
@@ -39,7 +55,12 @@ pub fn validate(spec: &Spec, spec_dir: &std::path::Path, sources: &[SourceColumn
             "construe",
         ));
     }
+    let title_chars = spec.title.chars().count();
+    if title_chars > MAX_TITLE_CHARS {
+        out.push(Finding::value(SpecProblem::TitleTooLong { length: title_chars, max: MAX_TITLE_CHARS }, "title"));
+    }
     check_sources(spec, sources, &mut out);
+    check_matrix_n(spec, &mut out);
     let available = available_items(spec, sources);
     check_constructs(spec, sources, available.as_ref(), &mut out);
     check_data_options(spec, available.as_ref(), &mut out);
@@ -82,6 +103,9 @@ fn check_sources(spec: &Spec, sources: &[SourceColumns], out: &mut Vec<Finding>)
             ColumnsRead::Unreadable(reason) => {
                 SpecProblem::UnreadableFile { path: s.path.clone(), reason: reason.clone() }
             }
+            ColumnsRead::BadMatrix(problem) => {
+                SpecProblem::BadMatrix { path: s.path.clone(), problem: problem.clone() }
+            }
         };
         out.push(Finding::value(problem, path));
     }
@@ -96,6 +120,20 @@ fn check_sources(spec: &Spec, sources: &[SourceColumns], out: &mut Vec<Finding>)
                 ));
             }
         }
+    }
+}
+
+/// A summary matrix's `n`: more than the number of items the spec uses (fewer respondents
+/// than items cannot give a positive definite matrix) and at most `MAX_MATRIX_N`.
+fn check_matrix_n(spec: &Spec, out: &mut Vec<Finding>) {
+    let Some(m) = &spec.data.matrix else { return };
+    let mut items: Vec<&str> = spec.constructs.values().flat_map(|c| c.items.iter().map(String::as_str)).collect();
+    items.sort_unstable();
+    items.dedup();
+    if m.n > MAX_MATRIX_N {
+        out.push(Finding::value(SpecProblem::MatrixTooManyCases { n: m.n, max: MAX_MATRIX_N }, "data.matrix.n"));
+    } else if m.n <= items.len() {
+        out.push(Finding::value(SpecProblem::MatrixTooFewCases { n: m.n, items: items.len() }, "data.matrix.n"));
     }
 }
 
@@ -135,6 +173,16 @@ fn check_constructs(spec: &Spec, sources: &[SourceColumns], available: Option<&V
                     child(&base, "reliability"),
                 ));
             }
+        } else if let Some(p) =
+            spec.analyses.purify.as_ref().filter(|p| c.items.len() < p.min_items && !c.items.is_empty())
+        {
+            out.push(Finding::key(
+                SpecProblem::BelowMinItems { construct: name.clone(), count: c.items.len(), min_items: p.min_items },
+                base.clone(),
+            ));
+        } else if c.items.len() == 1 && (spec.analyses.measure.is_some() || spec.analyses.structure.is_some()) {
+            // One item and no reliability: the model fit would fail after computing the rest.
+            out.push(Finding::key(SpecProblem::Unidentified { construct: name.clone() }, base.clone()));
         } else if !c.items.is_empty() && c.items.len() < 3 {
             out.push(Finding::key(
                 SpecProblem::TooFewItems { construct: name.clone(), count: c.items.len() },
@@ -195,6 +243,24 @@ fn check_constructs(spec: &Spec, sources: &[SourceColumns], available: Option<&V
 }
 
 fn check_data_options(spec: &Spec, available: Option<&Vec<String>>, out: &mut Vec<Finding>) {
+    for (i, &code) in spec.data.missing_codes.iter().enumerate() {
+        if !code.is_finite() {
+            out.push(Finding::value(
+                SpecProblem::NotFinite { what: "a missing code".into(), value: code },
+                element("data.missing_codes", i),
+            ));
+        }
+    }
+    for (item, bounds) in &spec.data.reverse {
+        for (k, &v) in bounds.iter().enumerate() {
+            if !v.is_finite() {
+                out.push(Finding::value(
+                    SpecProblem::NotFinite { what: format!("the reverse range of `{item}`"), value: v },
+                    element(&child("data.reverse", item), k),
+                ));
+            }
+        }
+    }
     let Some(all) = available else { return };
     let unknown = |place: &str, item: &str| SpecProblem::UnknownDataItem {
         place: place.to_string(),
@@ -205,7 +271,7 @@ fn check_data_options(spec: &Spec, available: Option<&Vec<String>>, out: &mut Ve
         let path = child("data.reverse", item);
         if !all.contains(item) {
             out.push(Finding::key(unknown("`data.reverse`", item), path));
-        } else if lo >= hi {
+        } else if lo.is_finite() && hi.is_finite() && lo >= hi {
             out.push(Finding::value(SpecProblem::BadReverseRange { item: item.clone() }, path));
         }
     }
@@ -310,6 +376,16 @@ fn check_analyses(spec: &Spec, available: Option<&Vec<String>>, out: &mut Vec<Fi
                 "analyses.purify.test",
             ));
         }
+        if p.min_items > MAX_MIN_ITEMS {
+            out.push(Finding::value(
+                SpecProblem::TooMany {
+                    what: "`purify.min_items`".into(),
+                    value: p.min_items as u64,
+                    max: MAX_MIN_ITEMS as u64,
+                },
+                "analyses.purify.min_items",
+            ));
+        }
         if p.min_items < 3 {
             out.push(Finding::value(
                 SpecProblem::OutOfRange {
@@ -376,6 +452,16 @@ fn check_analyses(spec: &Spec, available: Option<&Vec<String>>, out: &mut Vec<Fi
                 ));
                 continue;
             }
+            if grid.len() > MAX_GRID_POINTS {
+                out.push(Finding::value(
+                    SpecProblem::TooMany {
+                        what: format!("the number of reliability values for `{name}`"),
+                        value: grid.len() as u64,
+                        max: MAX_GRID_POINTS as u64,
+                    },
+                    path.clone(),
+                ));
+            }
             for (i, &r) in grid.iter().enumerate() {
                 if !(r > 0.0 && r <= 1.0) {
                     out.push(Finding::value(
@@ -400,16 +486,38 @@ fn check_analyses(spec: &Spec, available: Option<&Vec<String>>, out: &mut Vec<Fi
                     },
                     path,
                 ));
-            } else if prior.beta.iter().any(|&v| v <= 0.0) {
-                out.push(Finding::value(
-                    SpecProblem::OutOfRange {
-                        what: format!("beta prior parameters for `{name}`"),
-                        range: "(0, inf)".into(),
-                        value: prior.beta[0].min(prior.beta[1]),
-                    },
-                    child(&path, "beta"),
-                ));
+            } else {
+                for (k, &v) in prior.beta.iter().enumerate() {
+                    let what = format!("beta prior parameter {} for `{name}`", k + 1);
+                    let problem = if !v.is_finite() {
+                        SpecProblem::NotFinite { what, value: v }
+                    } else if v <= 0.0 {
+                        SpecProblem::OutOfRange { what, range: "(0, inf)".into(), value: v }
+                    } else {
+                        continue;
+                    };
+                    out.push(Finding::value(problem, element(&child(&path, "beta"), k)));
+                }
             }
+        }
+        if s.draws > MAX_DRAWS {
+            out.push(Finding::value(
+                SpecProblem::TooMany {
+                    what: "`sensitivity.draws`".into(),
+                    value: s.draws as u64,
+                    max: MAX_DRAWS as u64,
+                },
+                "analyses.sensitivity.draws",
+            ));
+        } else if s.draws == 0 && !s.prior.is_empty() {
+            out.push(Finding::value(
+                SpecProblem::OutOfRange {
+                    what: "`sensitivity.draws`".into(),
+                    range: "1 or more with a prior".into(),
+                    value: 0.0,
+                },
+                "analyses.sensitivity.draws",
+            ));
         }
         for (i, &v) in s.alpha.iter().enumerate() {
             alpha("a `sensitivity.alpha` value", v, &element("analyses.sensitivity.alpha", i), out);
@@ -417,5 +525,22 @@ fn check_analyses(spec: &Spec, available: Option<&Vec<String>>, out: &mut Vec<Fi
     }
     if a.resample.is_some() && !rows {
         out.push(Finding::key(SpecProblem::NeedsRows { analysis: "resample".into() }, "analyses.resample"));
+    }
+    if let Some(r) = &a.resample {
+        if r.replicates > MAX_REPLICATES {
+            out.push(Finding::value(
+                SpecProblem::TooMany {
+                    what: "`resample.replicates`".into(),
+                    value: r.replicates as u64,
+                    max: MAX_REPLICATES as u64,
+                },
+                "analyses.resample.replicates",
+            ));
+        } else if r.replicates == 0 {
+            out.push(Finding::value(
+                SpecProblem::OutOfRange { what: "`resample.replicates`".into(), range: "1 or more".into(), value: 0.0 },
+                "analyses.resample.replicates",
+            ));
+        }
     }
 }

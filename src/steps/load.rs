@@ -13,7 +13,7 @@ use serde::{Deserialize, Serialize};
 use serde_json::{Value, json};
 
 use super::{Artifact, Inputs, Step, StepError, StepKind};
-use crate::data::matrix::read_matrix;
+use crate::data::matrix::{check_positive_definite, read_matrix};
 use crate::data::{DataError, Table, read_numeric_columns};
 use crate::spec::SpecFile;
 use crate::spec::types::{AUTO_MAX_LEVELS, MatrixKind, OrdinalSpec};
@@ -309,6 +309,9 @@ impl LoadStep {
         };
         let mean = present.iter().sum::<f64>() / n as f64;
         let var = present.iter().map(|v| (v - mean).powi(2)).sum::<f64>() / (n as f64 - 1.0).max(1.0);
+        if !var.is_finite() {
+            return Err(DataError::Overflow { item: name.into() });
+        }
         let (p5, p95, responses) = match kind {
             ItemKind::Continuous => (
                 safe_percentile(&mut present, 0.05).map(|v| round_significant(v, PERCENTILE_DIGITS)),
@@ -335,7 +338,7 @@ impl LoadStep {
     }
 
     fn load_matrix(&self, path: &std::path::Path, kind: MatrixKind, n: usize) -> Result<LoadOutput, StepError> {
-        let m = read_matrix(path)?;
+        let m = read_matrix(path, kind)?;
         let names = self.item_names();
         let index: Vec<usize> = names
             .iter()
@@ -346,6 +349,7 @@ impl LoadStep {
                     .ok_or_else(|| DataError::MissingColumn { path: path.into(), column: i.clone() })
             })
             .collect::<Result<_, _>>()?;
+        check_positive_definite(&m, &index).map_err(|problem| DataError::Matrix { path: path.into(), problem })?;
         let values: Vec<Vec<f64>> = index.iter().map(|&r| index.iter().map(|&c| m.values[r][c]).collect()).collect();
         let items = self
             .items
