@@ -217,20 +217,24 @@ fn unusual_alpha_is_a_warning() {
 
 #[test]
 fn a_scale_score_entered_as_an_item_is_flagged() {
-    // Column `x` replaced by the sum of a1..a3 (a score someone computed beforehand).
+    // Column `x` replaced by the sum of a1..a3 (a score someone computed beforehand), with its
+    // missing-value code -9 in every seventh row: the lint reads the table `load` made (codes
+    // applied), so it sees the score; `check` reads only headers and says nothing.
     let csv = synthetic_csv(60, 3, SMALL_COLUMNS);
     let mut lines = csv.lines();
     let mut out = format!("{}\n", lines.next().unwrap());
-    for l in lines {
+    for (r, l) in lines.enumerate() {
         let f: Vec<f64> = l.split(',').map(|v| v.parse().unwrap()).collect();
-        let score = f[1] + f[2] + f[3];
+        let score = if r % 7 == 0 { -9.0 } else { f[1] + f[2] + f[3] };
         out.push_str(&format!("{},{},{},{},{},{},{},{score}\n", f[0], f[1], f[2], f[3], f[4], f[5], f[6]));
     }
-    let case = Case::new().spec(SMALL_SPEC).file("w1.csv", out);
-    case.run(["check", "spec.yaml"])
+    let spec = SMALL_SPEC.replace("  id_column: rid\n", "  id_column: rid\n  missing_codes: [-9]\n");
+    let case = Case::new().spec(&spec).file("w1.csv", out);
+    case.run(["check", "spec.yaml"]).success().stderr_lacks("scale score");
+    case.run(["run", "spec.yaml"])
         .success()
         .stderr_contains("warning: item `x` equals the sum of the items of `alpha` in every row: it is a scale score, not an indicator")
-        .stderr_contains("at spec.yaml:9:30")
+        .stderr_contains("at spec.yaml:10:30")
         .stderr_contains("does not screen off");
 }
 
@@ -250,7 +254,7 @@ fn a_coarse_single_indicator_between_constructs_is_flagged() {
     Case::new()
         .spec(&spec)
         .file("w1.csv", out)
-        .run(["check", "spec.yaml"])
+        .run(["run", "spec.yaml"])
         .success()
         .stderr_contains(
             "warning: construct `mid` sits between other constructs but its single indicator `m` has only 2 categories",

@@ -9,6 +9,7 @@ use serde_json::{Map, Value};
 
 use super::check::check;
 use super::context::report_context;
+use super::lints::data_lints;
 use super::{AppError, Log};
 use crate::pipeline::cache::Cache;
 use crate::pipeline::executor::{Event, Execution, execute};
@@ -18,6 +19,7 @@ use crate::pipeline::manifest::{Manifest, SpecInfo};
 use crate::pipeline::plan::Plan;
 use crate::report::{WriteOutcome, slug, write_version};
 use crate::spec::SpecFile;
+use crate::steps::{Artifact, StepKind};
 
 pub struct RunSummary {
     pub outcome: WriteOutcome,
@@ -48,6 +50,14 @@ pub fn run(path: &Path, cache: &Cache, log: &mut dyn Log) -> Result<RunSummary, 
             o.description
         )),
     })?;
+    if let Some(Artifact::Load(load)) = execution.artifacts.get(&StepKind::Load)
+        && let Some(table) = &load.table
+    {
+        let findings = data_lints(&spec, &table.items, table.rows(), &|k, r| table.columns[k][r]);
+        for d in spec.diagnose(findings).diagnostics {
+            log.warn(d.to_string().trim_end().trim_start_matches("warning: "));
+        }
+    }
     let results = results_json(&execution);
     let mut manifest =
         Manifest::new(spec_info(&spec), &plan, &execution.outcomes, seeds(&spec), report_settings(&spec));
