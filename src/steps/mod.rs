@@ -3,6 +3,7 @@
 //! numerics of their own, no cache or report logic. Adding a kind = one file here, one variant
 //! in `StepKind` and `Artifact`, one line in `build_steps`.
 
+pub mod constructs;
 pub mod covariance;
 pub mod discover;
 pub mod load;
