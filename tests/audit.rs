@@ -2,7 +2,7 @@
 //! edit. A version made from cached inputs verifies; any edited, deleted or added published
 //! file, and any edited manifest field, fails `verify`; damaged report folders never block a run.
 
-use crate::harness::{Case, demo_case, small_case};
+use crate::harness::{Case, demo_case, small_case, walk};
 
 const V2: &str = "reports/transit-rider-panel/v2";
 const SPEC: &str = "pipelines/transit/spec.yaml";
@@ -39,7 +39,7 @@ fn verify_passes_after_a_damaged_cache_entry_was_repaired() {
     case.run(["run", SPEC]).success();
     // Damage every cache entry; the second run repairs them, and its version must verify.
     let mut damaged = 0;
-    for entry in files_under(&case.path().join("cache")) {
+    for entry in walk(&case.path().join("cache")) {
         let mut bytes = std::fs::read(&entry).unwrap();
         let last = bytes.len() - 1;
         bytes[last] ^= 0x0f;
@@ -55,17 +55,6 @@ fn verify_passes_after_a_damaged_cache_entry_was_repaired() {
     let case = case.file(SPEC, spec.replacen("alpha: 0.01, min_items", "alpha: 0.03, min_items", 1));
     case.run(["run", SPEC]).success().stderr_contains("wrote report v3");
     case.run(["verify", "reports/transit-rider-panel/v3"]).success();
-}
-
-fn files_under(dir: &std::path::Path) -> Vec<std::path::PathBuf> {
-    let mut out = Vec::new();
-    if let Ok(entries) = std::fs::read_dir(dir) {
-        for e in entries.flatten() {
-            let p = e.path();
-            if p.is_dir() { out.extend(files_under(&p)) } else { out.push(p) }
-        }
-    }
-    out
 }
 
 const SMALL_V1: &str = "reports/small-panel/v1";

@@ -2,7 +2,7 @@
 //! a changed parameter recomputes its step and what follows only; a new wave file recomputes
 //! `load`; a damaged entry is detected, recomputed and gives identical results.
 
-use crate::harness::{SMALL_COLUMNS, SMALL_SPEC, small_case, synthetic_csv};
+use crate::harness::{SMALL_COLUMNS, SMALL_SPEC, small_case, synthetic_csv, walk};
 
 fn statuses(stderr: &str) -> Vec<(String, String)> {
     stderr
@@ -120,19 +120,4 @@ fn concurrent_run_of_the_same_spec_is_refused_cleanly() {
         .stderr_contains("another `construe run` is writing")
         .stderr_contains("wait for it to finish")
         .no_report();
-}
-
-fn walk(dir: &std::path::Path) -> Vec<std::path::PathBuf> {
-    let mut out = Vec::new();
-    if let Ok(entries) = std::fs::read_dir(dir) {
-        for e in entries.flatten() {
-            let p = e.path();
-            if p.is_dir() {
-                out.extend(walk(&p));
-            } else {
-                out.push(p);
-            }
-        }
-    }
-    out
 }

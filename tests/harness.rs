@@ -135,14 +135,18 @@ impl Outcome {
     /// Asserts that no report version folder exists under `reports/`.
     pub fn no_report(&self) -> &Outcome {
         let reports = self.dir.join("reports");
-        let found: Vec<String> =
-            walk(&reports).into_iter().filter(|p| p.ends_with("report.html") || p.ends_with("manifest.json")).collect();
+        let found: Vec<String> = walk(&reports)
+            .into_iter()
+            .map(|p| p.display().to_string())
+            .filter(|p| p.ends_with("report.html") || p.ends_with("manifest.json"))
+            .collect();
         assert!(found.is_empty(), "unexpected report files {found:?}\n{}", self.show());
         self
     }
 }
 
-fn walk(dir: &Path) -> Vec<String> {
+/// Every file under `dir` (recursively; none if it does not exist).
+pub fn walk(dir: &Path) -> Vec<PathBuf> {
     let mut out = Vec::new();
     if let Ok(entries) = std::fs::read_dir(dir) {
         for e in entries.flatten() {
@@ -150,7 +154,7 @@ fn walk(dir: &Path) -> Vec<String> {
             if p.is_dir() {
                 out.extend(walk(&p));
             } else {
-                out.push(p.display().to_string());
+                out.push(p);
             }
         }
     }
