@@ -13,6 +13,13 @@ pub fn seeded(seed: u64) -> ChaCha8Rng {
     ChaCha8Rng::seed_from_u64(seed)
 }
 
+/// A matrix from its rows (as fixtures store them); panics on ragged rows.
+pub fn matrix(rows: &[Vec<f64>]) -> DMatrix<f64> {
+    let cols = rows.first().map_or(0, Vec::len);
+    assert!(rows.iter().all(|r| r.len() == cols), "ragged matrix rows");
+    DMatrix::from_fn(rows.len(), cols, |i, j| rows[i][j])
+}
+
 /// Population covariance Λ Φ Λ' + Θ of a linear factor model (Bollen 1989, ch. 7).
 pub fn factor_cov(lambda: &DMatrix<f64>, phi: &DMatrix<f64>, theta: &DMatrix<f64>) -> DMatrix<f64> {
     lambda * phi * lambda.transpose() + theta

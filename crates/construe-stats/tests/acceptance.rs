@@ -12,16 +12,11 @@ use construe_stats::moments::{Deletion, pearson};
 use construe_stats::purify::{PurifyOptions, purify};
 use construe_stats::sem::{FitOptions, Identification, Matrix, SemModel};
 use construe_stats::simulate::SimulationModel;
+use construe_stats::testkit;
 use construe_stats::tetrad::{TetradTestKind, TetradTester};
 
 fn matrix(v: &Value) -> DMatrix<f64> {
-    let rows: Vec<Vec<f64>> = v
-        .as_array()
-        .unwrap()
-        .iter()
-        .map(|r| r.as_array().unwrap().iter().map(|x| x.as_f64().unwrap()).collect())
-        .collect();
-    DMatrix::from_fn(rows.len(), rows[0].len(), |i, j| rows[i][j])
+    testkit::matrix(&serde_json::from_value::<Vec<Vec<f64>>>(v.clone()).expect("a matrix"))
 }
 
 fn groups(v: &Value) -> Vec<Vec<usize>> {

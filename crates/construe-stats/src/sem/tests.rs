@@ -5,15 +5,10 @@ use serde_json::Value;
 
 use super::*;
 use crate::StatsError;
+use crate::testkit;
 
 fn matrix(v: &Value) -> DMatrix<f64> {
-    let rows: Vec<Vec<f64>> = v
-        .as_array()
-        .unwrap()
-        .iter()
-        .map(|r| r.as_array().unwrap().iter().map(|x| x.as_f64().unwrap()).collect())
-        .collect();
-    DMatrix::from_fn(rows.len(), rows[0].len(), |i, j| rows[i][j])
+    testkit::matrix(&serde_json::from_value::<Vec<Vec<f64>>>(v.clone()).expect("a matrix"))
 }
 
 fn floats(v: &Value) -> Vec<f64> {
