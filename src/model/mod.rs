@@ -162,19 +162,19 @@ correlated_errors: [{items: [x, ghost], covariance: 0.1}]
         let expected = [
             "2:10 model: missing rate 1 is outside [0, 1)",
             "3:34 construct `a`: variance -1 is negative",
-            "3:82 construct `b`: give `variance` or `total_variance`, not both",
-            "4:24 path `a` -> `zz` names unknown construct `zz`",
-            "6:29 item `x` names unknown construct `nope`",
-            "6:63 item `x`: error variance -0.5 is negative",
-            "6:85 item `x`: thresholds must increase strictly, but 0 is followed by 0",
-            "7:73 item `y`: `thresholds` is empty (give at least one cut point)",
-            "7:86 item `y`: missing rate -0.1 is outside [0, 1)",
+            "3:78 construct `b`: give `variance` or `total_variance`, not both",
+            "4:23 path `a` -> `zz` names unknown construct `zz`",
+            "6:26 item `x` names unknown construct `nope`",
+            "6:60 item `x`: error variance -0.5 is negative",
+            "6:82 item `x`: thresholds must increase strictly, but 0 is followed by 0",
+            "7:72 item `y`: `thresholds` is empty (give at least one cut point)",
+            "7:85 item `y`: missing rate -0.1 is outside [0, 1)",
             "8:35 item `y` loads on construct `a` twice",
-            "8:72 item `y` names unknown construct `other`",
-            "9:11 column `x` is declared twice",
-            "9:82 item `x`: thresholds must increase strictly, but 1 is followed by 0.5",
-            "10:50 observed variable `s`: reliability 1.5 is outside (0, 1]",
-            "11:32 a correlated error names unknown item `ghost`",
+            "8:65 item `y` names unknown construct `other`",
+            "9:12 column `x` is declared twice",
+            "9:76 item `x`: thresholds must increase strictly, but 1 is followed by 0.5",
+            "10:49 observed variable `s`: reliability 1.5 is outside (0, 1]",
+            "11:33 a correlated error names unknown item `ghost`",
         ];
         assert_eq!(found, expected);
     }
@@ -185,7 +185,7 @@ correlated_errors: [{items: [x, ghost], covariance: 0.1}]
         let report = file(yaml).check().unwrap_err();
         assert_eq!(
             report.to_string(),
-            "error: item `t1` names unknown construct `trsut`\n  at model.yaml:5:29\n  5 |   - {name: t1, construct: trsut, loading: 1, error_variance: 1}\n    |                             ^^^^^\n  hint: did you mean `trust`?\n\n1 error and 0 warnings"
+            "error: item `t1` names unknown construct `trsut`\n  at model.yaml:5:27\n  5 |   - {name: t1, construct: trsut, loading: 1, error_variance: 1}\n    |                           ^^^^^\n  hint: did you mean `trust`?\n\n1 error and 0 warnings"
         );
     }
 
@@ -200,7 +200,7 @@ correlated_errors: [{items: [x, ghost], covariance: 0.1}]
         let found = problems(
             "simulate: 1\nconstructs: [{name: a}, {name: b, total_variance: 0.5}]\npaths: [{from: a, to: b, coefficient: 0.9}]\nitems: [{name: x, construct: b, loading: 1, error_variance: 1}]\n",
         );
-        assert_eq!(found, ["2:52 construct `b`: total variance 0.5 is less than the 0.8100 its paths explain"]);
+        assert_eq!(found, ["2:51 construct `b`: total variance 0.5 is less than the 0.8100 its paths explain"]);
         let found = problems(
             "simulate: 1\nconstructs: [{name: a}]\nitems:\n  - {name: x, construct: a, loading: 1, error_variance: 0.25}\n  - {name: y, construct: a, loading: 1, error_variance: 1}\ncorrelated_errors:\n  - {items: [x, y], covariance: 0.5}\n",
         );
