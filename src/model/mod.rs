@@ -54,7 +54,11 @@ impl ModelFile {
         let positions = match Positions::index(&source) {
             Ok(p) => p,
             Err(e) => {
-                let finding = ModelFinding { problem: ModelProblem::Syntax { message: e.message }, path: String::new(), on_key: false };
+                let finding = ModelFinding {
+                    problem: ModelProblem::Syntax { message: e.message },
+                    path: String::new(),
+                    on_key: false,
+                };
                 let mut r = Report::default();
                 r.push(diagnostic(&finding).at(path, &source, Some(e.position), 1));
                 return Err(r);
@@ -80,7 +84,8 @@ impl ModelFile {
                 let position = e.location().map(|l| Position { line: l.line(), column: l.column() });
                 let message = e.to_string();
                 let message = message.rfind(" at line ").map_or(message.clone(), |i| message[..i].to_string());
-                report.push(Diagnostic::error(ModelProblem::Type { message }.to_string()).at(path, &source, position, 1));
+                report
+                    .push(Diagnostic::error(ModelProblem::Type { message }.to_string()).at(path, &source, position, 1));
                 Err(report)
             }
         }
@@ -205,8 +210,13 @@ correlated_errors: [{items: [x, ghost], covariance: 0.1}]
             "simulate: 1\nconstructs: [{name: a}]\nitems:\n  - {name: x, construct: a, loading: 1, error_variance: 0.25}\n  - {name: y, construct: a, loading: 1, error_variance: 1}\ncorrelated_errors:\n  - {items: [x, y], covariance: 0.5}\n",
         );
         assert_eq!(found.len(), 1);
-        assert!(found[0].starts_with("7:33 correlated error `x` ~ `y`: covariance 0.5 must be smaller in size than 0.5000"), "{found:?}");
-        let found = problems("simulate: 2\nconstructs: [{name: a}]\nitems: [{name: x, construct: a, loading: 1, error_variance: 1}]\n");
+        assert!(
+            found[0].starts_with("7:33 correlated error `x` ~ `y`: covariance 0.5 must be smaller in size than 0.5000"),
+            "{found:?}"
+        );
+        let found = problems(
+            "simulate: 2\nconstructs: [{name: a}]\nitems: [{name: x, construct: a, loading: 1, error_variance: 1}]\n",
+        );
         assert_eq!(found, ["1:11 model format version 2 is not supported (this build reads version 1)"]);
     }
 
@@ -220,8 +230,12 @@ correlated_errors: [{items: [x, ghost], covariance: 0.1}]
         let text = err.to_string();
         assert!(text.contains("unknown field `varience`") && text.contains("at model.yaml:2:"), "{text}");
         assert!(ModelFile::parse(Path::new("m.yaml"), "simulate: 1\nconstructs: []\nsamples: 3".into()).is_err());
-        let err = ModelFile::parse(Path::new("m.yaml"), "simulate: 1\nsimulate: 1\nconstructs: []\n".into()).unwrap_err();
-        assert!(err.to_string().contains("key `simulate` appears twice in the model's top level (first on line 1)"), "{err}");
+        let err =
+            ModelFile::parse(Path::new("m.yaml"), "simulate: 1\nsimulate: 1\nconstructs: []\n".into()).unwrap_err();
+        assert!(
+            err.to_string().contains("key `simulate` appears twice in the model's top level (first on line 1)"),
+            "{err}"
+        );
     }
 
     #[test]

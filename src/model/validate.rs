@@ -362,7 +362,10 @@ fn check_observed(model: &SimulationModel, c: &mut Checker) {
             c.push(ModelProblem::ZeroLoading { subject: subject.clone() }, child(&at, "loading"));
         }
         if !(o.reliability > 0.0 && o.reliability <= 1.0) {
-            c.push(ModelProblem::Reliability { subject: subject.clone(), value: o.reliability }, child(&at, "reliability"));
+            c.push(
+                ModelProblem::Reliability { subject: subject.clone(), value: o.reliability },
+                child(&at, "reliability"),
+            );
         }
         if let Some(r) = o.missing {
             c.rate(&subject, r, child(&at, "missing"));
@@ -379,7 +382,10 @@ fn check_correlated_errors(model: &SimulationModel, c: &mut Checker) {
         for (j, name) in [a, b].into_iter().enumerate() {
             if !variables.contains(&name.as_str()) {
                 let suggestion = suggest(name, variables.iter().copied());
-                c.push(ModelProblem::UnknownVariable { name: name.clone(), suggestion }, element(&child(&at, "items"), j));
+                c.push(
+                    ModelProblem::UnknownVariable { name: name.clone(), suggestion },
+                    element(&child(&at, "items"), j),
+                );
             }
         }
         let subject = Subject::CorrelatedError { a: a.clone(), b: b.clone() };
@@ -387,7 +393,8 @@ fn check_correlated_errors(model: &SimulationModel, c: &mut Checker) {
             c.push(ModelProblem::SelfPair { subject: subject.clone() }, child(&at, "items"));
         }
         c.finite(&subject, "covariance", ce.covariance, child(&at, "covariance"));
-        let same = |q: &CorrelatedError| (q.items[0] == *a && q.items[1] == *b) || (q.items[0] == *b && q.items[1] == *a);
+        let same =
+            |q: &CorrelatedError| (q.items[0] == *a && q.items[1] == *b) || (q.items[0] == *b && q.items[1] == *a);
         if model.correlated_errors[..k].iter().any(same) {
             c.push(ModelProblem::DuplicatePair { subject }, at);
         }
@@ -398,20 +405,16 @@ fn check_correlated_errors(model: &SimulationModel, c: &mut Checker) {
 fn drawing_path(model: &SimulationModel, e: &ModelError) -> String {
     match e {
         ModelError::Cycle { path, .. } => element("paths", *path),
-        ModelError::TotalBelowExplained { construct, .. } => child(&element("constructs", *construct), "total_variance"),
+        ModelError::TotalBelowExplained { construct, .. } => {
+            child(&element("constructs", *construct), "total_variance")
+        }
         ModelError::ZeroVariance { construct, .. } => element("constructs", *construct),
-        ModelError::ErrorCovarianceTooLarge { index, .. } => {
-            child(&element("correlated_errors", *index), "covariance")
-        }
+        ModelError::ErrorCovarianceTooLarge { index, .. } => child(&element("correlated_errors", *index), "covariance"),
         ModelError::NotPositiveDefinite { first, .. } => element("correlated_errors", *first),
-        ModelError::ConstantVariable { name } => {
-            match model.items.iter().position(|it| &it.name == name) {
-                Some(k) => element("items", k),
-                None => element("observed", model.observed.iter().position(|o| &o.name == name).unwrap_or(0)),
-            }
-        }
-        ModelError::UnknownConstruct { .. } | ModelError::UnknownVariable { .. } | ModelError::NoRows => {
-            String::new()
-        }
+        ModelError::ConstantVariable { name } => match model.items.iter().position(|it| &it.name == name) {
+            Some(k) => element("items", k),
+            None => element("observed", model.observed.iter().position(|o| &o.name == name).unwrap_or(0)),
+        },
+        ModelError::UnknownConstruct { .. } | ModelError::UnknownVariable { .. } | ModelError::NoRows => String::new(),
     }
 }

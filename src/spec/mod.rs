@@ -265,7 +265,8 @@ mod tests {
     #[test]
     fn the_truth_model_is_read_once_with_the_spec() {
         let dir = tempfile::tempdir().unwrap();
-        let model = "simulate: 1\nconstructs: [{name: a}]\nitems: [{name: x, construct: a, loading: 1, error_variance: 1}]\n";
+        let model =
+            "simulate: 1\nconstructs: [{name: a}]\nitems: [{name: x, construct: a, loading: 1, error_variance: 1}]\n";
         std::fs::write(dir.path().join("model.yaml"), model).unwrap();
         let spec = SpecFile::parse(&dir.path().join("spec.yaml"), SPEC.into()).unwrap();
         assert!(spec.early.is_empty(), "{:?}", spec.early);

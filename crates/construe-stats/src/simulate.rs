@@ -421,7 +421,8 @@ impl Model {
 
     fn resolve(&self) -> Result<Resolved, ModelError> {
         let m = self.constructs.len();
-        let idx = |name: &str| self.construct_index(name).ok_or_else(|| ModelError::UnknownConstruct { name: name.into() });
+        let idx =
+            |name: &str| self.construct_index(name).ok_or_else(|| ModelError::UnknownConstruct { name: name.into() });
 
         let mut parents: Vec<Vec<(usize, f64)>> = vec![Vec::new(); m];
         for path in &self.paths {
@@ -452,7 +453,12 @@ impl Model {
             let psi = match c.variance {
                 LatentVariance::Total(total) => {
                     if total < explained {
-                        return Err(ModelError::TotalBelowExplained { construct: j, name: c.name.clone(), total, explained });
+                        return Err(ModelError::TotalBelowExplained {
+                            construct: j,
+                            name: c.name.clone(),
+                            total,
+                            explained,
+                        });
                     }
                     total - explained
                 }
@@ -498,7 +504,10 @@ impl Model {
 
         let p = variables.len();
         let var_idx = |name: &str| {
-            variables.iter().position(|v| v.name == name).ok_or_else(|| ModelError::UnknownVariable { name: name.into() })
+            variables
+                .iter()
+                .position(|v| v.name == name)
+                .ok_or_else(|| ModelError::UnknownVariable { name: name.into() })
         };
         let mut theta = DMatrix::from_diagonal(&nalgebra::DVector::from_vec(error_var));
         // Union-find over correlated-error pairs: each group is factored on its own, so items
@@ -790,7 +799,8 @@ mod tests {
             cross_loadings: vec![CrossLoading { construct: "a".into(), loading: 0.4 }],
             ..Item::new("b2", "b", 1.2, 0.5)
         };
-        let b3 = Item { mean: 0.5, missing: Some(0.2), ..coarse(Item::new("b3", "b", 0.9, 0.6), &[-1.5, -0.5, 0.5, 1.5]) };
+        let b3 =
+            Item { mean: 0.5, missing: Some(0.2), ..coarse(Item::new("b3", "b", 0.9, 0.6), &[-1.5, -0.5, 0.5, 1.5]) };
         Model { missing: 0.05, ..Model::default() }
             .construct("a", Own(1.5))
             .construct("b", Own(0.6))
@@ -991,7 +1001,10 @@ mod tests {
             .correlated_error("x", "z", -0.4)
             .check()
             .unwrap_err();
-        assert_eq!(e, ModelError::NotPositiveDefinite { variables: vec!["x".into(), "y".into(), "z".into()], first: 0 });
+        assert_eq!(
+            e,
+            ModelError::NotPositiveDefinite { variables: vec!["x".into(), "y".into(), "z".into()], first: 0 }
+        );
         assert_eq!(small().draw(0, 1), Err(ModelError::NoRows));
     }
 
@@ -1081,5 +1094,4 @@ mod tests {
             assert!((missing - rate).abs() < 0.005, "{name}: {missing}");
         }
     }
-
 }

@@ -109,7 +109,10 @@ fn recovery_model() -> Model {
         .item(Item::new("a2", "a", 0.75, 0.4375))
         .item(Item::new("a3", "a", 0.7, 0.51))
         .item(Item::new("a4", "a", 0.65, 0.5775))
-        .item(Item { cross_loadings: vec![CrossLoading { construct: "b".into(), loading: 0.4 }], ..Item::new("a5", "a", 0.6, 0.64) })
+        .item(Item {
+            cross_loadings: vec![CrossLoading { construct: "b".into(), loading: 0.4 }],
+            ..Item::new("a5", "a", 0.6, 0.64)
+        })
         .item(Item::new("b1", "b", 0.8, 0.36))
         .item(Item::new("b2", "b", 0.75, 0.4375))
         .item(Item::new("b3", "b", 0.7, 0.51))
