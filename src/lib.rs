@@ -6,6 +6,7 @@ pub mod app;
 pub mod cli;
 pub mod data;
 pub mod fsguard;
+pub mod model;
 pub mod pipeline;
 pub mod report;
 pub mod spec;

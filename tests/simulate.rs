@@ -94,3 +94,105 @@ fn help_lists_every_command() {
         );
     }
 }
+
+#[test]
+fn model_problems_are_shown_verbatim_with_a_caret_and_a_hint() {
+    let bad = MODEL
+        .replace("{name: b3, construct: b,", "{name: b3, construct: bb,")
+        .replace("thresholds: [-1, 0, 1]}\n  - {name: a3", "thresholds: [-1, 1, 0]}\n  - {name: a3");
+    let case = Case::new().file("model.yaml", bad);
+    let out = case.run(["simulate", "model.yaml", "--out", "x.csv"]);
+    out.failure(1);
+    let expected = "error: item `a2`: thresholds must increase strictly, but 1 is followed by 0
+  at model.yaml:15:86
+  15 |   - {name: a2, construct: a, loading: 0.7, error_variance: 0.51, thresholds: [-1, 1, 0]}
+     |                                                                                      ^
+  hint: list the cut points from lowest to highest, each once
+
+error: item `b3` names unknown construct `bb`
+  at model.yaml:19:27
+  19 |   - {name: b3, construct: bb, loading: 0.6, error_variance: 0.64}
+     |                           ^^
+  hint: did you mean `b`?
+
+2 errors and 0 warnings";
+    assert!(out.stderr.contains(expected), "{}", out.stderr);
+    assert!(!case.exists("x.csv"), "nothing written");
+}
+
+#[test]
+fn a_cycle_is_shown_at_the_path_that_closes_it() {
+    let cyclic = MODEL.replace(
+        "  - {from: a, to: b, coefficient: 0.5}",
+        "  - {from: a, to: b, coefficient: 0.5}\n  - {from: b, to: a, coefficient: 0.2}",
+    );
+    let out = Case::new().file("model.yaml", cyclic).run(["simulate", "model.yaml", "--out", "x.csv"]);
+    out.failure(1);
+    let expected = "error: structural paths form a cycle: `a` -> `b` -> `a`
+  at model.yaml:12:5
+  12 |   - {from: a, to: b, coefficient: 0.5}
+     |     ^
+  hint: causes must come before their effects: drop one path
+";
+    assert!(out.stderr.contains(expected), "{}", out.stderr);
+}
+
+/// `check` on `case`, failing the test instead of hanging if it blocks.
+fn check_within_seconds(case: Case) -> crate::harness::Outcome {
+    let (send, receive) = std::sync::mpsc::channel();
+    std::thread::spawn(move || {
+        let _ = send.send(case.run(["check", "spec.yaml"]));
+    });
+    receive.recv_timeout(std::time::Duration::from_secs(8)).expect("`construe check` blocks on the truth model")
+}
+
+fn with_truth_model() -> Case {
+    crate::harness::small_case().spec(&format!("{}report: {{truth_model: model.yaml}}\n", crate::harness::SMALL_SPEC))
+}
+
+#[test]
+fn a_missing_truth_model_fails_check_at_its_key() {
+    let out = check_within_seconds(with_truth_model());
+    out.failure(1);
+    let expected = "error: truth model `model.yaml` does not exist
+  at spec.yaml:12:23
+  12 | report: {truth_model: model.yaml}
+     |                       ^^^^^^^^^^
+  hint: paths are relative to the folder of the spec file
+";
+    assert!(out.stderr.contains(expected), "{}", out.stderr);
+}
+
+#[cfg(unix)]
+#[test]
+fn a_fifo_or_folder_as_truth_model_fails_check_without_blocking() {
+    let case = with_truth_model();
+    let fifo = case.path().join("model.yaml");
+    assert!(std::process::Command::new("mkfifo").arg(&fifo).status().unwrap().success());
+    let out = check_within_seconds(case);
+    out.failure(1);
+    out.stderr_contains("error: cannot read truth model `model.yaml`: ")
+        .stderr_contains("named pipe (FIFO)")
+        .stderr_contains("at spec.yaml:12:23")
+        .stderr_contains("hint: name the file itself");
+
+    let case = with_truth_model();
+    std::fs::create_dir(case.path().join("model.yaml")).unwrap();
+    let out = check_within_seconds(case);
+    out.failure(1);
+    out.stderr_contains("error: cannot read truth model `model.yaml`: ").stderr_contains("at spec.yaml:12:23");
+}
+
+#[test]
+fn an_invalid_truth_model_fails_check() {
+    let case = with_truth_model().file("model.yaml", MODEL.replace("simulate: 1", "simulate: 3"));
+    let out = check_within_seconds(case);
+    out.failure(1);
+    out.stderr_contains(
+        "error: truth model `model.yaml` is not a valid model: model format version 3 is not supported (this build reads version 1)",
+    )
+    .stderr_contains("at spec.yaml:12:23")
+    .stderr_contains("hint: `construe simulate model.yaml --out FILE` shows every problem with its position");
+    let case = with_truth_model().file("model.yaml", MODEL);
+    check_within_seconds(case).success();
+}

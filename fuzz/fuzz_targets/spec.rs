@@ -27,7 +27,7 @@ fuzz_target!(|bytes: &[u8]| {
     match SpecFile::parse(&path, text) {
         Ok(file) => {
             let mut findings = file.early.clone();
-            findings.extend(validate(&file.spec, &demo_dir(), demo_sources()));
+            findings.extend(validate(&file.spec, demo_sources()));
             let _ = file.diagnose(findings).to_string();
         }
         Err(report) => {

@@ -23,9 +23,8 @@ pub fn check(path: &Path) -> Checked {
         Err(report) => return Checked { spec: None, report },
     };
     let sources = source_columns(&spec);
-    let spec_dir = spec.resolve(std::path::Path::new(""));
     let mut findings = spec.early.clone();
-    findings.extend(validate(&spec.spec, &spec_dir, &sources));
+    findings.extend(validate(&spec.spec, &sources));
     let report = spec.diagnose(findings);
     Checked { spec: Some(spec), report }
 }

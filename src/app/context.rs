@@ -10,7 +10,6 @@ use crate::report::svg::heatmap;
 use crate::spec::SpecFile;
 use crate::steps::covariance::PairMethod;
 use crate::steps::{Artifact, StepKind};
-use construe_stats::simulate::SimulationModel;
 
 pub fn report_context(spec: &SpecFile, execution: &Execution, results: &Value) -> Value {
     let s = &spec.spec;
@@ -153,19 +152,11 @@ fn structure_diagram(spec: &SpecFile, execution: &Execution) -> Option<String> {
     Some(diagram(&nodes, &links, &dropped))
 }
 
-/// The known truth beside the findings, when the spec names the model the data came from.
+/// The known truth beside the findings, when the spec names the model the data came from (read
+/// and checked once, with the spec: `SpecFile::truth`).
 fn truth_comparison(spec: &SpecFile, execution: &Execution) -> Option<Value> {
     let rel = spec.spec.report.truth_model.as_ref()?;
-    let path = spec.resolve(rel);
-    // A FIFO or device named as the truth model is refused, never waited on (issue 13).
-    let truth = crate::fsguard::read_regular_text(&path, crate::fsguard::MAX_TEXT_BYTES)
-        .map_err(|e| e.to_string())
-        .and_then(|text| serde_yaml::from_str::<SimulationModel>(&text).map_err(|e| e.to_string()))
-        .and_then(|m| m.truth().map_err(|e| e.to_string()));
-    let truth = match truth {
-        Ok(t) => t,
-        Err(e) => return Some(json!({"file": rel.display().to_string(), "error": e})),
-    };
+    let truth = &spec.truth.as_ref()?.truth;
     let dropped: Vec<String> = match execution.artifacts.get(&StepKind::Purify) {
         Some(Artifact::Purify(p)) => {
             p.constructs.values().flat_map(|c| c.dropped.iter().map(|d| d.item.clone())).collect()
@@ -250,23 +241,4 @@ fn sensitivity_plots(execution: &Execution) -> Vec<Value> {
             })
         })
         .collect()
-}
-
-#[cfg(test)]
-mod tests {
-    use super::*;
-    use std::collections::BTreeMap;
-
-    #[cfg(unix)]
-    #[test]
-    fn a_fifo_as_truth_model_is_reported_not_waited_on() {
-        let dir = tempfile::tempdir().unwrap();
-        let fifo = dir.path().join("model.yaml");
-        assert!(std::process::Command::new("mkfifo").arg(&fifo).status().unwrap().success());
-        let yaml = "construe: 1\ntitle: t\ndata:\n  waves: [{id: w, file: w.csv}]\nconstructs:\n  a: {items: [x, y, z]}\nreport: {truth_model: model.yaml}\n";
-        let spec = SpecFile::parse(&dir.path().join("spec.yaml"), yaml.into()).unwrap();
-        let execution = Execution { outcomes: Vec::new(), artifacts: BTreeMap::new() };
-        let truth = truth_comparison(&spec, &execution).unwrap();
-        assert!(truth["error"].as_str().unwrap().contains("named pipe"), "{truth}");
-    }
 }

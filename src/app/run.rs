@@ -97,15 +97,10 @@ pub(crate) fn spec_info(spec: &SpecFile) -> SpecInfo {
     }
 }
 
-/// What besides the steps shapes the written report: the formats, and the truth model's bytes.
+/// What besides the steps shapes the written report: the formats, and the truth model's bytes
+/// (hashed when the spec was read; the file is not read again).
 pub(crate) fn report_settings(spec: &SpecFile) -> Value {
-    let truth = spec
-        .spec
-        .report
-        .truth_model
-        .as_ref()
-        .and_then(|p| crate::fsguard::read_regular(&spec.resolve(p), crate::fsguard::MAX_TEXT_BYTES).ok())
-        .map(|b| Key::of_bytes(&b).hex());
+    let truth = spec.truth.as_ref().map(|t| t.hash.hex());
     serde_json::json!({"formats": spec.spec.report.formats, "truth_model": truth})
 }
 

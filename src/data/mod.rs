@@ -9,6 +9,7 @@ pub mod csv_file;
 pub mod matrix;
 pub mod parquet_footer;
 pub mod table;
+pub mod write;
 
 use std::path::{Path, PathBuf};
 

@@ -1,6 +1,7 @@
 //! The spec: reading, parsing, validation and lints, turned into diagnostics with positions.
 //! Central type: `SpecFile` (the parsed spec with its source text and node positions).
-//! This module reads only the spec file itself; data headers come in from the caller.
+//! This module reads only the spec file itself and the truth model it names (`TruthModel`,
+//! read and parsed once, here); data headers come in from the caller.
 
 pub mod diagnostic;
 pub mod positions;
@@ -25,8 +26,19 @@ pub struct SpecFile {
     pub positions: Positions,
     pub spec: Spec,
     /// Problems found while parsing that did not stop it (unknown keys, which are removed
-    /// before type checking so that the semantic checks can still report everything else).
+    /// before type checking so that the semantic checks can still report everything else; a
+    /// truth model that cannot be read or is not a valid model).
     pub early: Vec<Finding>,
+    /// The `report.truth_model`, read and parsed once, when the spec names one that is valid.
+    pub truth: Option<TruthModel>,
+}
+
+/// A spec's truth model: the population values of the model the data were drawn from, and
+/// the BLAKE3 of the file's bytes (part of the report settings in the manifest).
+#[derive(Debug, Clone)]
+pub struct TruthModel {
+    pub hash: crate::pipeline::key::Key,
+    pub truth: construe_stats::simulate::Truth,
 }
 
 impl SpecFile {
@@ -76,12 +88,12 @@ impl SpecFile {
                 serde_yaml::from_value::<Spec>(v).ok()
             });
             return match stripped {
-                Some(spec) => Ok(SpecFile { path: path.to_path_buf(), source, positions, spec, early: unknown }),
+                Some(spec) => Ok(SpecFile::finish(path, source, positions, spec, unknown)),
                 None => Err(diagnose(path, &source, &positions, unknown)),
             };
         }
         match serde_yaml::from_str::<Spec>(&source) {
-            Ok(spec) => Ok(SpecFile { path: path.to_path_buf(), source, positions, spec, early: Vec::new() }),
+            Ok(spec) => Ok(SpecFile::finish(path, source, positions, spec, Vec::new())),
             Err(e) => {
                 let position = e.location().map(|l| Position { line: l.line(), column: l.column() });
                 let message = strip_location(&e.to_string());
@@ -90,6 +102,19 @@ impl SpecFile {
                 Err(r)
             }
         }
+    }
+
+    /// A parsed spec, with its truth model read (a problem with it joins `early`).
+    fn finish(path: &Path, source: String, positions: Positions, spec: Spec, mut early: Vec<Finding>) -> SpecFile {
+        let mut file = SpecFile { path: path.to_path_buf(), source, positions, spec, early: Vec::new(), truth: None };
+        if let Some(written) = file.spec.report.truth_model.clone() {
+            match load_truth(&written, &file.resolve(&written)) {
+                Ok(truth) => file.truth = Some(truth),
+                Err(problem) => early.push(Finding::value(problem, "report.truth_model")),
+            }
+        }
+        file.early = early;
+        file
     }
 
     /// A path from the spec, resolved relative to the spec's folder.
@@ -104,6 +129,39 @@ impl SpecFile {
     pub fn diagnose(&self, findings: Vec<Finding>) -> Report {
         diagnose(&self.path, &self.source, &self.positions, findings)
     }
+}
+
+/// Reads the truth model at `path` (through `fsguard`: a FIFO or device is refused, never
+/// waited on), checks it and computes its population values.
+fn load_truth(written: &Path, path: &Path) -> Result<TruthModel, SpecProblem> {
+    let bytes = crate::fsguard::read_regular(path, crate::fsguard::MAX_TEXT_BYTES).map_err(|e| {
+        if e.kind() == std::io::ErrorKind::NotFound {
+            SpecProblem::MissingTruthModel { path: written.to_path_buf() }
+        } else {
+            let hint = crate::fsguard::hint(&e).map(str::to_string);
+            SpecProblem::UnreadableTruthModel { path: written.to_path_buf(), reason: e.to_string(), hint }
+        }
+    })?;
+    let hash = crate::pipeline::key::Key::of_bytes(&bytes);
+    let invalid = |report: Report| SpecProblem::InvalidTruthModel {
+        path: written.to_path_buf(),
+        first: report.diagnostics.first().map(|d| d.message.clone()).unwrap_or_default(),
+        problems: report.error_count(),
+    };
+    let text = String::from_utf8(bytes).map_err(|_| SpecProblem::UnreadableTruthModel {
+        path: written.to_path_buf(),
+        reason: "the file is not UTF-8 text".into(),
+        hint: None,
+    })?;
+    let file = crate::model::ModelFile::parse(path, text).map_err(invalid)?;
+    let model = file.check().map_err(invalid)?;
+    // `check` ran `truth` already, so this cannot fail; a failure is still reported, not unwrapped.
+    let truth = model.truth().map_err(|e| SpecProblem::InvalidTruthModel {
+        path: written.to_path_buf(),
+        first: e.to_string(),
+        problems: 1,
+    })?;
+    Ok(TruthModel { hash, truth })
 }
 
 fn diagnose(path: &Path, source: &str, positions: &Positions, findings: Vec<Finding>) -> Report {
@@ -182,8 +240,46 @@ fn strip_location(message: &str) -> String {
 
 #[cfg(test)]
 mod tests {
-    use super::lexical_clean;
+    use super::{SpecFile, SpecProblem, lexical_clean};
     use std::path::{Path, PathBuf};
+
+    const SPEC: &str = "construe: 1\ntitle: t\ndata:\n  waves: [{id: w, file: w.csv}]\nconstructs:\n  a: {items: [x, y, z]}\nreport: {truth_model: model.yaml}\n";
+
+    #[cfg(unix)]
+    #[test]
+    fn a_fifo_as_truth_model_is_a_spec_problem_not_waited_on() {
+        let dir = tempfile::tempdir().unwrap();
+        let fifo = dir.path().join("model.yaml");
+        assert!(std::process::Command::new("mkfifo").arg(&fifo).status().unwrap().success());
+        let spec = SpecFile::parse(&dir.path().join("spec.yaml"), SPEC.into()).unwrap();
+        assert!(spec.truth.is_none());
+        assert_eq!(spec.early.len(), 1);
+        assert_eq!(spec.early[0].path, "report.truth_model");
+        assert!(
+            matches!(&spec.early[0].problem, SpecProblem::UnreadableTruthModel { reason, .. } if reason.contains("named pipe")),
+            "{:?}",
+            spec.early[0]
+        );
+    }
+
+    #[test]
+    fn the_truth_model_is_read_once_with_the_spec() {
+        let dir = tempfile::tempdir().unwrap();
+        let model =
+            "simulate: 1\nconstructs: [{name: a}]\nitems: [{name: x, construct: a, loading: 1, error_variance: 1}]\n";
+        std::fs::write(dir.path().join("model.yaml"), model).unwrap();
+        let spec = SpecFile::parse(&dir.path().join("spec.yaml"), SPEC.into()).unwrap();
+        assert!(spec.early.is_empty(), "{:?}", spec.early);
+        let truth = spec.truth.as_ref().unwrap();
+        assert_eq!(truth.hash, crate::pipeline::key::Key::of_bytes(model.as_bytes()));
+        assert_eq!(truth.truth.variables, ["x"]);
+        // Later changes to the file do not reach this run: nothing reads it again.
+        std::fs::remove_file(dir.path().join("model.yaml")).unwrap();
+        assert_eq!(crate::app::run::report_settings(&spec)["truth_model"], truth.hash.hex());
+
+        let missing = SpecFile::parse(&dir.path().join("spec.yaml"), SPEC.into()).unwrap();
+        assert!(matches!(missing.early[0].problem, SpecProblem::MissingTruthModel { .. }));
+    }
 
     #[test]
     fn lexical_clean_folds_parent_steps() {

@@ -52,6 +52,14 @@ pub enum SpecProblem {
     MissingFile { wave: Option<String>, path: PathBuf },
     #[error("truth model `{}` does not exist", path.display())]
     MissingTruthModel { path: PathBuf },
+    #[error("cannot read truth model `{}`: {reason}", path.display())]
+    UnreadableTruthModel { path: PathBuf, reason: String, hint: Option<String> },
+    #[error(
+        "truth model `{}` is not a valid model: {first}{}",
+        path.display(),
+        if *problems > 1 { format!(" (and {} more)", crate::spec::diagnostic::plural(problems - 1, "problem")) } else { String::new() }
+    )]
+    InvalidTruthModel { path: PathBuf, first: String, problems: usize },
     #[error("cannot read the columns of `{}`: {reason}", path.display())]
     UnreadableFile { path: PathBuf, reason: String },
     #[error("data file `{}` has unsupported extension; use .csv or .parquet", path.display())]
@@ -118,6 +126,11 @@ impl SpecProblem {
             | MissingColumn { suggestion, .. }
             | UnknownConstruct { suggestion, .. }
             | UnknownDataItem { suggestion, .. } => suggestion.clone(),
+            UnreadableTruthModel { hint, .. } => hint.clone(),
+            InvalidTruthModel { path, .. } => Some(format!(
+                "`construe simulate {} --out FILE` shows every problem with its position",
+                path.display()
+            )),
             MissingFile { .. } | MissingTruthModel { .. } => {
                 Some("paths are relative to the folder of the spec file".into())
             }

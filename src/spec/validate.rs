@@ -47,7 +47,7 @@ pub struct SourceColumns {
 }
 
 /// Every semantic problem of `spec`, given the columns of its sources.
-pub fn validate(spec: &Spec, spec_dir: &std::path::Path, sources: &[SourceColumns]) -> Vec<Finding> {
+pub fn validate(spec: &Spec, sources: &[SourceColumns]) -> Vec<Finding> {
     let mut out = Vec::new();
     if spec.construe != super::types::FORMAT_VERSION {
         out.push(Finding::value(
@@ -66,12 +66,8 @@ pub fn validate(spec: &Spec, spec_dir: &std::path::Path, sources: &[SourceColumn
     check_data_options(spec, available.as_ref(), &mut out);
     check_knowledge(spec, &mut out);
     check_analyses(spec, available.as_ref(), &mut out);
-    if let Some(model) = &spec.report.truth_model {
-        let path = if model.is_absolute() { model.clone() } else { spec_dir.join(model) };
-        if !path.exists() {
-            out.push(Finding::value(SpecProblem::MissingTruthModel { path: model.clone() }, "report.truth_model"));
-        }
-    }
+    // `report.truth_model` is read, parsed and checked once, by `SpecFile::parse` (its problems
+    // arrive in `SpecFile::early`).
     if spec.report.formats.is_empty() {
         out.push(Finding::value(SpecProblem::NoReportFormats, "report.formats"));
     }

@@ -1,6 +1,11 @@
 //! Survey data drawn from a declared latent-variable model (demo data, power checks).
-//! Central types: `SimulationModel` (the model file, deserialised with serde), `SimulatedTable`
-//! (the drawn columns) and `Truth` (the population values an analysis should recover).
+//! Central types: `Model` (a plain description of what to draw: constructs, paths, items,
+//! observed variables, correlated errors, missing rates, extra columns), `SimulatedTable` (the
+//! drawn columns) and `Truth` (the population values an analysis should recover).
+//! The model-file format, its checks and their positioned diagnostics live in the main crate
+//! (`construe::model`); writing a table is `construe::data::write`. This module only draws and
+//! computes, and reports what only the numbers show (a cycle, a total variance below what the
+//! paths explain, an error covariance that is not positive definite) as typed `ModelError`s.
 //! Deterministic: one seed gives the same table bit for bit, run after run, from a fixed draw
 //! order on ChaCha8 streams; nothing here iterates a hash map, reads a file, clock or environment.
 
@@ -8,12 +13,8 @@ use nalgebra::DMatrix;
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 use rand_distr::StandardNormal;
-use serde::{Deserialize, Serialize, Serializer};
-
-use super::StatsError;
-
-/// The only model-file format version this module reads (the `simulate:` key).
-pub const MODEL_FORMAT_VERSION: u32 = 1;
+use serde::{Serialize, Serializer};
+use thiserror::Error;
 
 /// ChaCha stream of the model values (latent disturbances and item errors).
 const VALUE_STREAM: u64 = 0;
@@ -21,135 +22,75 @@ const VALUE_STREAM: u64 = 0;
 /// changes a drawn value, and changing a loading never moves the holes.
 const MISSING_STREAM: u64 = 1;
 
-fn default_n() -> usize {
-    500
-}
-
-fn default_seed() -> u64 {
-    1
-}
-
-fn default_one() -> f64 {
-    1.0
-}
-
-fn default_id_start() -> i64 {
-    1
-}
-
-/// A simulation model file (YAML, format version 1). Unknown keys are errors.
-///
-/// ```yaml
-/// simulate: 1                 # format version (required)
-/// title: two-construct toy    # optional free text
-/// n: 600                      # default number of rows (the caller may override); default 500
-/// seed: 7                     # default seed (the caller may override); default 1
-/// missing: 0.05               # global rate of values missing at random, in [0, 1); default 0
-/// id: {name: rider_id, start: 1}          # optional respondent id column: start, start+1, ...
-/// constants: [{name: wave, value: spring}] # optional constant columns (number or text)
-/// constructs:                 # latent variables; `variance` of an exogenous construct, or the
-///   - {name: a, variance: 1}  # disturbance variance of one with parents; or `total_variance`
-///   - {name: b, total_variance: 1}        # (the disturbance is then total minus explained)
-/// paths:                      # linear structural paths; must form no cycle
-///   - {from: a, to: b, coefficient: 0.5}
-/// items:                      # value = mean + loading * construct (+ cross loadings) + error
-///   - {name: a1, construct: a, loading: 0.8, error_variance: 0.36}
-///   - {name: a2, construct: a, loading: 0.7, error_variance: 0.51,
-///      thresholds: [-1.5, -0.5, 0.5, 1.5]} # coarsened to codes 1..5
-///   - {name: b1, construct: b, loading: 0.7, error_variance: 0.4,
-///      cross_loadings: [{construct: a, loading: 0.3}], missing: 0.1}
-/// observed:                   # single continuous measures, each given by its reliability
-///   - {name: b_score, construct: b, reliability: 0.7, loading: 1, mean: 0}
-/// correlated_errors:          # error covariance between two items (or observed variables)
-///   - {items: [a1, b1], covariance: 0.1}
-/// ```
+/// What to draw. Names refer to each other (items to constructs, paths to constructs,
+/// correlated errors to items or observed variables); the caller is expected to have checked
+/// the names, ranges and uniqueness (the model file's checks do), and anything left over comes
+/// back as a `ModelError`.
 ///
 /// Columns come out in this order: the id column, the constants, the items, the observed
-/// variables, each list in file order.
-#[derive(Debug, Clone, PartialEq, Deserialize)]
-#[serde(deny_unknown_fields)]
-pub struct SimulationModel {
-    /// Model-file format version; must equal [`MODEL_FORMAT_VERSION`].
-    pub simulate: u32,
-    /// Free text describing the model.
-    #[serde(default)]
-    pub title: Option<String>,
-    /// Default number of rows when the caller gives none.
-    #[serde(default = "default_n")]
-    pub n: usize,
-    /// Default seed when the caller gives none.
-    #[serde(default = "default_seed")]
-    pub seed: u64,
+/// variables, each list in declaration order.
+#[derive(Debug, Clone, PartialEq, Default)]
+pub struct Model {
     /// Probability that any analysed value is missing, independently of everything (missing
     /// completely at random); an item's own `missing` overrides it.
-    #[serde(default)]
     pub missing: f64,
     /// Optional respondent id column, never missing and never analysed.
-    #[serde(default)]
     pub id: Option<IdColumn>,
     /// Optional constant columns (a wave label, a country code), never missing.
-    #[serde(default)]
     pub constants: Vec<ConstantColumn>,
     /// The latent constructs.
     pub constructs: Vec<Construct>,
     /// Linear structural paths among the constructs.
-    #[serde(default)]
     pub paths: Vec<StructuralPath>,
     /// Multiple-indicator items.
-    #[serde(default)]
     pub items: Vec<Item>,
     /// Single observed variables, each a construct plus error of a given reliability.
-    #[serde(default)]
     pub observed: Vec<ObservedVariable>,
     /// Pairs of analysed variables whose errors covary.
-    #[serde(default)]
     pub correlated_errors: Vec<CorrelatedError>,
 }
 
 /// An id column numbered `start`, `start + 1`, ... in row order.
-#[derive(Debug, Clone, PartialEq, Deserialize)]
-#[serde(deny_unknown_fields)]
+#[derive(Debug, Clone, PartialEq)]
 pub struct IdColumn {
     pub name: String,
-    #[serde(default = "default_id_start")]
     pub start: i64,
 }
 
 /// A column holding the same value in every row.
-#[derive(Debug, Clone, PartialEq, Deserialize)]
-#[serde(deny_unknown_fields)]
+#[derive(Debug, Clone, PartialEq)]
 pub struct ConstantColumn {
     pub name: String,
     pub value: ConstantValue,
 }
 
-/// The value of a constant column: a number (`wave: 2`) or a text label (`wave: spring`).
-#[derive(Debug, Clone, PartialEq, Deserialize)]
-#[serde(untagged)]
+/// The value of a constant column: a number or a text label.
+#[derive(Debug, Clone, PartialEq)]
 pub enum ConstantValue {
     Number(f64),
     Text(String),
 }
 
-/// A latent construct. Give at most one of `variance` and `total_variance`; neither means
-/// `variance: 1`.
-#[derive(Debug, Clone, PartialEq, Deserialize)]
-#[serde(deny_unknown_fields)]
-pub struct Construct {
-    pub name: String,
+/// How a construct's variance is given.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum LatentVariance {
     /// Variance of an exogenous construct, or the disturbance (residual) variance of a
     /// construct with incoming paths.
-    #[serde(default)]
-    pub variance: Option<f64>,
+    Own(f64),
     /// The construct's total variance; its disturbance variance is this minus the variance its
     /// parents explain (an error if they explain more).
-    #[serde(default)]
-    pub total_variance: Option<f64>,
+    Total(f64),
+}
+
+/// A latent construct.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Construct {
+    pub name: String,
+    pub variance: LatentVariance,
 }
 
 /// A linear structural path: `to` gains `coefficient * from`.
-#[derive(Debug, Clone, PartialEq, Deserialize)]
-#[serde(deny_unknown_fields)]
+#[derive(Debug, Clone, PartialEq)]
 pub struct StructuralPath {
     pub from: String,
     pub to: String,
@@ -158,8 +99,7 @@ pub struct StructuralPath {
 
 /// An indicator item: `mean + loading * construct + sum(cross loadings) + error`, optionally
 /// coarsened into ordered categories.
-#[derive(Debug, Clone, PartialEq, Deserialize)]
-#[serde(deny_unknown_fields)]
+#[derive(Debug, Clone, PartialEq)]
 pub struct Item {
     pub name: String,
     pub construct: String,
@@ -168,23 +108,34 @@ pub struct Item {
     /// Variance of the item's own error.
     pub error_variance: f64,
     /// Extra loadings on other constructs: a planted impurity.
-    #[serde(default)]
     pub cross_loadings: Vec<CrossLoading>,
     /// Cut points on the item's continuous value, strictly increasing; k - 1 thresholds give
-    /// codes 1..k, code c meaning threshold[c-2] < value <= threshold[c-1]. Absent: continuous.
-    #[serde(default)]
+    /// codes 1..k, code c meaning threshold[c-2] < value <= threshold[c-1]. `None`: continuous.
     pub thresholds: Option<Vec<f64>>,
     /// Added to the continuous value before coarsening.
-    #[serde(default)]
     pub mean: f64,
     /// This item's missing rate, overriding the model's global `missing`.
-    #[serde(default)]
     pub missing: Option<f64>,
 }
 
+impl Item {
+    /// A continuous item with mean 0, no cross loading and the model's missing rate.
+    pub fn new(name: &str, construct: &str, loading: f64, error_variance: f64) -> Item {
+        Item {
+            name: name.into(),
+            construct: construct.into(),
+            loading,
+            error_variance,
+            cross_loadings: Vec::new(),
+            thresholds: None,
+            mean: 0.0,
+            missing: None,
+        }
+    }
+}
+
 /// An extra loading of an item on a second construct.
-#[derive(Debug, Clone, PartialEq, Deserialize)]
-#[serde(deny_unknown_fields)]
+#[derive(Debug, Clone, PartialEq)]
 pub struct CrossLoading {
     pub construct: String,
     pub loading: f64,
@@ -192,28 +143,106 @@ pub struct CrossLoading {
 
 /// A single continuous measure of a construct: `mean + loading * construct + error`, the error
 /// variance set so that the share of the variance due to the construct equals `reliability`.
-#[derive(Debug, Clone, PartialEq, Deserialize)]
-#[serde(deny_unknown_fields)]
+#[derive(Debug, Clone, PartialEq)]
 pub struct ObservedVariable {
     pub name: String,
     pub construct: String,
     /// In (0, 1]: loading^2 var(construct) / var(variable).
     pub reliability: f64,
-    /// Scale of the variable (default 1).
-    #[serde(default = "default_one")]
+    /// Scale of the variable.
     pub loading: f64,
-    #[serde(default)]
     pub mean: f64,
-    #[serde(default)]
     pub missing: Option<f64>,
 }
 
+impl ObservedVariable {
+    /// Loading 1, mean 0 and the model's missing rate.
+    pub fn new(name: &str, construct: &str, reliability: f64) -> ObservedVariable {
+        ObservedVariable {
+            name: name.into(),
+            construct: construct.into(),
+            reliability,
+            loading: 1.0,
+            mean: 0.0,
+            missing: None,
+        }
+    }
+}
+
 /// A covariance between the errors of two analysed variables: a planted impurity.
-#[derive(Debug, Clone, PartialEq, Deserialize)]
-#[serde(deny_unknown_fields)]
+#[derive(Debug, Clone, PartialEq)]
 pub struct CorrelatedError {
     pub items: [String; 2],
     pub covariance: f64,
+}
+
+impl Model {
+    /// Adds a construct (builder style, for tests and programs that declare a model in code).
+    pub fn construct(mut self, name: &str, variance: LatentVariance) -> Model {
+        self.constructs.push(Construct { name: name.into(), variance });
+        self
+    }
+
+    /// Adds a structural path `from` -> `to`.
+    pub fn path(mut self, from: &str, to: &str, coefficient: f64) -> Model {
+        self.paths.push(StructuralPath { from: from.into(), to: to.into(), coefficient });
+        self
+    }
+
+    /// Adds an item.
+    pub fn item(mut self, item: Item) -> Model {
+        self.items.push(item);
+        self
+    }
+
+    /// Adds an observed variable.
+    pub fn observed(mut self, variable: ObservedVariable) -> Model {
+        self.observed.push(variable);
+        self
+    }
+
+    /// Adds a covariance between the errors of `a` and `b`.
+    pub fn correlated_error(mut self, a: &str, b: &str, covariance: f64) -> Model {
+        self.correlated_errors.push(CorrelatedError { items: [a.into(), b.into()], covariance });
+        self
+    }
+}
+
+/// What drawing finds wrong with a model. The indices point into the model's lists, so the
+/// caller can show where the problem is.
+#[derive(Debug, Clone, PartialEq, Error)]
+pub enum ModelError {
+    #[error("unknown construct `{name}`")]
+    UnknownConstruct { name: String },
+    #[error("unknown item `{name}`")]
+    UnknownVariable { name: String },
+    /// `constructs` in causal order, the first repeated at the end; `path` is the index of the
+    /// path from the first construct to the second.
+    #[error("structural paths form a cycle: {}", cycle_text(constructs))]
+    Cycle { constructs: Vec<String>, path: usize },
+    #[error("construct `{name}`: total variance {total} is less than the {explained:.4} its paths explain")]
+    TotalBelowExplained { construct: usize, name: String, total: f64, explained: f64 },
+    #[error("construct `{name}` has zero variance")]
+    ZeroVariance { construct: usize, name: String },
+    #[error(
+        "correlated error `{a}` ~ `{b}`: covariance {covariance} must be smaller in size than {bound:.4}, the root of the product of their error variances"
+    )]
+    ErrorCovarianceTooLarge { index: usize, a: String, b: String, covariance: f64, bound: f64 },
+    /// `first` is the index of the first correlated error of the group.
+    #[error("the error covariance of {} is not positive definite", names(variables))]
+    NotPositiveDefinite { variables: Vec<String>, first: usize },
+    #[error("variable `{name}` has zero variance")]
+    ConstantVariable { name: String },
+    #[error("a simulated table needs at least one row")]
+    NoRows,
+}
+
+fn names(list: &[String]) -> String {
+    list.iter().map(|n| format!("`{n}`")).collect::<Vec<_>>().join(", ")
+}
+
+fn cycle_text(list: &[String]) -> String {
+    list.iter().map(|n| format!("`{n}`")).collect::<Vec<_>>().join(" -> ")
 }
 
 /// Drawn data, column-major.
@@ -230,6 +259,13 @@ pub struct SimulatedTable {
     pub text_labels: Vec<Option<String>>,
     /// Whether each column is a model variable (item or observed) rather than an extra column.
     pub analysed_columns: Vec<bool>,
+}
+
+impl SimulatedTable {
+    /// Number of rows.
+    pub fn rows(&self) -> usize {
+        self.values.first().map_or(0, Vec::len)
+    }
 }
 
 /// Population values of a model, for comparison with what an analysis recovered.
@@ -325,183 +361,28 @@ struct Resolved {
     error_factor: Vec<Vec<(usize, f64)>>,
 }
 
-fn err(msg: String) -> StatsError {
-    StatsError::InvalidInput(msg)
-}
-
-fn check_rate(problems: &mut Vec<String>, what: &str, rate: f64) {
-    if !(0.0..1.0).contains(&rate) {
-        problems.push(format!("{what}: missing rate {rate} is outside [0, 1)"));
-    }
-}
-
-fn check_finite(problems: &mut Vec<String>, what: &str, v: f64) {
-    if !v.is_finite() {
-        problems.push(format!("{what} is not a finite number"));
-    }
-}
-
-impl SimulationModel {
-    /// Check the model: format version, unique non-empty names, known constructs in items, paths
-    /// and cross loadings, an acyclic path graph (the error names one cycle), non-negative
-    /// variances, strictly increasing thresholds, reliabilities in (0, 1], missing rates in
-    /// [0, 1), and a positive-definite error covariance for every group of correlated errors.
-    /// All first-stage problems are reported together, separated by `; `.
-    pub fn validate(&self) -> Result<(), StatsError> {
-        self.resolve().map(|_| ())
+impl Model {
+    /// Checks what only the numbers show: a cycle among the paths, a total variance below what
+    /// the paths explain, an error covariance too large or not positive definite, a variable
+    /// with zero variance. Names, ranges and uniqueness are the caller's checks.
+    pub fn check(&self) -> Result<(), ModelError> {
+        self.truth().map(|_| ())
     }
 
     fn construct_index(&self, name: &str) -> Option<usize> {
         self.constructs.iter().position(|c| c.name == name)
     }
 
-    fn basic_problems(&self) -> Vec<String> {
-        let mut p = Vec::new();
-        if self.simulate != MODEL_FORMAT_VERSION {
-            p.push(format!(
-                "model format version {} is not supported (this build reads version {MODEL_FORMAT_VERSION})",
-                self.simulate
-            ));
-        }
-        if self.constructs.is_empty() {
-            p.push("the model declares no construct".into());
-        }
-        if self.items.is_empty() && self.observed.is_empty() {
-            p.push("the model declares no item and no observed variable".into());
-        }
-        check_rate(&mut p, "model", self.missing);
-
-        let mut seen: Vec<&str> = Vec::new();
-        for c in &self.constructs {
-            if c.name.is_empty() {
-                p.push("a construct has an empty name".into());
-            } else if seen.contains(&c.name.as_str()) {
-                p.push(format!("construct `{}` is declared twice", c.name));
-            }
-            seen.push(&c.name);
-            let what = format!("construct `{}`", c.name);
-            match (c.variance, c.total_variance) {
-                (Some(_), Some(_)) => p.push(format!("{what}: give `variance` or `total_variance`, not both")),
-                (Some(v), None) | (None, Some(v)) => {
-                    check_finite(&mut p, &format!("{what}: variance"), v);
-                    if v < 0.0 {
-                        p.push(format!("{what}: variance {v} is negative"));
-                    }
-                }
-                (None, None) => {}
-            }
-        }
-
-        let mut columns: Vec<(&str, &str)> = Vec::new();
-        if let Some(id) = &self.id {
-            columns.push((&id.name, "the id column"));
-        }
-        for c in &self.constants {
-            columns.push((&c.name, "a constant column"));
-            if let ConstantValue::Number(v) = c.value {
-                check_finite(&mut p, &format!("constant `{}`", c.name), v);
-            }
-        }
-        columns.extend(self.items.iter().map(|it| (it.name.as_str(), "an item")));
-        columns.extend(self.observed.iter().map(|o| (o.name.as_str(), "an observed variable")));
-        for (k, &(name, kind)) in columns.iter().enumerate() {
-            if name.is_empty() {
-                p.push(format!("{kind} has an empty name"));
-            } else if columns[..k].iter().any(|&(other, _)| other == name) {
-                p.push(format!("column `{name}` is declared twice"));
-            }
-        }
-        let variable_names: Vec<&str> =
-            self.items.iter().map(|it| it.name.as_str()).chain(self.observed.iter().map(|o| o.name.as_str())).collect();
-
-        let known = |p: &mut Vec<String>, what: &str, name: &str| {
-            if self.construct_index(name).is_none() {
-                p.push(format!("{what} names unknown construct `{name}`"));
-            }
-        };
-        for (k, path) in self.paths.iter().enumerate() {
-            known(&mut p, "a path", &path.from);
-            known(&mut p, "a path", &path.to);
-            check_finite(&mut p, &format!("path `{}` -> `{}`: coefficient", path.from, path.to), path.coefficient);
-            if self.paths[..k].iter().any(|q| q.from == path.from && q.to == path.to) {
-                p.push(format!("path `{}` -> `{}` is declared twice", path.from, path.to));
-            }
-        }
-        for it in &self.items {
-            let what = format!("item `{}`", it.name);
-            known(&mut p, &what, &it.construct);
-            check_finite(&mut p, &format!("{what}: loading"), it.loading);
-            check_finite(&mut p, &format!("{what}: mean"), it.mean);
-            check_finite(&mut p, &format!("{what}: error variance"), it.error_variance);
-            if it.error_variance < 0.0 {
-                p.push(format!("{what}: error variance {} is negative", it.error_variance));
-            }
-            for (k, cl) in it.cross_loadings.iter().enumerate() {
-                known(&mut p, &what, &cl.construct);
-                check_finite(&mut p, &format!("{what}: cross loading on `{}`", cl.construct), cl.loading);
-                if cl.construct == it.construct || it.cross_loadings[..k].iter().any(|q| q.construct == cl.construct) {
-                    p.push(format!("{what} loads on construct `{}` twice", cl.construct));
-                }
-            }
-            if let Some(t) = &it.thresholds {
-                if t.is_empty() {
-                    p.push(format!("{what}: `thresholds` is empty (give at least one cut point)"));
-                }
-                if t.iter().any(|v| !v.is_finite()) {
-                    p.push(format!("{what}: a threshold is not a finite number"));
-                } else if let Some(w) = t.windows(2).find(|w| w[1] <= w[0]) {
-                    p.push(format!("{what}: thresholds must increase strictly, but {} is followed by {}", w[0], w[1]));
-                }
-            }
-            if let Some(r) = it.missing {
-                check_rate(&mut p, &what, r);
-            }
-        }
-        for o in &self.observed {
-            let what = format!("observed variable `{}`", o.name);
-            known(&mut p, &what, &o.construct);
-            check_finite(&mut p, &format!("{what}: loading"), o.loading);
-            check_finite(&mut p, &format!("{what}: mean"), o.mean);
-            if o.loading == 0.0 {
-                p.push(format!("{what}: loading is zero"));
-            }
-            if !(o.reliability > 0.0 && o.reliability <= 1.0) {
-                p.push(format!("{what}: reliability {} is outside (0, 1]", o.reliability));
-            }
-            if let Some(r) = o.missing {
-                check_rate(&mut p, &what, r);
-            }
-        }
-        for (k, ce) in self.correlated_errors.iter().enumerate() {
-            let [a, b] = &ce.items;
-            for name in [a, b] {
-                if !variable_names.contains(&name.as_str()) {
-                    p.push(format!("a correlated error names unknown item `{name}`"));
-                }
-            }
-            if a == b {
-                p.push(format!("correlated error `{a}` ~ `{b}` pairs an item with itself"));
-            }
-            check_finite(&mut p, &format!("correlated error `{a}` ~ `{b}`: covariance"), ce.covariance);
-            let same =
-                |q: &CorrelatedError| (q.items[0] == *a && q.items[1] == *b) || (q.items[0] == *b && q.items[1] == *a);
-            if self.correlated_errors[..k].iter().any(same) {
-                p.push(format!("correlated error `{a}` ~ `{b}` is declared twice"));
-            }
-        }
-        p
-    }
-
     /// Kahn's algorithm, always taking the ready construct declared first, so the order (and
     /// with it the draw order) depends on the file only. On a cycle, names one.
-    fn topological_order(&self, parents: &[Vec<(usize, f64)>]) -> Result<Vec<usize>, StatsError> {
+    fn topological_order(&self, parents: &[Vec<(usize, f64)>]) -> Result<Vec<usize>, ModelError> {
         let m = self.constructs.len();
         let mut remaining: Vec<usize> = parents.iter().map(Vec::len).collect();
         let mut done = vec![false; m];
         let mut order = Vec::with_capacity(m);
         while order.len() < m {
             let Some(next) = (0..m).find(|&j| !done[j] && remaining[j] == 0) else {
-                return Err(err(format!("structural paths form a cycle: {}", self.find_cycle(parents, &done))));
+                return Err(self.find_cycle(parents, &done));
             };
             done[next] = true;
             order.push(next);
@@ -514,40 +395,34 @@ impl SimulationModel {
 
     /// Among constructs left over by Kahn's algorithm every one has a parent that is left over
     /// too, so walking to such a parent repeatedly must revisit a construct: that loop is a cycle.
-    fn find_cycle(&self, parents: &[Vec<(usize, f64)>], done: &[bool]) -> String {
-        let Some(start) = (0..done.len()).find(|&j| !done[j]) else {
-            return String::new();
-        };
+    fn find_cycle(&self, parents: &[Vec<(usize, f64)>], done: &[bool]) -> ModelError {
+        let start = (0..done.len()).find(|&j| !done[j]).unwrap_or(0);
         let mut walk = vec![start];
         let mut at = start;
+        let mut cycle: Vec<usize> = vec![start, start];
         while let Some(&(p, _)) = parents[at].iter().find(|(p, _)| !done[*p]) {
             if let Some(pos) = walk.iter().position(|&w| w == p) {
                 // The walk runs against the arrows (child to parent); reverse it to read causes first.
-                let mut cycle: Vec<usize> = walk[pos..].to_vec();
+                cycle = walk[pos..].to_vec();
                 cycle.reverse();
                 // Start at the construct declared first, so a cycle always reads the same way.
                 let first = cycle.iter().enumerate().min_by_key(|&(_, &j)| j).map_or(0, |(k, _)| k);
                 cycle.rotate_left(first);
                 cycle.push(cycle[0]);
-                return cycle
-                    .iter()
-                    .map(|&j| format!("`{}`", self.constructs[j].name))
-                    .collect::<Vec<_>>()
-                    .join(" -> ");
+                break;
             }
             walk.push(p);
             at = p;
         }
-        format!("`{}`", self.constructs[start].name)
+        let (from, to) = (&self.constructs[cycle[0]].name, &self.constructs[cycle[1]].name);
+        let path = self.paths.iter().position(|q| &q.from == from && &q.to == to).unwrap_or(0);
+        ModelError::Cycle { constructs: cycle.iter().map(|&j| self.constructs[j].name.clone()).collect(), path }
     }
 
-    fn resolve(&self) -> Result<Resolved, StatsError> {
-        let problems = self.basic_problems();
-        if !problems.is_empty() {
-            return Err(err(problems.join("; ")));
-        }
+    fn resolve(&self) -> Result<Resolved, ModelError> {
         let m = self.constructs.len();
-        let idx = |name: &str| self.construct_index(name).ok_or_else(|| err(format!("unknown construct `{name}`")));
+        let idx =
+            |name: &str| self.construct_index(name).ok_or_else(|| ModelError::UnknownConstruct { name: name.into() });
 
         let mut parents: Vec<Vec<(usize, f64)>> = vec![Vec::new(); m];
         for path in &self.paths {
@@ -575,22 +450,24 @@ impl SimulationModel {
                 .map(|(p, q, w)| w * cov[(p, q)])
                 .sum();
             let c = &self.constructs[j];
-            let psi = match c.total_variance {
-                Some(total) => {
+            let psi = match c.variance {
+                LatentVariance::Total(total) => {
                     if total < explained {
-                        return Err(err(format!(
-                            "construct `{}`: total variance {total} is less than the {explained:.4} its paths explain",
-                            c.name
-                        )));
+                        return Err(ModelError::TotalBelowExplained {
+                            construct: j,
+                            name: c.name.clone(),
+                            total,
+                            explained,
+                        });
                     }
                     total - explained
                 }
-                None => c.variance.unwrap_or(1.0),
+                LatentVariance::Own(v) => v,
             };
             disturbance_sd[j] = psi.sqrt();
             cov[(j, j)] = explained + psi;
             if cov[(j, j)] <= 0.0 {
-                return Err(err(format!("construct `{}` has zero variance", c.name)));
+                return Err(ModelError::ZeroVariance { construct: j, name: c.name.clone() });
             }
         }
 
@@ -627,7 +504,10 @@ impl SimulationModel {
 
         let p = variables.len();
         let var_idx = |name: &str| {
-            variables.iter().position(|v| v.name == name).ok_or_else(|| err(format!("unknown item `{name}`")))
+            variables
+                .iter()
+                .position(|v| v.name == name)
+                .ok_or_else(|| ModelError::UnknownVariable { name: name.into() })
         };
         let mut theta = DMatrix::from_diagonal(&nalgebra::DVector::from_vec(error_var));
         // Union-find over correlated-error pairs: each group is factored on its own, so items
@@ -640,14 +520,17 @@ impl SimulationModel {
             }
             i
         }
-        for ce in &self.correlated_errors {
+        for (index, ce) in self.correlated_errors.iter().enumerate() {
             let (a, b) = (var_idx(&ce.items[0])?, var_idx(&ce.items[1])?);
             let bound = (theta[(a, a)] * theta[(b, b)]).sqrt();
             if ce.covariance.abs() >= bound {
-                return Err(err(format!(
-                    "correlated error `{}` ~ `{}`: covariance {} must be smaller in size than {bound:.4}, the root of the product of their error variances",
-                    ce.items[0], ce.items[1], ce.covariance
-                )));
+                return Err(ModelError::ErrorCovarianceTooLarge {
+                    index,
+                    a: ce.items[0].clone(),
+                    b: ce.items[1].clone(),
+                    covariance: ce.covariance,
+                    bound,
+                });
             }
             theta[(a, b)] = ce.covariance;
             theta[(b, a)] = ce.covariance;
@@ -661,11 +544,14 @@ impl SimulationModel {
                 continue;
             }
             let sub = DMatrix::from_fn(members.len(), members.len(), |r, c| theta[(members[r], members[c])]);
-            let chol = nalgebra::Cholesky::new(sub).ok_or_else(|| StatsError::Singular {
-                what: format!(
-                    "error covariance of {}",
-                    members.iter().map(|&i| format!("`{}`", variables[i].name)).collect::<Vec<_>>().join(", ")
-                ),
+            let chol = nalgebra::Cholesky::new(sub).ok_or_else(|| {
+                let variables: Vec<String> = members.iter().map(|&i| variables[i].name.clone()).collect();
+                let first = self
+                    .correlated_errors
+                    .iter()
+                    .position(|ce| ce.items.iter().any(|n| variables.contains(n)))
+                    .unwrap_or(0);
+                ModelError::NotPositiveDefinite { variables, first }
             })?;
             let l = chol.l();
             for (r, &i) in members.iter().enumerate() {
@@ -696,10 +582,10 @@ impl SimulationModel {
     /// far as rand_distr's ziggurat does: it calls `exp` and `ln` in rare rejection and tail
     /// steps, where a libm differing in the last bit could flip a comparison with probability
     /// of order 1e-16 per draw.
-    pub fn draw(&self, n: usize, seed: u64) -> Result<SimulatedTable, StatsError> {
+    pub fn draw(&self, n: usize, seed: u64) -> Result<SimulatedTable, ModelError> {
         let r = self.resolve()?;
         if n == 0 {
-            return Err(StatsError::NotEnoughData { what: "a simulated table".into(), needed: 1, found: 0 });
+            return Err(ModelError::NoRows);
         }
         let mut values_rng = ChaCha8Rng::seed_from_u64(seed);
         values_rng.set_stream(VALUE_STREAM);
@@ -790,8 +676,8 @@ impl SimulationModel {
     /// l * sd(eta) / sd(x) and paths b * sd(from) / sd(to) (Bollen 1989, ch. 8); error
     /// correlations; reliabilities 1 - theta_ii / sigma_ii. For a coarsened item these refer to
     /// its continuous value, which is what polychoric and polyserial correlations estimate.
-    /// Errors as `validate` does, or `Constant` for a variable with zero variance.
-    pub fn truth(&self) -> Result<Truth, StatsError> {
+    /// Errors as drawing does, or `ConstantVariable` for a variable with zero variance.
+    pub fn truth(&self) -> Result<Truth, ModelError> {
         let r = self.resolve()?;
         let m = self.constructs.len();
         let p = r.variables.len();
@@ -804,7 +690,7 @@ impl SimulationModel {
         let mut sigma = &lambda * &r.latent_cov * lambda.transpose() + &r.theta;
         sigma = (&sigma + sigma.transpose()) * 0.5;
         if let Some(i) = (0..p).find(|&i| sigma[(i, i)] <= 0.0) {
-            return Err(StatsError::Constant { what: format!("variable `{}`", r.variables[i].name) });
+            return Err(ModelError::ConstantVariable { name: r.variables[i].name.clone() });
         }
         let sd_eta: Vec<f64> = (0..m).map(|k| r.latent_cov[(k, k)].sqrt()).collect();
         let sd_x: Vec<f64> = (0..p).map(|i| sigma[(i, i)].sqrt()).collect();
@@ -872,111 +758,83 @@ impl SimulationModel {
     }
 }
 
-fn csv_field(s: &str) -> String {
-    if s.contains([',', '"', '\n', '\r']) { format!("\"{}\"", s.replace('"', "\"\"")) } else { s.to_string() }
-}
-
-impl SimulatedTable {
-    /// Number of rows.
-    pub fn rows(&self) -> usize {
-        self.values.first().map_or(0, Vec::len)
-    }
-
-    /// The table as CSV (RFC 4180 quoting): a header line, then one line per row, each ending
-    /// in `\n`. Integer columns print without decimals, other numbers with `{:.6}` (six digits
-    /// after the point, `-0.000000` written `0.000000`), missing values as empty fields. The
-    /// text depends on the values only, so equal tables always give equal bytes.
-    pub fn csv_string(&self) -> String {
-        let mut out = String::new();
-        out.push_str(&self.columns.iter().map(|c| csv_field(c)).collect::<Vec<_>>().join(","));
-        out.push('\n');
-        let text: Vec<Option<String>> = self.text_labels.iter().map(|t| t.as_deref().map(csv_field)).collect();
-        for row in 0..self.rows() {
-            for (j, col) in self.values.iter().enumerate() {
-                if j > 0 {
-                    out.push(',');
-                }
-                if let Some(Some(label)) = text.get(j) {
-                    out.push_str(label);
-                    continue;
-                }
-                let Some(v) = col[row] else { continue };
-                if self.integer_columns.get(j).copied().unwrap_or(false) {
-                    out.push_str(&format!("{v:.0}"));
-                } else {
-                    let s = format!("{v:.6}");
-                    out.push_str(if s == "-0.000000" { "0.000000" } else { &s });
-                }
-            }
-            out.push('\n');
-        }
-        out
-    }
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;
     use nalgebra::DMatrix;
     use statrs::distribution::{ContinuousCDF, Normal};
 
-    fn parse(yaml: &str) -> SimulationModel {
-        serde_yaml::from_str(yaml).unwrap()
+    use LatentVariance::{Own, Total};
+
+    fn coarse(mut item: Item, thresholds: &[f64]) -> Item {
+        item.thresholds = Some(thresholds.to_vec());
+        item
     }
 
-    fn invalid(yaml: &str) -> String {
-        match parse(yaml).validate() {
-            Err(StatsError::InvalidInput(msg)) => msg,
-            other => panic!("expected an invalid-input error, got {other:?}"),
-        }
+    /// Two constructs, a path, an id and two constant columns, a coarsened item, an observed
+    /// variable and a global missing rate.
+    fn small() -> Model {
+        let mut m = Model { missing: 0.1, ..Model::default() }
+            .construct("a", Own(1.0))
+            .construct("b", Total(1.0))
+            .path("a", "b", 0.6)
+            .item(coarse(Item::new("a1", "a", 0.8, 0.36), &[-0.5, 0.5]))
+            .item(Item::new("a2", "a", 0.7, 0.51))
+            .item(Item::new("b1", "b", 0.9, 0.19))
+            .observed(ObservedVariable::new("s", "b", 0.5));
+        m.id = Some(IdColumn { name: "id".into(), start: 101 });
+        m.constants = vec![
+            ConstantColumn { name: "wave".into(), value: ConstantValue::Text("spring".into()) },
+            ConstantColumn { name: "round".into(), value: ConstantValue::Number(2.0) },
+        ];
+        m
     }
 
-    const SMALL: &str = "
-simulate: 1
-missing: 0.1
-id: {name: id, start: 101}
-constants: [{name: wave, value: spring}, {name: round, value: 2}]
-constructs: [{name: a}, {name: b, total_variance: 1}]
-paths: [{from: a, to: b, coefficient: 0.6}]
-items:
-  - {name: a1, construct: a, loading: 0.8, error_variance: 0.36, thresholds: [-0.5, 0.5]}
-  - {name: a2, construct: a, loading: 0.7, error_variance: 0.51}
-  - {name: b1, construct: b, loading: 0.9, error_variance: 0.19}
-observed: [{name: s, construct: b, reliability: 0.5}]
-";
+    /// A model with every feature: an endogenous construct given by its disturbance variance and
+    /// one by its total variance, a cross loading, a group of three correlated errors (a 3x3
+    /// Cholesky), an observed variable with scale and mean, coarsened items, and a per-item
+    /// missing rate.
+    fn rich() -> Model {
+        let b2 = Item {
+            cross_loadings: vec![CrossLoading { construct: "a".into(), loading: 0.4 }],
+            ..Item::new("b2", "b", 1.2, 0.5)
+        };
+        let b3 =
+            Item { mean: 0.5, missing: Some(0.2), ..coarse(Item::new("b3", "b", 0.9, 0.6), &[-1.5, -0.5, 0.5, 1.5]) };
+        Model { missing: 0.05, ..Model::default() }
+            .construct("a", Own(1.5))
+            .construct("b", Own(0.6))
+            .construct("c", Total(1.0))
+            .path("a", "b", 0.5)
+            .path("b", "c", -0.4)
+            .path("a", "c", 0.3)
+            .item(Item { mean: 3.0, ..Item::new("a1", "a", 1.0, 0.5) })
+            .item(Item::new("a2", "a", 0.8, 0.6))
+            .item(coarse(Item::new("a3", "a", -0.6, 0.7), &[-1.0, 0.0, 0.8]))
+            .item(Item::new("b1", "b", 1.0, 0.4))
+            .item(b2)
+            .item(b3)
+            .item(Item::new("c1", "c", 0.8, 0.36))
+            .item(Item::new("c2", "c", 0.7, 0.51))
+            .item(coarse(Item::new("c3", "c", 0.6, 0.64), &[0.0]))
+            .observed(ObservedVariable { loading: 2.0, mean: 10.0, ..ObservedVariable::new("s", "c", 0.7) })
+            .correlated_error("a2", "c1", 0.2)
+            .correlated_error("c1", "c2", -0.15)
+            .correlated_error("a1", "s", 0.3)
+    }
 
-    // A model with every feature: an endogenous construct given by its disturbance variance and
-    // one by its total variance, a cross loading, a group of three correlated errors (a 3x3
-    // Cholesky), an observed variable with scale and mean, coarsened items, and a per-item
-    // missing rate.
-    const RICH: &str = "
-simulate: 1
-missing: 0.05
-constructs:
-  - {name: a, variance: 1.5}
-  - {name: b, variance: 0.6}
-  - {name: c, total_variance: 1.0}
-paths:
-  - {from: a, to: b, coefficient: 0.5}
-  - {from: b, to: c, coefficient: -0.4}
-  - {from: a, to: c, coefficient: 0.3}
-items:
-  - {name: a1, construct: a, loading: 1.0, error_variance: 0.5, mean: 3}
-  - {name: a2, construct: a, loading: 0.8, error_variance: 0.6}
-  - {name: a3, construct: a, loading: -0.6, error_variance: 0.7, thresholds: [-1.0, 0.0, 0.8]}
-  - {name: b1, construct: b, loading: 1.0, error_variance: 0.4}
-  - {name: b2, construct: b, loading: 1.2, error_variance: 0.5, cross_loadings: [{construct: a, loading: 0.4}]}
-  - {name: b3, construct: b, loading: 0.9, error_variance: 0.6, mean: 0.5, thresholds: [-1.5, -0.5, 0.5, 1.5], missing: 0.2}
-  - {name: c1, construct: c, loading: 0.8, error_variance: 0.36}
-  - {name: c2, construct: c, loading: 0.7, error_variance: 0.51}
-  - {name: c3, construct: c, loading: 0.6, error_variance: 0.64, thresholds: [0.0]}
-observed:
-  - {name: s, construct: c, reliability: 0.7, loading: 2.0, mean: 10}
-correlated_errors:
-  - {items: [a2, c1], covariance: 0.2}
-  - {items: [c1, c2], covariance: -0.15}
-  - {items: [a1, s], covariance: 0.3}
-";
+    /// Row `row` as text, six decimals for non-integer columns: a compact pin of drawn values.
+    fn row_text(t: &SimulatedTable, row: usize) -> String {
+        (0..t.columns.len())
+            .map(|j| match (&t.text_labels[j], t.values[j][row]) {
+                (Some(label), _) => label.clone(),
+                (None, None) => String::new(),
+                (None, Some(v)) if t.integer_columns[j] => format!("{v:.0}"),
+                (None, Some(v)) => format!("{v:.6}"),
+            })
+            .collect::<Vec<_>>()
+            .join(",")
+    }
 
     /// Sigma = Lambda (I-B)^-1 Psi (I-B)^-T Lambda' + Theta (Joreskog 1973; Bollen 1989,
     /// ch. 8) for RICH, with the matrices written out by hand here rather than taken from
@@ -1018,22 +876,22 @@ correlated_errors:
     }
 
     #[test]
-    fn same_seed_gives_identical_csv_and_other_seeds_differ() {
-        let model = parse(SMALL);
-        let first = model.draw(200, 42).unwrap().csv_string();
-        let second = model.draw(200, 42).unwrap().csv_string();
+    fn same_seed_gives_identical_tables_and_other_seeds_differ() {
+        let model = small();
+        let first = model.draw(200, 42).unwrap();
+        let second = model.draw(200, 42).unwrap();
         assert_eq!(first, second);
-        assert_ne!(first, model.draw(200, 43).unwrap().csv_string());
+        assert_ne!(first, model.draw(200, 43).unwrap());
         // Rows are drawn one after another: a longer draw starts with the shorter one.
-        let longer = model.draw(300, 42).unwrap().csv_string();
-        assert!(longer.starts_with(&first));
+        let longer = model.draw(300, 42).unwrap();
+        assert!((0..200).all(|row| row_text(&longer, row) == row_text(&first, row)));
     }
 
     #[test]
     fn draw_follows_the_documented_order() {
         // Replays the draw order documented on `draw` for SMALL by hand: a then b (topological
         // order), then one normal per variable, then one uniform per variable from stream 1.
-        let model = parse(SMALL);
+        let model = small();
         let table = model.draw(4, 1).unwrap();
         let mut values = ChaCha8Rng::seed_from_u64(1);
         values.set_stream(0);
@@ -1062,19 +920,21 @@ correlated_errors:
         // Pinned output of this implementation (rand_chacha 0.9, rand_distr 0.5), not a
         // correctness check: a change here means every seeded data file changes, which needs a
         // changelog line.
+        let rows: Vec<String> = (0..4).map(|row| row_text(&table, row)).collect();
         assert_eq!(
-            table.csv_string(),
-            "id,wave,round,a1,a2,b1,s\n\
-             101,spring,2,2,,-1.288120,-0.501899\n\
-             102,spring,2,3,0.740167,-0.851907,-0.797478\n\
-             103,spring,2,1,-2.085643,-1.098435,0.729545\n\
-             104,spring,2,3,0.969570,0.240455,-1.439642\n"
+            rows,
+            [
+                "101,spring,2,2,,-1.288120,-0.501899",
+                "102,spring,2,3,0.740167,-0.851907,-0.797478",
+                "103,spring,2,1,-2.085643,-1.098435,0.729545",
+                "104,spring,2,3,0.969570,0.240455,-1.439642",
+            ]
         );
     }
 
     #[test]
     fn missing_rate_moves_holes_but_never_values() {
-        let mut model = parse(SMALL);
+        let mut model = small();
         let with_holes = model.draw(500, 9).unwrap();
         model.missing = 0.0;
         let full = model.draw(500, 9).unwrap();
@@ -1087,141 +947,70 @@ correlated_errors:
     }
 
     #[test]
-    fn table_layout_and_csv_format() {
-        let t = parse(SMALL).draw(5, 3).unwrap();
+    fn table_layout() {
+        let t = small().draw(5, 3).unwrap();
         assert_eq!(t.columns, ["id", "wave", "round", "a1", "a2", "b1", "s"]);
         assert_eq!(t.integer_columns, [true, false, true, true, false, false, false]);
         assert_eq!(t.analysed_columns, [false, false, false, true, true, true, true]);
         assert_eq!(t.text_labels[1].as_deref(), Some("spring"));
         assert_eq!(t.rows(), 5);
-        let csv = t.csv_string();
-        let lines: Vec<&str> = csv.lines().collect();
-        assert_eq!(lines[0], "id,wave,round,a1,a2,b1,s");
-        assert!(lines[1].starts_with("101,spring,2,"));
-        assert!(lines[5].starts_with("105,spring,2,"));
-        for line in &lines[1..] {
-            let f: Vec<&str> = line.split(',').collect();
-            assert_eq!(f.len(), 7);
-            assert!(f[3].is_empty() || ["1", "2", "3"].contains(&f[3]));
-            for v in &f[4..] {
-                // `{:.6}`: six digits after the point, or an empty field.
-                assert!(v.is_empty() || v.split('.').nth(1).is_some_and(|d| d.len() == 6), "{v}");
-            }
-        }
+        assert_eq!(t.values[0], [Some(101.0), Some(102.0), Some(103.0), Some(104.0), Some(105.0)]);
+        assert!(t.values[3].iter().flatten().all(|v| [1.0, 2.0, 3.0].contains(v)));
+    }
 
-        let hand = SimulatedTable {
-            columns: vec!["x".into(), "label, quoted".into(), "k".into()],
-            values: vec![vec![Some(-1e-9), None], vec![None, None], vec![Some(3.0), None]],
-            integer_columns: vec![false, false, true],
-            text_labels: vec![None, Some("say \"hi\"".into()), None],
-            analysed_columns: vec![true, false, true],
+    #[test]
+    fn a_cycle_is_named_with_the_path_that_starts_it() {
+        let base = || {
+            Model::default()
+                .construct("a", Own(1.0))
+                .construct("b", Own(1.0))
+                .construct("c", Own(1.0))
+                .construct("d", Own(1.0))
+                .item(Item::new("x", "a", 1.0, 1.0))
         };
-        assert_eq!(hand.csv_string(), "x,\"label, quoted\",k\n0.000000,\"say \"\"hi\"\"\",3\n,\"say \"\"hi\"\"\",\n");
+        let m = base().path("d", "a", 1.0).path("a", "b", 1.0).path("b", "c", 1.0).path("c", "a", 1.0);
+        let e = m.check().unwrap_err();
+        assert_eq!(e, ModelError::Cycle { constructs: vec!["a".into(), "b".into(), "c".into(), "a".into()], path: 1 });
+        assert_eq!(e.to_string(), "structural paths form a cycle: `a` -> `b` -> `c` -> `a`");
+        let e = base().path("b", "b", 0.5).check().unwrap_err();
+        assert_eq!(e, ModelError::Cycle { constructs: vec!["b".into(), "b".into()], path: 0 });
     }
 
     #[test]
-    fn validation_names_the_cycle() {
-        let base = "simulate: 1\nitems: [{name: x, construct: a, loading: 1, error_variance: 1}]\n\
-                    constructs: [{name: a}, {name: b}, {name: c}, {name: d}]\n";
-        let msg = invalid(&format!(
-            "{base}paths: [{{from: d, to: a, coefficient: 1}}, {{from: a, to: b, coefficient: 1}}, \
-             {{from: b, to: c, coefficient: 1}}, {{from: c, to: a, coefficient: 1}}]"
-        ));
-        assert_eq!(msg, "structural paths form a cycle: `a` -> `b` -> `c` -> `a`");
-        let msg = invalid(&format!("{base}paths: [{{from: b, to: b, coefficient: 0.5}}]"));
-        assert_eq!(msg, "structural paths form a cycle: `b` -> `b`");
-    }
+    fn derived_quantities_are_checked() {
+        let m = Model::default()
+            .construct("a", Own(1.0))
+            .construct("b", Total(0.5))
+            .path("a", "b", 0.9)
+            .item(Item::new("x", "b", 1.0, 1.0));
+        let e = m.check().unwrap_err();
+        assert!(matches!(e, ModelError::TotalBelowExplained { construct: 1, total: 0.5, .. }), "{e:?}");
+        assert_eq!(e.to_string(), "construct `b`: total variance 0.5 is less than the 0.8100 its paths explain");
 
-    #[test]
-    fn validation_reports_every_basic_problem() {
-        let msg = invalid(
-            "simulate: 1
-missing: 1.0
-constructs: [{name: a, variance: -1}, {name: b, variance: 1, total_variance: 1}]
-paths: [{from: a, to: zz, coefficient: 1}]
-items:
-  - {name: x, construct: nope, loading: 1, error_variance: -0.5, thresholds: [0, 0]}
-  - {name: y, construct: a, loading: 1, error_variance: 1, thresholds: [], missing: -0.1,
-     cross_loadings: [{construct: a, loading: 0.2}, {construct: other, loading: 0.1}]}
-  - {name: x, construct: a, loading: 1, error_variance: 1, thresholds: [1, 0.5]}
-observed: [{name: s, construct: a, reliability: 1.5}]
-correlated_errors: [{items: [x, ghost], covariance: 0.1}]
-",
-        );
-        let expected = [
-            "model: missing rate 1 is outside [0, 1)",
-            "construct `a`: variance -1 is negative",
-            "construct `b`: give `variance` or `total_variance`, not both",
-            "column `x` is declared twice",
-            "a path names unknown construct `zz`",
-            "item `x` names unknown construct `nope`",
-            "item `x`: error variance -0.5 is negative",
-            "item `x`: thresholds must increase strictly, but 0 is followed by 0",
-            "item `y` loads on construct `a` twice",
-            "item `y` names unknown construct `other`",
-            "item `y`: `thresholds` is empty (give at least one cut point)",
-            "item `y`: missing rate -0.1 is outside [0, 1)",
-            "item `x`: thresholds must increase strictly, but 1 is followed by 0.5",
-            "observed variable `s`: reliability 1.5 is outside (0, 1]",
-            "a correlated error names unknown item `ghost`",
-        ];
-        assert_eq!(msg, expected.join("; "));
-    }
-
-    #[test]
-    fn validation_of_derived_quantities() {
-        let msg = invalid(
-            "simulate: 1
-constructs: [{name: a, variance: 1}, {name: b, total_variance: 0.5}]
-paths: [{from: a, to: b, coefficient: 0.9}]
-items: [{name: x, construct: b, loading: 1, error_variance: 1}]
-",
-        );
-        assert_eq!(msg, "construct `b`: total variance 0.5 is less than the 0.8100 its paths explain");
-        let msg = invalid(
-            "simulate: 1
-constructs: [{name: a}]
-items: [{name: x, construct: a, loading: 1, error_variance: 0.25}, {name: y, construct: a, loading: 1, error_variance: 1}]
-correlated_errors: [{items: [x, y], covariance: 0.5}]
-",
-        );
-        assert!(
-            msg.starts_with("correlated error `x` ~ `y`: covariance 0.5 must be smaller in size than 0.5000"),
-            "{msg}"
-        );
+        let two = Model::default()
+            .construct("a", Own(1.0))
+            .item(Item::new("x", "a", 1.0, 0.25))
+            .item(Item::new("y", "a", 1.0, 1.0))
+            .item(Item::new("z", "a", 1.0, 1.0));
+        let e = two.clone().correlated_error("x", "y", 0.5).check().unwrap_err();
+        assert!(matches!(e, ModelError::ErrorCovarianceTooLarge { index: 0, bound, .. } if bound == 0.5), "{e:?}");
         // Pairwise-admissible covariances whose 3x3 matrix is not positive definite.
-        let model = parse(
-            "simulate: 2
-constructs: [{name: a}]
-items:
-  - {name: x, construct: a, loading: 1, error_variance: 1}
-  - {name: y, construct: a, loading: 1, error_variance: 1}
-  - {name: z, construct: a, loading: 1, error_variance: 1}
-correlated_errors: [{items: [x, y], covariance: 0.9}, {items: [y, z], covariance: 0.9}, {items: [x, z], covariance: -0.9}]
-",
+        let e = two
+            .correlated_error("x", "y", 0.4)
+            .correlated_error("y", "z", 0.9)
+            .correlated_error("x", "z", -0.4)
+            .check()
+            .unwrap_err();
+        assert_eq!(
+            e,
+            ModelError::NotPositiveDefinite { variables: vec!["x".into(), "y".into(), "z".into()], first: 0 }
         );
-        assert!(
-            matches!(model.validate(), Err(StatsError::InvalidInput(m)) if m.starts_with("model format version 2"))
-        );
-        let mut model = model;
-        model.simulate = 1;
-        assert_eq!(model.validate(), Err(StatsError::Singular { what: "error covariance of `x`, `y`, `z`".into() }));
-        assert!(matches!(parse(SMALL).draw(0, 1), Err(StatsError::NotEnoughData { .. })));
-    }
-
-    #[test]
-    fn unknown_keys_are_rejected() {
-        let r: Result<SimulationModel, _> = serde_yaml::from_str(
-            "simulate: 1\nconstructs: [{name: a, varience: 1}]\nitems: [{name: x, construct: a, loading: 1, error_variance: 1}]",
-        );
-        assert!(r.unwrap_err().to_string().contains("unknown field `varience`"));
-        let r: Result<SimulationModel, _> = serde_yaml::from_str("simulate: 1\nconstructs: []\nsamples: 3");
-        assert!(r.is_err());
+        assert_eq!(small().draw(0, 1), Err(ModelError::NoRows));
     }
 
     #[test]
     fn truth_matches_path_tracing_by_hand() {
-        let t = parse(RICH).truth().unwrap();
+        let t = rich().truth().unwrap();
         // Path tracing (Wright 1921): var(b) = 0.5^2 1.5 + 0.6 = 0.975, cov(a, b) = 0.75,
         // cov(a, c) = 0.3 1.5 - 0.4 0.75 = 0.15, cov(b, c) = 0.3 0.75 - 0.4 0.975 = -0.165.
         let c = &t.latent_covariance;
@@ -1250,7 +1039,7 @@ correlated_errors: [{items: [x, y], covariance: 0.9}, {items: [y, z], covariance
 
     #[test]
     fn large_sample_recovers_covariance_proportions_and_missing_rate() {
-        let model = parse(RICH);
+        let model = rich();
         let n = 50_000;
         let table = model.draw(n, 20_250_101).unwrap();
         let (sigma, means) = rich_sigma();
@@ -1303,56 +1092,6 @@ correlated_errors: [{items: [x, y], covariance: 0.9}, {items: [y, z], covariance
             let rate = if i == 5 { 0.2 } else { 0.05 };
             let missing = table.values[col(name)].iter().filter(|v| v.is_none()).count() as f64 / n as f64;
             assert!((missing - rate).abs() < 0.005, "{name}: {missing}");
-        }
-    }
-
-    #[test]
-    fn documented_examples_parse_and_validate() {
-        let docs = [include_str!("../../../docs/simulate.md"), include_str!("simulate.rs")];
-        for (k, text) in docs.iter().enumerate() {
-            // The first YAML block of each: the user guide's minimal model, then the one in the
-            // doc comment of `SimulationModel` (with its `/// ` prefixes removed).
-            let text = if k == 1 {
-                text.lines()
-                    .filter_map(|l| l.strip_prefix("/// ").or(l.strip_prefix("///")))
-                    .collect::<Vec<_>>()
-                    .join("\n")
-            } else {
-                text.to_string()
-            };
-            let start = text.find("```yaml\n").unwrap() + 8;
-            let end = start + text[start..].find("```").unwrap();
-            let model = parse(&text[start..end]);
-            model.validate().unwrap();
-            assert_eq!(model.draw(20, 1).unwrap().rows(), 20);
-        }
-    }
-
-    #[test]
-    fn demo_model_parses_validates_and_draws() {
-        let model = parse(include_str!("../../../pipelines/transit/model.yaml"));
-        model.validate().unwrap();
-        let truth = model.truth().unwrap();
-        let items = truth.variables.len();
-        assert!((21..=25).contains(&items));
-        for l in truth.loadings.iter().filter(|l| l.main) {
-            assert!((0.6 - 1e-9..=0.85 + 1e-9).contains(&l.standardized.abs()), "{}: {}", l.variable, l.standardized);
-        }
-        assert_eq!(truth.impure, ["cr5", "tr6", "in2"]);
-        let fare = truth.reliabilities.iter().find(|r| r.variable == "fare_share").unwrap();
-        assert!((fare.reliability - 0.7).abs() < 1e-12);
-        // Standardized constructs: every latent variance is 1.
-        assert!((0..5).all(|k| (truth.latent_covariance[(k, k)] - 1.0).abs() < 1e-12));
-
-        let table = model.draw(model.n, model.seed).unwrap();
-        assert_eq!(table.rows(), 600);
-        assert_eq!(&table.columns[..2], ["rider_id", "wave"]);
-        assert_eq!(table.values[0][599], Some(600.0));
-        for (j, name) in table.columns.iter().enumerate().skip(2) {
-            let present = table.values[j].iter().flatten();
-            if table.integer_columns[j] {
-                assert!(present.clone().all(|&v| (1.0..=5.0).contains(&v) && v.fract() == 0.0), "{name}");
-            }
         }
     }
 }

@@ -11,7 +11,8 @@ use construe_stats::cluster::{ClusterOptions, find_clusters};
 use construe_stats::moments::{Deletion, pearson};
 use construe_stats::purify::{PurifyOptions, purify};
 use construe_stats::sem::{FitOptions, Identification, Matrix, SemModel};
-use construe_stats::simulate::SimulationModel;
+use construe_stats::simulate::LatentVariance::{Own, Total};
+use construe_stats::simulate::{CrossLoading, Item, Model};
 use construe_stats::testkit;
 use construe_stats::tetrad::{TetradTestKind, TetradTester};
 
@@ -88,44 +89,42 @@ fn two_factor_cfa_on_ability_cov_matches_scipy() {
 // correlation of 0.4. Item indices: a1..a5 = 0..4, b = 5..9, c = 10..14, d = 15..19;
 // a5 = 4, c3 = 12, d3 = 17.
 
-const RECOVERY_MODEL: &str = "
-simulate: 1
-constructs:
-  - {name: g, variance: 1}
-  - {name: a, total_variance: 1}
-  - {name: b, total_variance: 1}
-  - {name: c, total_variance: 1}
-  - {name: d, total_variance: 1}
-paths:
-  - {from: g, to: a, coefficient: 0.5477225575051661}
-  - {from: g, to: b, coefficient: 0.5477225575051661}
-  - {from: g, to: c, coefficient: 0.5477225575051661}
-  - {from: g, to: d, coefficient: 0.5477225575051661}
-items:
-  - {name: a1, construct: a, loading: 0.8, error_variance: 0.36}
-  - {name: a2, construct: a, loading: 0.75, error_variance: 0.4375}
-  - {name: a3, construct: a, loading: 0.7, error_variance: 0.51}
-  - {name: a4, construct: a, loading: 0.65, error_variance: 0.5775}
-  - {name: a5, construct: a, loading: 0.6, error_variance: 0.64,
-     cross_loadings: [{construct: b, loading: 0.4}]}
-  - {name: b1, construct: b, loading: 0.8, error_variance: 0.36}
-  - {name: b2, construct: b, loading: 0.75, error_variance: 0.4375}
-  - {name: b3, construct: b, loading: 0.7, error_variance: 0.51}
-  - {name: b4, construct: b, loading: 0.65, error_variance: 0.5775}
-  - {name: b5, construct: b, loading: 0.6, error_variance: 0.64}
-  - {name: c1, construct: c, loading: 0.8, error_variance: 0.36}
-  - {name: c2, construct: c, loading: 0.75, error_variance: 0.4375}
-  - {name: c3, construct: c, loading: 0.7, error_variance: 0.51}
-  - {name: c4, construct: c, loading: 0.65, error_variance: 0.5775}
-  - {name: c5, construct: c, loading: 0.6, error_variance: 0.64}
-  - {name: d1, construct: d, loading: 0.8, error_variance: 0.36}
-  - {name: d2, construct: d, loading: 0.75, error_variance: 0.4375}
-  - {name: d3, construct: d, loading: 0.7, error_variance: 0.51}
-  - {name: d4, construct: d, loading: 0.65, error_variance: 0.5775}
-  - {name: d5, construct: d, loading: 0.6, error_variance: 0.64}
-correlated_errors:
-  - {items: [c3, d3], covariance: 0.204}
-";
+fn recovery_model() -> Model {
+    Model::default()
+        .construct("g", Own(1.0))
+        .construct("a", Total(1.0))
+        .construct("b", Total(1.0))
+        .construct("c", Total(1.0))
+        .construct("d", Total(1.0))
+        .path("g", "a", 0.5477225575051661)
+        .path("g", "b", 0.5477225575051661)
+        .path("g", "c", 0.5477225575051661)
+        .path("g", "d", 0.5477225575051661)
+        .item(Item::new("a1", "a", 0.8, 0.36))
+        .item(Item::new("a2", "a", 0.75, 0.4375))
+        .item(Item::new("a3", "a", 0.7, 0.51))
+        .item(Item::new("a4", "a", 0.65, 0.5775))
+        .item(Item {
+            cross_loadings: vec![CrossLoading { construct: "b".into(), loading: 0.4 }],
+            ..Item::new("a5", "a", 0.6, 0.64)
+        })
+        .item(Item::new("b1", "b", 0.8, 0.36))
+        .item(Item::new("b2", "b", 0.75, 0.4375))
+        .item(Item::new("b3", "b", 0.7, 0.51))
+        .item(Item::new("b4", "b", 0.65, 0.5775))
+        .item(Item::new("b5", "b", 0.6, 0.64))
+        .item(Item::new("c1", "c", 0.8, 0.36))
+        .item(Item::new("c2", "c", 0.75, 0.4375))
+        .item(Item::new("c3", "c", 0.7, 0.51))
+        .item(Item::new("c4", "c", 0.65, 0.5775))
+        .item(Item::new("c5", "c", 0.6, 0.64))
+        .item(Item::new("d1", "d", 0.8, 0.36))
+        .item(Item::new("d2", "d", 0.75, 0.4375))
+        .item(Item::new("d3", "d", 0.7, 0.51))
+        .item(Item::new("d4", "d", 0.65, 0.5775))
+        .item(Item::new("d5", "d", 0.6, 0.64))
+        .correlated_error("c3", "d3", 0.204)
+}
 
 const CROSS_LOADER: usize = 4;
 const PAIR: [usize; 2] = [12, 17];
@@ -153,7 +152,7 @@ struct Recovery {
     clusters_exact: bool,
 }
 
-fn replicate(model: &SimulationModel, seed: u64) -> Recovery {
+fn replicate(model: &Model, seed: u64) -> Recovery {
     let columns = model.draw(RECOVERY_N, seed).unwrap().values;
     let s = pearson(&columns, Deletion::Listwise).unwrap().covariance;
 
@@ -185,7 +184,7 @@ fn replicate(model: &SimulationModel, seed: u64) -> Recovery {
 /// Rates over `replicates` draws with seeds `base_seed`, `base_seed + 1`, ...:
 /// (impure dropped, pure kept, clusters recovered, clusters exact).
 fn recovery_rates(replicates: u64, base_seed: u64) -> [f64; 4] {
-    let model: SimulationModel = serde_yaml::from_str(RECOVERY_MODEL).unwrap();
+    let model = recovery_model();
     let mut counts = [0usize; 4];
     for r in 0..replicates {
         let out = replicate(&model, base_seed + r);

@@ -2,7 +2,7 @@
 //! the latent route (CFA, latent moments, Wald tests, PC) does instead: a noisy or coarsened
 //! proxy of a common cause leaves a false dependence; the latent model removes it; the search
 //! recovers a chain with a collider; the Wald test holds its level under a measurement model.
-//! Test-only (declared `#[cfg(test)]`); every data set is drawn by `simulate` from a YAML model
+//! Test-only (declared `#[cfg(test)]`); every data set is drawn by `simulate` from a model declared in code
 //! with a fixed seed. The long calibrations are `#[ignore]`d; docs/pitfalls.md has the numbers.
 
 use nalgebra::DMatrix;
@@ -10,14 +10,11 @@ use nalgebra::DMatrix;
 use construe_stats::moments::{Deletion, pearson};
 use construe_stats::search::{CiTest, FisherZ, Knowledge, PcOptions, PcResult, WaldPartial, pc};
 use construe_stats::sem::{FitOptions, Identification, Matrix, SemFit, SemModel};
-use construe_stats::simulate::SimulationModel;
-
-fn model(yaml: &str) -> SimulationModel {
-    serde_yaml::from_str(yaml).unwrap()
-}
+use construe_stats::simulate::LatentVariance::{Own, Total};
+use construe_stats::simulate::{Item, Model, ObservedVariable};
 
 /// Columns of a simulated table (all analysed; no missing values in these models).
-fn draw(model: &SimulationModel, n: usize, seed: u64) -> Vec<Vec<Option<f64>>> {
+fn draw(model: &Model, n: usize, seed: u64) -> Vec<Vec<Option<f64>>> {
     model.draw(n, seed).unwrap().values
 }
 
@@ -61,30 +58,26 @@ fn has_directed(result: &PcResult, from: usize, to: usize) -> bool {
 // Column order: z1, z2, z3, x, y, z_true.
 // ---------------------------------------------------------------------------------------------
 
-const PROXY_MODEL: &str = "
-simulate: 1
-constructs:
-  - {name: z, variance: 1}
-  - {name: x, total_variance: 1}
-  - {name: y, total_variance: 1}
-paths:
-  - {from: z, to: x, coefficient: 0.5}
-  - {from: z, to: y, coefficient: 0.5}
-items:
-  - {name: z1, construct: z, loading: 0.7, error_variance: 0.51}
-  - {name: z2, construct: z, loading: 0.65, error_variance: 0.5775}
-  - {name: z3, construct: z, loading: 0.6, error_variance: 0.64}
-observed:
-  - {name: x, construct: x, reliability: 1}
-  - {name: y, construct: y, reliability: 1}
-  - {name: z_true, construct: z, reliability: 1}
-";
+fn proxy_model() -> Model {
+    Model::default()
+        .construct("z", Own(1.0))
+        .construct("x", Total(1.0))
+        .construct("y", Total(1.0))
+        .path("z", "x", 0.5)
+        .path("z", "y", 0.5)
+        .item(Item::new("z1", "z", 0.7, 0.51))
+        .item(Item::new("z2", "z", 0.65, 0.5775))
+        .item(Item::new("z3", "z", 0.6, 0.64))
+        .observed(ObservedVariable::new("x", "x", 1.0))
+        .observed(ObservedVariable::new("y", "y", 1.0))
+        .observed(ObservedVariable::new("z_true", "z", 1.0))
+}
 
 const PROXY_N: usize = 5_000;
 const PROXY_SEED: u64 = 1_101;
 
 fn proxy_columns() -> Vec<Vec<Option<f64>>> {
-    draw(&model(PROXY_MODEL), PROXY_N, PROXY_SEED)
+    draw(&proxy_model(), PROXY_N, PROXY_SEED)
 }
 
 /// Fisher-z test of x ⊥ y given one conditioning column, from the 3 x 3 sample covariance.
@@ -188,42 +181,39 @@ fn latent_model_of_the_noisy_items_recovers_no_direct_effect() {
 // The true CPDAG is A - B, B -> C, D -> C.
 // ---------------------------------------------------------------------------------------------
 
-const CHAIN_MODEL: &str = "
-simulate: 1
-constructs:
-  - {name: a, variance: 1}
-  - {name: b, total_variance: 1}
-  - {name: c, total_variance: 1}
-  - {name: d, variance: 1}
-paths:
-  - {from: a, to: b, coefficient: 0.5}
-  - {from: b, to: c, coefficient: 0.4}
-  - {from: d, to: c, coefficient: 0.4}
-items:
-  - {name: a1, construct: a, loading: 0.8, error_variance: 0.36}
-  - {name: a2, construct: a, loading: 0.75, error_variance: 0.4375}
-  - {name: a3, construct: a, loading: 0.7, error_variance: 0.51}
-  - {name: a4, construct: a, loading: 0.65, error_variance: 0.5775}
-  - {name: b1, construct: b, loading: 0.8, error_variance: 0.36}
-  - {name: b2, construct: b, loading: 0.75, error_variance: 0.4375}
-  - {name: b3, construct: b, loading: 0.7, error_variance: 0.51}
-  - {name: b4, construct: b, loading: 0.65, error_variance: 0.5775}
-  - {name: c1, construct: c, loading: 0.8, error_variance: 0.36}
-  - {name: c2, construct: c, loading: 0.75, error_variance: 0.4375}
-  - {name: c3, construct: c, loading: 0.7, error_variance: 0.51}
-  - {name: c4, construct: c, loading: 0.65, error_variance: 0.5775}
-  - {name: d1, construct: d, loading: 0.8, error_variance: 0.36}
-  - {name: d2, construct: d, loading: 0.75, error_variance: 0.4375}
-  - {name: d3, construct: d, loading: 0.7, error_variance: 0.51}
-  - {name: d4, construct: d, loading: 0.65, error_variance: 0.5775}
-";
+fn chain_model() -> Model {
+    Model::default()
+        .construct("a", Own(1.0))
+        .construct("b", Total(1.0))
+        .construct("c", Total(1.0))
+        .construct("d", Own(1.0))
+        .path("a", "b", 0.5)
+        .path("b", "c", 0.4)
+        .path("d", "c", 0.4)
+        .item(Item::new("a1", "a", 0.8, 0.36))
+        .item(Item::new("a2", "a", 0.75, 0.4375))
+        .item(Item::new("a3", "a", 0.7, 0.51))
+        .item(Item::new("a4", "a", 0.65, 0.5775))
+        .item(Item::new("b1", "b", 0.8, 0.36))
+        .item(Item::new("b2", "b", 0.75, 0.4375))
+        .item(Item::new("b3", "b", 0.7, 0.51))
+        .item(Item::new("b4", "b", 0.65, 0.5775))
+        .item(Item::new("c1", "c", 0.8, 0.36))
+        .item(Item::new("c2", "c", 0.75, 0.4375))
+        .item(Item::new("c3", "c", 0.7, 0.51))
+        .item(Item::new("c4", "c", 0.65, 0.5775))
+        .item(Item::new("d1", "d", 0.8, 0.36))
+        .item(Item::new("d2", "d", 0.75, 0.4375))
+        .item(Item::new("d3", "d", 0.7, 0.51))
+        .item(Item::new("d4", "d", 0.65, 0.5775))
+}
 
 const CHAIN_N: usize = 1_000;
 
 /// Over `replicates` data sets (seeds base, base + 1, ...): how many gave exactly the true
 /// skeleton and how many oriented B -> C <- D.
 fn chain_recovery(replicates: u64, base_seed: u64) -> (usize, usize) {
-    let m = model(CHAIN_MODEL);
+    let m = chain_model();
     let groups: Vec<Vec<usize>> = (0..4).map(|k| (4 * k..4 * k + 4).collect()).collect();
     let (mut skeletons, mut colliders) = (0, 0);
     for r in 0..replicates {
@@ -275,33 +265,30 @@ fn search_on_latent_moments_recovers_chain_and_collider_long() {
 // reported beside it: it ignores that the latent correlation is estimated from noisy items.
 // ---------------------------------------------------------------------------------------------
 
-const NULL_MODEL: &str = "
-simulate: 1
-constructs:
-  - {name: l1, variance: 1}
-  - {name: l2, total_variance: 1}
-  - {name: l3, total_variance: 1}
-paths:
-  - {from: l1, to: l2, coefficient: 0.5}
-  - {from: l2, to: l3, coefficient: 0.5}
-items:
-  - {name: p1, construct: l1, loading: 0.8, error_variance: 0.36}
-  - {name: p2, construct: l1, loading: 0.7, error_variance: 0.51}
-  - {name: p3, construct: l1, loading: 0.6, error_variance: 0.64}
-  - {name: q1, construct: l2, loading: 0.8, error_variance: 0.36}
-  - {name: q2, construct: l2, loading: 0.7, error_variance: 0.51}
-  - {name: q3, construct: l2, loading: 0.6, error_variance: 0.64}
-  - {name: s1, construct: l3, loading: 0.8, error_variance: 0.36}
-  - {name: s2, construct: l3, loading: 0.7, error_variance: 0.51}
-  - {name: s3, construct: l3, loading: 0.6, error_variance: 0.64}
-";
+fn null_model() -> Model {
+    Model::default()
+        .construct("l1", Own(1.0))
+        .construct("l2", Total(1.0))
+        .construct("l3", Total(1.0))
+        .path("l1", "l2", 0.5)
+        .path("l2", "l3", 0.5)
+        .item(Item::new("p1", "l1", 0.8, 0.36))
+        .item(Item::new("p2", "l1", 0.7, 0.51))
+        .item(Item::new("p3", "l1", 0.6, 0.64))
+        .item(Item::new("q1", "l2", 0.8, 0.36))
+        .item(Item::new("q2", "l2", 0.7, 0.51))
+        .item(Item::new("q3", "l2", 0.6, 0.64))
+        .item(Item::new("s1", "l3", 0.8, 0.36))
+        .item(Item::new("s2", "l3", 0.7, 0.51))
+        .item(Item::new("s3", "l3", 0.6, 0.64))
+}
 
 const NULL_N: usize = 500;
 const NULL_SEED: u64 = 3_000;
 
 /// Rejections at alpha 0.05 of L1 ⊥ L3 | L2 over `cases` data sets: (Wald, Fisher z at n).
 fn null_rejections(cases: u64, base_seed: u64) -> (usize, usize) {
-    let m = model(NULL_MODEL);
+    let m = null_model();
     let groups: Vec<Vec<usize>> = (0..3).map(|k| (3 * k..3 * k + 3).collect()).collect();
     let (mut wald_rej, mut fisher_rej) = (0, 0);
     for r in 0..cases {
