@@ -516,6 +516,23 @@ mod tests {
     use super::*;
     use crate::steps::{read_exact, write_exact};
 
+    /// Pairwise: the table's codes go to the estimator borrowed, not copied; listwise, values
+    /// and levels that differ from the categories are mapped to category positions.
+    #[test]
+    fn ordinal_codes_are_borrowed_when_they_already_fit() {
+        let col = DataColumn::Codes { levels: vec![1.0, 2.0, 4.0], codes: vec![0, 2, MISSING, 1] };
+        let DataColumn::Codes { codes, .. } = &col else { unreachable!() };
+        let cats = [1.0, 2.0, 4.0];
+        let Cow::Borrowed(b) = ordinal_codes(&col, &cats, None) else { panic!("copied") };
+        assert!(std::ptr::eq(b, codes.as_slice()));
+        let listwise = ordinal_codes(&col, &cats, Some(&[true, false, true, true]));
+        assert_eq!(listwise.as_ref(), &[0, MISSING, MISSING, 1]);
+        let wider = ordinal_codes(&col, &[0.0, 1.0, 2.0, 4.0], None);
+        assert_eq!(wider.as_ref(), &[1, 3, MISSING, 2]);
+        let values = DataColumn::Values(vec![4.0, f64::NAN, 1.0, 2.0]);
+        assert_eq!(ordinal_codes(&values, &cats, None).as_ref(), &[2, MISSING, 0, 1]);
+    }
+
     // results.json keys stay `"a|b"`; the artifact keeps both names, so pairs whose names
     // contain `|` (`x|y` with `z`, `x` with `y|z`: both "x|y|z" as text) stay two pairs.
     #[test]
