@@ -123,6 +123,8 @@ analyses:
     let case = Case::new().spec(spec).file("w1.csv", csv);
     case.run(["run", "spec.yaml"])
         .failure(1)
-        .stderr_contains("item `z` is listed as ordinal but has 300 distinct values; an ordinal item can have at most 254")
+        .stderr_contains(
+            "item `z` is listed as ordinal but has 300 distinct values; an ordinal item can have at most 254",
+        )
         .no_report();
 }

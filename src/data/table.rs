@@ -448,7 +448,8 @@ mod tests {
         let last = bad.len() - 1;
         bad[last] = 7;
         assert!(Table::from_bytes(&bad).is_none());
-        let empty = Table { items: vec!["a".into()], waves: vec!["w".into()], wave_of_row: vec![], columns: vec![built(&[])] };
+        let empty =
+            Table { items: vec!["a".into()], waves: vec!["w".into()], wave_of_row: vec![], columns: vec![built(&[])] };
         assert_eq!(Table::from_bytes(&empty.to_bytes()).unwrap(), empty);
     }
 

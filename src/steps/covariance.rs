@@ -12,8 +12,8 @@ use serde_json::{Value, json};
 
 use super::load::{ItemKind, LoadOutput};
 use super::{Artifact, Inputs, Step, StepError, StepKind};
-use crate::data::table::{Column as DataColumn, MISSING};
 use crate::data::Table;
+use crate::data::table::{Column as DataColumn, MISSING};
 use crate::spec::types::{CovarianceSpec, MatrixKind, Missing, OrdinalEstimation};
 use construe_stats::mixed::{self, Column, mixed_correlation};
 use construe_stats::moments::{Deletion, pearson_columns, sample_variance};
@@ -320,9 +320,8 @@ impl CovarianceStep {
 /// An ordinal item's codes as positions in `categories` (its observed levels, from `load`),
 /// missing outside the `complete` rows: the table's own codes, borrowed, when they already are.
 fn ordinal_codes<'a>(col: &'a DataColumn, categories: &[f64], complete: Option<&[bool]>) -> Cow<'a, [u8]> {
-    let position = |v: f64| {
-        categories.iter().position(|&l| l == v).and_then(|i| u8::try_from(i).ok()).unwrap_or(MISSING)
-    };
+    let position =
+        |v: f64| categories.iter().position(|&l| l == v).and_then(|i| u8::try_from(i).ok()).unwrap_or(MISSING);
     match col {
         DataColumn::Codes { levels, codes } => {
             if complete.is_none() && levels.as_slice() == categories {

@@ -264,7 +264,7 @@ impl LoadStep {
             return Ok(());
         }
         col.map_values(|v| {
-            if self.missing_codes.iter().any(|c| *c == v) {
+            if self.missing_codes.contains(&v) {
                 return Ok(f64::NAN);
             }
             match reverse {
@@ -768,7 +768,11 @@ mod tests {
             let counts: Vec<usize> = distinct.iter().map(|d| present.iter().filter(|v| *v == d).count()).collect();
             for p in [0.05, 0.95] {
                 let want = safe_percentile(&mut present, p);
-                assert_eq!(counted_percentile(&distinct, &counts, p).map(f64::to_bits), want.map(f64::to_bits), "{n} {p}");
+                assert_eq!(
+                    counted_percentile(&distinct, &counts, p).map(f64::to_bits),
+                    want.map(f64::to_bits),
+                    "{n} {p}"
+                );
             }
         }
     }

@@ -108,11 +108,7 @@ pub fn mixed_correlation(columns: &[Column<'_>], fit: OrdinalFit) -> Result<Mixe
     let results: Vec<Result<PairEstimate, StatsError>> = pairs
         .par_iter()
         .map(|&(i, j)| {
-            pair_estimate(columns, i, j, fit).map_err(|e| StatsError::Pair {
-                first: i,
-                second: j,
-                source: Box::new(e),
-            })
+            pair_estimate(columns, i, j, fit).map_err(|e| StatsError::Pair { first: i, second: j, source: Box::new(e) })
         })
         .collect();
     let mut matrix = DMatrix::<f64>::identity(p, p);
