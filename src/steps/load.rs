@@ -465,7 +465,7 @@ struct Shape {
     n: usize,
     /// Distinct present values, ascending.
     distinct: Vec<f64>,
-    /// Answers per distinct value.
+    /// Answers per distinct value (empty beyond `MAX_CODED_LEVELS` levels).
     counts: Vec<usize>,
     /// Mean and sample variance (divisor n - 1), summed in row order.
     moments: (f64, f64),
@@ -486,14 +486,19 @@ impl Shape {
         Shape::from_rows(|| codes.iter().filter(|&&c| c != MISSING).map(|&c| levels[c as usize]), held)
     }
 
+    /// Level counts only for items with few levels (the only ones that can be ordinal): a
+    /// continuous item's percentiles come from selection, not counts.
     fn from_rows<I: Iterator<Item = f64>>(present: impl Fn() -> I, distinct: Vec<f64>) -> Shape {
-        let mut counts = vec![0usize; distinct.len()];
+        let count = distinct.len() <= MAX_CODED_LEVELS;
+        let mut counts = vec![0usize; if count { distinct.len() } else { 0 }];
         let mut n = 0;
         for v in present() {
             n += 1;
-            let v = v + 0.0;
-            if let Ok(k) = distinct.binary_search_by(|x| x.total_cmp(&v)) {
-                counts[k] += 1;
+            if count {
+                let v = v + 0.0;
+                if let Ok(k) = distinct.binary_search_by(|x| x.total_cmp(&v)) {
+                    counts[k] += 1;
+                }
             }
         }
         let mean = present().sum::<f64>() / n as f64;
