@@ -53,7 +53,7 @@ pub fn run(path: &Path, cache: &Cache, log: &mut dyn Log) -> Result<RunSummary, 
     if let Some(Artifact::Load(load)) = execution.artifacts.get(&StepKind::Load)
         && let Some(table) = &load.table
     {
-        let findings = data_lints(&spec, &table.items, table.rows(), &|k, r| table.columns[k][r]);
+        let findings = data_lints(&spec, &table.items, table.rows(), &|k, r| table.columns[k].get(r));
         for d in spec.diagnose(findings).diagnostics {
             log.warn(d.to_string().trim_end().trim_start_matches("warning: "));
         }

@@ -1,12 +1,14 @@
-//! Streaming CSV reading: one record at a time, only the wanted columns converted to `f64`.
-//! Central functions: `header` and `numeric_columns`. Why not polars here: read as text it held
+//! Streaming CSV reading: one record at a time, only the wanted columns converted to numbers.
+//! Central functions: `header` and `columns`. Why not polars here: read as text it held
 //! every column of the file (about 8x the file size); this reader keeps only the numbers asked
-//! for. Records are read as bytes, so a non-UTF-8 cell fails only if it is a wanted value, and
+//! for, each item built adaptively (`table::ColumnBuilder`): one byte per answer while it has at
+//! most 254 distinct values, `f64` from the first row that exceeds that. Records are read as bytes, so a non-UTF-8 cell fails only if it is a wanted value, and
 //! each record knows the physical line it starts on, even after a multi-line quoted field.
 
 use std::fs::File;
 use std::path::Path;
 
+use super::table::{Column, ColumnBuilder};
 use super::{DataError, echo, read_error};
 
 /// Bytes the reader buffers at a time.
@@ -73,6 +75,11 @@ fn cell(bytes: &[u8]) -> Result<f64, CellError> {
 
 /// The wanted columns as numbers (NaN = missing), in the order asked.
 pub fn numeric_columns(path: &Path, wanted: &[String]) -> Result<Vec<Vec<f64>>, DataError> {
+    Ok(columns(path, wanted)?.into_iter().map(Column::into_values).collect())
+}
+
+/// The wanted columns in their compact form, in the order asked.
+pub fn columns(path: &Path, wanted: &[String]) -> Result<Vec<Column>, DataError> {
     let mut reader = open(path)?;
     let names = names(path, &mut reader)?;
     let index: Vec<usize> = wanted
@@ -84,7 +91,7 @@ pub fn numeric_columns(path: &Path, wanted: &[String]) -> Result<Vec<Vec<f64>>, 
                 .ok_or_else(|| DataError::MissingColumn { path: path.to_path_buf(), column: w.clone() })
         })
         .collect::<Result<_, _>>()?;
-    let mut columns: Vec<Vec<f64>> = vec![Vec::new(); wanted.len()];
+    let mut columns: Vec<ColumnBuilder> = wanted.iter().map(|_| ColumnBuilder::new()).collect();
     let mut record = csv::ByteRecord::new();
     let mut row = 0usize;
     while reader.read_byte_record(&mut record).map_err(|e| csv_error(path, e))? {
@@ -118,9 +125,8 @@ pub fn numeric_columns(path: &Path, wanted: &[String]) -> Result<Vec<Vec<f64>>, 
     if row == 0 {
         return Err(DataError::NoDataRows { path: path.to_path_buf() });
     }
-    // Growth by doubling may leave up to half a column unused; give it back.
-    columns.iter_mut().for_each(Vec::shrink_to_fit);
-    Ok(columns)
+    // `finish` gives back what growth by doubling left unused.
+    Ok(columns.into_iter().map(ColumnBuilder::finish).collect())
 }
 
 #[cfg(test)]

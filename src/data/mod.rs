@@ -1,7 +1,8 @@
 //! Reading survey files (CSV, Parquet) and published summary matrices into plain numbers.
 //! Central type: `DataError`. CSV is streamed by `csv_file` (only the wanted columns are kept);
-//! Parquet goes through polars, and only this module talks to polars. Everything downstream
-//! sees `Vec<f64>` columns with NaN for missing values. Errors name the file, the 1-based data
+//! Parquet goes through polars, and only this module talks to polars. `load` receives
+//! `table::Column`s (few-level items as one-byte codes, others as `f64` with NaN for missing);
+//! `read_numeric_columns` gives plain `Vec<f64>` columns. Errors name the file, the 1-based data
 //! row (and CSV line) and the column; data text they echo is cut to `ECHO_CHARS` characters.
 //! Every file is opened through `fsguard` first, so a FIFO or device is refused, never read.
 
@@ -19,7 +20,7 @@ use crate::spec::diagnostic::plural;
 use thiserror::Error;
 
 pub use matrix::MatrixProblem;
-pub use table::Table;
+pub use table::{Column, Table};
 
 /// Most characters of a data value echoed in a message.
 pub const ECHO_CHARS: usize = 40;
@@ -68,6 +69,10 @@ pub enum DataError {
     EmptyItem { item: String },
     #[error("item `{item}` has value {value} outside its reverse range [{lo}, {hi}] (`{}` row {row})", path.display())]
     OutsideReverseRange { item: String, value: f64, lo: f64, hi: f64, path: PathBuf, row: usize },
+    #[error(
+        "item `{item}` is listed as ordinal but has {levels} distinct values; an ordinal item can have at most {max} (list it as continuous instead)"
+    )]
+    TooManyLevels { item: String, levels: usize, max: usize },
     #[error("item `{item}` is listed as ordinal but has non-integer value {value}")]
     NonIntegerOrdinal { item: String, value: f64 },
     #[error("matrix file `{}` {problem}", path.display())]
@@ -132,14 +137,24 @@ pub fn column_names(path: &Path) -> Result<Vec<String>, DataError> {
 pub fn read_numeric_columns(path: &Path, wanted: &[String]) -> Result<Vec<Vec<f64>>, DataError> {
     guarded(path, || match FileKind::of(path) {
         Some(FileKind::Csv) => csv_file::numeric_columns(path, wanted),
-        Some(FileKind::Parquet) => read_parquet_columns(path, wanted),
+        Some(FileKind::Parquet) => read_parquet_columns(path, wanted, |v| v),
+        None => Err(DataError::Unsupported { path: path.to_path_buf() }),
+    })
+}
+
+/// One file's requested columns in compact form, in the order asked. CSV is built compact row by
+/// row; Parquet columns are read as numbers and compacted one at a time.
+pub fn read_columns(path: &Path, wanted: &[String]) -> Result<Vec<Column>, DataError> {
+    guarded(path, || match FileKind::of(path) {
+        Some(FileKind::Csv) => csv_file::columns(path, wanted),
+        Some(FileKind::Parquet) => read_parquet_columns(path, wanted, table::compact),
         None => Err(DataError::Unsupported { path: path.to_path_buf() }),
     })
 }
 
 /// Parquet is columnar: reading one column at a time keeps at most one column in polars' form
 /// beside the numbers already converted, so peak memory stays near the size of the items read.
-fn read_parquet_columns(path: &Path, wanted: &[String]) -> Result<Vec<Vec<f64>>, DataError> {
+fn read_parquet_columns<C>(path: &Path, wanted: &[String], shape: impl Fn(Vec<f64>) -> C) -> Result<Vec<C>, DataError> {
     let file = open_data(path)?;
     parquet_footer::check_footer(path).map_err(|e| read_error(path, e))?;
     let schema = ParquetReader::new(file).schema().map_err(|e| read_error(path, e))?;
@@ -156,13 +171,13 @@ fn read_parquet_columns(path: &Path, wanted: &[String]) -> Result<Vec<Vec<f64>>,
             let column = df
                 .column(name)
                 .map_err(|_| DataError::MissingColumn { path: path.to_path_buf(), column: name.clone() })?;
-            numeric_values(path, name, column.as_materialized_series())
+            numeric_values(path, name, column.as_materialized_series()).map(|v| (v.is_empty(), shape(v)))
         })
         .collect::<Result<Vec<_>, _>>()?;
-    if columns.first().is_some_and(Vec::is_empty) {
+    if columns.first().is_some_and(|c| c.0) {
         return Err(DataError::NoDataRows { path: path.to_path_buf() });
     }
-    Ok(columns)
+    Ok(columns.into_iter().map(|c| c.1).collect())
 }
 
 /// A Parquet column as numbers: text is parsed (empty and `NA` are missing), numbers are cast;

@@ -3,6 +3,8 @@
 //! check naming the items behind a singular or indefinite matrix.
 //! Central type: `CovarianceOutput` (the `covariance` block of results.json).
 
+use std::borrow::Cow;
+
 use indexmap::IndexMap;
 use nalgebra::DMatrix;
 use serde::{Deserialize, Serialize};
@@ -11,6 +13,7 @@ use serde_json::{Value, json};
 use super::load::{ItemKind, LoadOutput};
 use super::{Artifact, Inputs, Step, StepError, StepKind};
 use crate::data::Table;
+use crate::data::table::{Column as DataColumn, MISSING};
 use crate::spec::types::{CovarianceSpec, MatrixKind, Missing, OrdinalEstimation};
 use construe_stats::mixed::{self, Column, mixed_correlation};
 use construe_stats::moments::{Deletion, pearson_columns, sample_variance};
@@ -21,7 +24,8 @@ use construe_stats::smoothing::{self, smooth_correlation};
 /// v2: polychoric / polyserial correlations for ordinal items, smoothing. v3: all-continuous
 /// data take one product-moment pass (last-digit differences in correlations). v4: blocked
 /// cross-products on shifted data (last-digit differences again). v5: item pairs stored as
-/// typed `ItemPair`s (the artifact's bytes changed; results.json did not).
+/// typed `ItemPair`s (the artifact's bytes changed; results.json did not). (v6 unchanged by the
+/// compact table of load v4: the ordinal codes are borrowed, the figures are bit-identical.)
 pub const VERSION: u32 = 6;
 
 /// Two items of the matrix, `first` before `second` in item order: the key of every per-pair
@@ -223,23 +227,30 @@ impl CovarianceStep {
         if kinds.iter().all(|k| *k == ItemKind::Continuous) {
             return self.product_moment_estimates(table);
         }
-        let complete: Vec<bool> = match self.missing {
-            Missing::Pairwise => vec![true; table.rows()],
-            Missing::Listwise => (0..table.rows()).map(|r| table.columns.iter().all(|c| !c[r].is_nan())).collect(),
+        // Listwise deletion: the rows where every item is present (`None` for pairwise).
+        let complete: Option<Vec<bool>> = match self.missing {
+            Missing::Pairwise => None,
+            Missing::Listwise => {
+                Some((0..table.rows()).map(|r| table.columns.iter().all(|c| !c.is_missing(r))).collect())
+            }
+        };
+        // One item as numbers, NaN outside the complete rows: borrowed where nothing changes.
+        let masked = |k: usize| -> Cow<'_, [f64]> {
+            match &complete {
+                None => table.columns[k].values(),
+                Some(c) => {
+                    let col = &table.columns[k];
+                    Cow::Owned((0..table.rows()).map(|r| if c[r] { col.get(r) } else { f64::NAN }).collect())
+                }
+            }
         };
         let columns: Vec<Column> = (0..p)
-            .map(|k| {
-                let values =
-                    table.columns[k].iter().zip(&complete).map(|(&v, &keep)| (keep && !v.is_nan()).then_some(v));
-                match (&kinds[k], &load.summary.items[k].categories) {
-                    (ItemKind::Ordinal, Some(levels)) => Column::Ordinal {
-                        codes: values
-                            .map(|v| v.and_then(|v| levels.iter().position(|&l| l == v)).map(|i| i as u32))
-                            .collect(),
-                        levels: levels.len(),
-                    },
-                    _ => Column::Continuous(values.collect()),
-                }
+            .map(|k| match (&kinds[k], &load.summary.items[k].categories) {
+                (ItemKind::Ordinal, Some(levels)) => Column::Ordinal {
+                    codes: ordinal_codes(&table.columns[k], levels, complete.as_deref()),
+                    levels: levels.len(),
+                },
+                _ => Column::Continuous(masked(k)),
             })
             .collect();
         let fit = match self.ordinal {
@@ -248,24 +259,17 @@ impl CovarianceStep {
         };
         let mixed = mixed_correlation(&columns, fit)
             .map_err(|source| StepError::Stats { context: pair_context(items, &source), source })?;
+        drop(columns);
         // Product moments only where they are used: among continuous items (so their
         // covariances equal the usual sample covariances), and each item's own variance.
-        // Listwise deletion spans every item, ordinal ones included: mask the continuous
-        // columns to the complete rows (pairwise needs no copy).
-        let masked = |k: usize| -> Vec<f64> {
-            table.columns[k].iter().zip(&complete).map(|(&v, &keep)| if keep { v } else { f64::NAN }).collect()
-        };
+        // Listwise deletion spans every item, ordinal ones included: the continuous columns
+        // are masked to the complete rows (pairwise borrows them).
         let cont: Vec<usize> = (0..p).filter(|&k| kinds[k] == ItemKind::Continuous).collect();
-        let deletion = self.deletion();
         let moments = if cont.is_empty() {
             None
         } else {
-            let copies: Vec<Vec<f64>> =
-                if deletion == Deletion::Listwise { cont.iter().map(|&k| masked(k)).collect() } else { Vec::new() };
-            let cols: Vec<&[f64]> = match deletion {
-                Deletion::Listwise => copies.iter().map(Vec::as_slice).collect(),
-                Deletion::Pairwise => cont.iter().map(|&k| table.columns[k].as_slice()).collect(),
-            };
+            let copies: Vec<Cow<'_, [f64]>> = cont.iter().map(|&k| masked(k)).collect();
+            let cols: Vec<&[f64]> = copies.iter().map(AsRef::as_ref).collect();
             Some(
                 pearson_columns(&cols, Deletion::Pairwise)
                     .map_err(|source| StepError::Stats { context: "product-moment covariances".into(), source })?,
@@ -313,6 +317,36 @@ impl CovarianceStep {
     }
 }
 
+/// An ordinal item's codes as positions in `categories` (its observed levels, from `load`),
+/// missing outside the `complete` rows: the table's own codes, borrowed, when they already are.
+fn ordinal_codes<'a>(col: &'a DataColumn, categories: &[f64], complete: Option<&[bool]>) -> Cow<'a, [u8]> {
+    let position =
+        |v: f64| categories.iter().position(|&l| l == v).and_then(|i| u8::try_from(i).ok()).unwrap_or(MISSING);
+    match col {
+        DataColumn::Codes { levels, codes } => {
+            if complete.is_none() && levels.as_slice() == categories {
+                return Cow::Borrowed(codes);
+            }
+            let remap: Vec<u8> = levels.iter().map(|&l| position(l)).collect();
+            let keep = |r: usize| complete.is_none_or(|c| c[r]);
+            Cow::Owned(
+                codes
+                    .iter()
+                    .enumerate()
+                    .map(|(r, &c)| if c == MISSING || !keep(r) { MISSING } else { remap[c as usize] })
+                    .collect(),
+            )
+        }
+        DataColumn::Values(values) => Cow::Owned(
+            values
+                .iter()
+                .enumerate()
+                .map(|(r, &v)| if v.is_nan() || !complete.is_none_or(|c| c[r]) { MISSING } else { position(v) })
+                .collect(),
+        ),
+    }
+}
+
 impl CovarianceStep {
     /// The moment routines' name for the spec's missing-data rule.
     fn deletion(&self) -> Deletion {
@@ -327,7 +361,9 @@ impl CovarianceStep {
     fn product_moment_estimates(&self, table: &Table) -> Result<Estimates, StepError> {
         let p = table.items.len();
         let deletion = self.deletion();
-        let columns: Vec<&[f64]> = table.columns.iter().map(Vec::as_slice).collect();
+        // Coded continuous items (few distinct values) are expanded here, one copy each.
+        let values: Vec<Cow<'_, [f64]>> = table.columns.iter().map(DataColumn::values).collect();
+        let columns: Vec<&[f64]> = values.iter().map(AsRef::as_ref).collect();
         let m = pearson_columns(&columns, deletion)
             .map_err(|source| StepError::Stats { context: "product-moment covariances".into(), source })?;
         let n = (0..p).map(|r| (0..p).map(|c| m.n[(r, c)]).collect()).collect();
@@ -478,6 +514,23 @@ impl Step for CovarianceStep {
 mod tests {
     use super::*;
     use crate::steps::{read_exact, write_exact};
+
+    /// Pairwise: the table's codes go to the estimator borrowed, not copied; listwise, values
+    /// and levels that differ from the categories are mapped to category positions.
+    #[test]
+    fn ordinal_codes_are_borrowed_when_they_already_fit() {
+        let col = DataColumn::Codes { levels: vec![1.0, 2.0, 4.0], codes: vec![0, 2, MISSING, 1] };
+        let DataColumn::Codes { codes, .. } = &col else { unreachable!() };
+        let cats = [1.0, 2.0, 4.0];
+        let Cow::Borrowed(b) = ordinal_codes(&col, &cats, None) else { panic!("copied") };
+        assert!(std::ptr::eq(b, codes.as_slice()));
+        let listwise = ordinal_codes(&col, &cats, Some(&[true, false, true, true]));
+        assert_eq!(listwise.as_ref(), &[0, MISSING, MISSING, 1]);
+        let wider = ordinal_codes(&col, &[0.0, 1.0, 2.0, 4.0], None);
+        assert_eq!(wider.as_ref(), &[1, 3, MISSING, 2]);
+        let values = DataColumn::Values(vec![4.0, f64::NAN, 1.0, 2.0]);
+        assert_eq!(ordinal_codes(&values, &cats, None).as_ref(), &[2, MISSING, 0, 1]);
+    }
 
     // results.json keys stay `"a|b"`; the artifact keeps both names, so pairs whose names
     // contain `|` (`x|y` with `z`, `x` with `y|z`: both "x|y|z" as text) stay two pairs.

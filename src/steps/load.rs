@@ -14,13 +14,15 @@ use serde_json::{Value, json};
 
 use super::{Artifact, Inputs, Step, StepError, StepKind};
 use crate::data::matrix::{check_positive_definite, read_matrix};
-use crate::data::{DataError, Table, read_numeric_columns};
+use crate::data::table::{MAX_CODED_LEVELS, MISSING};
+use crate::data::{Column, DataError, Table, read_columns};
 use crate::spec::SpecFile;
 use crate::spec::types::{AUTO_MAX_LEVELS, MatrixKind, OrdinalSpec};
 
 /// Bump when the loaded table or summary changes for the same files and parameters.
 /// 3: the summary drops each item's minimum and maximum for disclosure-safe aggregates.
-pub const VERSION: u32 = 3;
+/// 4: the table holds few-level items as one-byte codes (same values, new encoding).
+pub const VERSION: u32 = 4;
 
 /// Fewest respondents behind any published value of an item summary: a response level with
 /// fewer is pooled with its neighbour, a percentile with fewer beyond it is not shown. Five
@@ -222,22 +224,18 @@ impl LoadStep {
 
     fn load_waves(&self) -> Result<LoadOutput, StepError> {
         let names = self.item_names();
-        let mut columns: Vec<Vec<f64>> = vec![Vec::new(); names.len()];
+        let mut columns: Vec<Column> = names.iter().map(|_| Column::Values(Vec::new())).collect();
         let mut wave_of_row = Vec::new();
         let mut waves = Vec::new();
         for (w, wave) in self.waves.iter().enumerate() {
-            let mut cols = read_numeric_columns(&wave.path, &names)?;
-            let rows = cols.first().map_or(0, Vec::len);
+            let mut cols = read_columns(&wave.path, &names)?;
+            let rows = cols.first().map_or(0, Column::len);
             // Items are independent: recode them in parallel, report the first failing item.
             let recoded: Vec<Result<(), DataError>> =
                 cols.par_iter_mut().zip(&names).map(|(col, name)| self.recode(name, col, &wave.path)).collect();
             recoded.into_iter().collect::<Result<(), _>>()?;
             for (all, col) in columns.iter_mut().zip(cols) {
-                if all.is_empty() {
-                    *all = col;
-                } else {
-                    all.extend(col);
-                }
+                all.append(col);
             }
             wave_of_row.extend(std::iter::repeat_n(w as u32, rows));
             waves.push(WaveSummary { id: wave.id.clone(), file: wave.shown.clone(), rows });
@@ -258,41 +256,43 @@ impl LoadStep {
         })
     }
 
-    /// Missing codes become NaN; reversed items become lowest + highest - value.
-    fn recode(&self, item: &str, col: &mut [f64], path: &std::path::Path) -> Result<(), DataError> {
+    /// Missing codes become missing; reversed items become lowest + highest - value. A coded
+    /// column is recoded through its levels, not row by row.
+    fn recode(&self, item: &str, col: &mut Column, path: &std::path::Path) -> Result<(), DataError> {
         let reverse = self.reverse.get(item).copied();
-        for (row, v) in col.iter_mut().enumerate() {
-            if v.is_nan() {
-                continue;
-            }
-            if self.missing_codes.iter().any(|c| c == v) {
-                *v = f64::NAN;
-                continue;
-            }
-            if let Some([lo, hi]) = reverse {
-                if *v < lo || *v > hi {
-                    return Err(DataError::OutsideReverseRange {
-                        item: item.into(),
-                        value: *v,
-                        lo,
-                        hi,
-                        path: path.into(),
-                        row: row + 1,
-                    });
-                }
-                *v = lo + hi - *v;
-            }
+        if self.missing_codes.is_empty() && reverse.is_none() {
+            return Ok(());
         }
-        Ok(())
+        col.map_values(|v| {
+            if self.missing_codes.contains(&v) {
+                return Ok(f64::NAN);
+            }
+            match reverse {
+                Some([lo, hi]) if v < lo || v > hi => Err((v, lo, hi)),
+                Some([lo, hi]) => Ok(lo + hi - v),
+                None => Ok(v),
+            }
+        })
+        .map_err(|(row, (value, lo, hi))| DataError::OutsideReverseRange {
+            item: item.into(),
+            value,
+            lo,
+            hi,
+            path: path.into(),
+            row: row + 1,
+        })
     }
 
-    fn summarise(&self, name: &str, construct: &str, col: &[f64]) -> Result<ItemSummary, DataError> {
-        let mut present: Vec<f64> = col.iter().copied().filter(|v| !v.is_nan()).collect();
-        let n = present.len();
+    fn summarise(&self, name: &str, construct: &str, col: &Column) -> Result<ItemSummary, DataError> {
+        let shape = match col {
+            Column::Values(v) => Shape::of_values(v),
+            Column::Codes { levels, codes } => Shape::of_codes(levels, codes),
+        };
+        let n = shape.n;
         if n == 0 {
             return Err(DataError::EmptyItem { item: name.into() });
         }
-        let distinct = distinct_values(&present);
+        let distinct = &shape.distinct;
         if distinct.len() == 1 {
             return Err(DataError::ConstantItem { item: name.into(), value: distinct[0] });
         }
@@ -303,22 +303,40 @@ impl LoadStep {
                 if let Some(v) = distinct.iter().find(|v| v.fract() != 0.0) {
                     return Err(DataError::NonIntegerOrdinal { item: name.into(), value: *v });
                 }
+                if distinct.len() > MAX_CODED_LEVELS {
+                    return Err(DataError::TooManyLevels {
+                        item: name.into(),
+                        levels: distinct.len(),
+                        max: MAX_CODED_LEVELS,
+                    });
+                }
                 ItemKind::Ordinal
             }
             _ => ItemKind::Continuous,
         };
-        let mean = present.iter().sum::<f64>() / n as f64;
-        let var = present.iter().map(|v| (v - mean).powi(2)).sum::<f64>() / (n as f64 - 1.0).max(1.0);
+        let (mean, var) = shape.moments;
         if !var.is_finite() {
             return Err(DataError::Overflow { item: name.into() });
         }
         let (p5, p95, responses) = match kind {
-            ItemKind::Continuous => (
-                safe_percentile(&mut present, 0.05).map(|v| round_significant(v, PERCENTILE_DIGITS)),
-                safe_percentile(&mut present, 0.95).map(|v| round_significant(v, PERCENTILE_DIGITS)),
-                None,
-            ),
-            ItemKind::Ordinal => (None, None, Some(response_groups(&present, &distinct))),
+            ItemKind::Continuous => {
+                let (p5, p95) = match col {
+                    Column::Values(v) => {
+                        let mut present: Vec<f64> = v.iter().copied().filter(|v| !v.is_nan()).collect();
+                        (safe_percentile(&mut present, 0.05), safe_percentile(&mut present, 0.95))
+                    }
+                    Column::Codes { .. } => (
+                        counted_percentile(distinct, &shape.counts, 0.05),
+                        counted_percentile(distinct, &shape.counts, 0.95),
+                    ),
+                };
+                (
+                    p5.map(|v| round_significant(v, PERCENTILE_DIGITS)),
+                    p95.map(|v| round_significant(v, PERCENTILE_DIGITS)),
+                    None,
+                )
+            }
+            ItemKind::Ordinal => (None, None, Some(pooled_groups(&shape.counts, distinct))),
         };
         Ok(ItemSummary {
             name: name.into(),
@@ -441,6 +459,79 @@ impl Step for LoadStep {
     }
 }
 
+/// What `summarise` needs of one item's present values.
+struct Shape {
+    /// Present values.
+    n: usize,
+    /// Distinct present values, ascending.
+    distinct: Vec<f64>,
+    /// Answers per distinct value (empty beyond `MAX_CODED_LEVELS` levels).
+    counts: Vec<usize>,
+    /// Mean and sample variance (divisor n - 1), summed in row order.
+    moments: (f64, f64),
+}
+
+impl Shape {
+    fn of_values(col: &[f64]) -> Shape {
+        let present = || col.iter().copied().filter(|v| !v.is_nan());
+        Shape::from_rows(present, distinct_values(&present().collect::<Vec<_>>()))
+    }
+
+    /// The same sums over the same values in the same row order as `of_values`, so the
+    /// figures are bit-identical; levels no row holds are left out.
+    fn of_codes(levels: &[f64], codes: &[u8]) -> Shape {
+        let mut counts = vec![0usize; levels.len()];
+        codes.iter().filter(|&&c| c != MISSING).for_each(|&c| counts[c as usize] += 1);
+        let held: Vec<f64> = levels.iter().zip(&counts).filter(|(_, c)| **c > 0).map(|(l, _)| *l).collect();
+        Shape::from_rows(|| codes.iter().filter(|&&c| c != MISSING).map(|&c| levels[c as usize]), held)
+    }
+
+    /// Level counts only for items with few levels (the only ones that can be ordinal): a
+    /// continuous item's percentiles come from selection, not counts.
+    fn from_rows<I: Iterator<Item = f64>>(present: impl Fn() -> I, distinct: Vec<f64>) -> Shape {
+        let count = distinct.len() <= MAX_CODED_LEVELS;
+        let mut counts = vec![0usize; if count { distinct.len() } else { 0 }];
+        let mut n = 0;
+        for v in present() {
+            n += 1;
+            if count {
+                let v = v + 0.0;
+                if let Ok(k) = distinct.binary_search_by(|x| x.total_cmp(&v)) {
+                    counts[k] += 1;
+                }
+            }
+        }
+        let mean = present().sum::<f64>() / n as f64;
+        let var = present().map(|v| (v - mean).powi(2)).sum::<f64>() / (n as f64 - 1.0).max(1.0);
+        Shape { n, distinct, counts, moments: (mean, var) }
+    }
+}
+
+/// `safe_percentile` from the sorted distinct values and their counts: the same order
+/// statistics, found by cumulative counts instead of selection.
+fn counted_percentile(distinct: &[f64], counts: &[usize], p: f64) -> Option<f64> {
+    let n: usize = counts.iter().sum();
+    if n == 0 {
+        return None;
+    }
+    let h = (n - 1) as f64 * p;
+    let lo = h.floor() as usize;
+    let beyond = if p < 0.5 { lo + 1 } else { n - h.ceil() as usize };
+    if beyond < MIN_GROUP {
+        return None;
+    }
+    let order = |i: usize| {
+        let mut seen = 0;
+        distinct.iter().zip(counts).find_map(|(v, c)| {
+            seen += c;
+            (i < seen).then_some(*v)
+        })
+    };
+    let below = order(lo)?;
+    let next = if lo + 1 < n { order(lo + 1)? } else { below };
+    Some(below + (h - lo as f64) * (next - below))
+}
+
 /// `x` rounded to `digits` significant digits (0, NaN and infinities unchanged). The power of
 /// ten is applied by multiplying or dividing by an exact integer power, so 96882 to 2 digits
 /// is exactly 97000.
@@ -486,6 +577,7 @@ fn safe_percentile(values: &mut [f64], p: f64) -> Option<f64> {
 
 /// Counts of each level in `distinct` (sorted) among `present`, pooled bottom-up into groups
 /// of at least `MIN_GROUP` respondents; a short last group joins the one before it.
+#[cfg(test)]
 fn response_groups(present: &[f64], distinct: &[f64]) -> Vec<ResponseGroup> {
     let mut counts = vec![0usize; distinct.len()];
     for v in present {
@@ -494,6 +586,11 @@ fn response_groups(present: &[f64], distinct: &[f64]) -> Vec<ResponseGroup> {
             counts[k] += 1;
         }
     }
+    pooled_groups(&counts, distinct)
+}
+
+/// `counts` of each level in `distinct` (sorted), pooled as `response_groups` describes.
+fn pooled_groups(counts: &[usize], distinct: &[f64]) -> Vec<ResponseGroup> {
     // Groups as index ranges into `distinct`.
     let mut spans: Vec<(usize, usize, usize)> = Vec::new();
     let mut start = 0;
@@ -626,6 +723,63 @@ mod tests {
         // Fewer than MIN_GROUP answers in all: one group, no bounds.
         let groups = response_groups(&[1.0, 2.0, 2.0], &[1.0, 2.0]);
         assert_eq!(groups, vec![ResponseGroup { from: None, to: None, count: 3, label: "all".into() }]);
+    }
+
+    fn step(ordinal: OrdinalSpec) -> LoadStep {
+        let mut reverse = IndexMap::new();
+        reverse.insert("r".to_string(), [1.0, 7.0]);
+        LoadStep { waves: Vec::new(), matrix: None, items: Vec::new(), missing_codes: vec![-9.0], ordinal, reverse }
+    }
+
+    /// Coded and plain columns of the same answers give bit-identical summaries after the same
+    /// recoding (ordinal, continuous with percentiles, reversed, with missing codes).
+    #[test]
+    fn coded_and_plain_columns_summarise_identically() {
+        let path = std::path::Path::new("w.csv");
+        let data: [(&str, Vec<f64>); 3] = [
+            ("o", (0..400).map(|i| if i % 9 == 0 { -9.0 } else { f64::from((i * 7) % 5 + 1) }).collect()),
+            ("c", (0..400).map(|i| if i % 11 == 0 { f64::NAN } else { f64::from((i * 13) % 40) / 3.0 }).collect()),
+            ("r", (0..400).map(|i| if i % 10 == 0 { -9.0 } else { f64::from((i * 3) % 7 + 1) }).collect()),
+        ];
+        for ordinal in [OrdinalSpec::Auto, OrdinalSpec::Items(vec!["o".into()])] {
+            let load = step(ordinal);
+            for (name, values) in &data {
+                let mut plain = Column::Values(values.clone());
+                let mut coded = crate::data::table::compact(values.clone());
+                assert!(matches!(coded, Column::Codes { .. }));
+                load.recode(name, &mut plain, path).unwrap();
+                load.recode(name, &mut coded, path).unwrap();
+                let a = load.summarise(name, "k", &plain).unwrap();
+                let b = load.summarise(name, "k", &coded).unwrap();
+                assert_eq!(a, b, "{name}");
+                assert_eq!(a.categories, b.categories);
+                assert_eq!(a.mean.map(f64::to_bits), b.mean.map(f64::to_bits));
+            }
+        }
+        // Out of the reverse range: the same first row is named.
+        let values = vec![2.0, 3.0, 9.0, 1.0, 8.0];
+        let load = step(OrdinalSpec::Auto);
+        let e1 = load.recode("r", &mut Column::Values(values.clone()), path).unwrap_err().to_string();
+        let e2 = load.recode("r", &mut crate::data::table::compact(values), path).unwrap_err().to_string();
+        assert_eq!(e1, e2);
+        assert!(e1.contains("value 9 outside its reverse range [1, 7] (`w.csv` row 3)"), "{e1}");
+    }
+
+    #[test]
+    fn counted_percentiles_equal_selected_ones() {
+        for n in [1usize, 4, 5, 80, 81, 100, 101, 257] {
+            let mut present: Vec<f64> = (0..n).map(|i| f64::from(((i * 37) % 23) as u32) * 0.25).collect();
+            let distinct = distinct_values(&present);
+            let counts: Vec<usize> = distinct.iter().map(|d| present.iter().filter(|v| *v == d).count()).collect();
+            for p in [0.05, 0.95] {
+                let want = safe_percentile(&mut present, p);
+                assert_eq!(
+                    counted_percentile(&distinct, &counts, p).map(f64::to_bits),
+                    want.map(f64::to_bits),
+                    "{n} {p}"
+                );
+            }
+        }
     }
 
     #[test]

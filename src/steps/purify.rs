@@ -80,8 +80,14 @@ impl PurifyStep {
 /// The complete rows of `items` as an n x p matrix (for the distribution-free test).
 pub fn complete_rows(table: &crate::data::Table, items: &[usize]) -> DMatrix<f64> {
     let rows: Vec<usize> =
-        (0..table.rows()).filter(|&r| items.iter().all(|&k| !table.columns[k][r].is_nan())).collect();
-    DMatrix::from_fn(rows.len(), items.len(), |r, c| table.columns[items[c]][rows[r]])
+        (0..table.rows()).filter(|&r| items.iter().all(|&k| !table.columns[k].is_missing(r))).collect();
+    // Filled column by column (nalgebra is column-major), reading each item in its own form.
+    let mut m = DMatrix::zeros(rows.len(), items.len());
+    for (c, &k) in items.iter().enumerate() {
+        let col = &table.columns[k];
+        m.column_mut(c).iter_mut().zip(&rows).for_each(|(x, &r)| *x = col.get(r));
+    }
+    m
 }
 
 pub fn tetrad_kind(test: TetradTest) -> TetradTestKind {

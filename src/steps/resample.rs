@@ -88,7 +88,8 @@ struct Replicate {
 
 fn resampled(load: &LoadOutput, rows: &[usize]) -> Option<LoadOutput> {
     let table = load.table.as_ref()?;
-    let columns = table.columns.iter().map(|c| rows.iter().map(|&r| c[r]).collect()).collect();
+    // Coded items resample their one-byte codes, not floats.
+    let columns = table.columns.iter().map(|c| c.pick(rows)).collect();
     let wave_of_row = rows.iter().map(|&r| table.wave_of_row[r]).collect();
     let table = Table { items: table.items.clone(), waves: table.waves.clone(), wave_of_row, columns };
     Some(LoadOutput { summary: load.summary.clone(), table: Some(table), matrix: None })

@@ -2,7 +2,10 @@
 //! Pearson, polychoric or polyserial on the pair's complete rows, computed in parallel over
 //! pairs. Central type: `MixedCorrelation`. Results never depend on the rayon thread count
 //! (each pair is computed sequentially and collected in pair order), and a failing pair is an
-//! error naming both column indices, never a panic.
+//! error naming both column indices, never a panic. Columns are borrowed (`Cow`), so a caller
+//! holding compact codes passes them without a copy.
+
+use std::borrow::Cow;
 
 use super::StatsError;
 use super::polychoric::{ContingencyTable, Margin, OrdinalFit, polychoric_table};
@@ -14,18 +17,23 @@ use serde::{Deserialize, Serialize};
 /// Fewest complete rows a pair needs for any of the three methods.
 pub const MIN_PAIR_N: usize = 3;
 
-/// One column of respondent data; `None` is missing.
+/// The ordinal code that marks a missing answer.
+pub const MISSING_CODE: u8 = u8::MAX;
+
+/// Most categories of an ordinal column (codes 0..=254; 255 is `MISSING_CODE`).
+pub const MAX_LEVELS: usize = 255;
+
+/// One column of respondent data, borrowed or owned.
 #[derive(Debug, Clone, PartialEq)]
-pub enum Column {
-    Continuous(Vec<Option<f64>>),
-    /// Zero-based category codes below `levels`.
-    Ordinal {
-        codes: Vec<Option<u32>>,
-        levels: usize,
-    },
+pub enum Column<'a> {
+    /// NaN marks missing.
+    Continuous(Cow<'a, [f64]>),
+    /// Zero-based category codes below `levels` (at most `MAX_LEVELS`); `MISSING_CODE` marks
+    /// missing.
+    Ordinal { codes: Cow<'a, [u8]>, levels: usize },
 }
 
-impl Column {
+impl Column<'_> {
     fn len(&self) -> usize {
         match self {
             Column::Continuous(v) => v.len(),
@@ -81,16 +89,6 @@ pub struct MixedCorrelation {
     pub pairs: Vec<PairEstimate>,
 }
 
-/// Column data with missing values as sentinels, so a pair's scan is a tight loop.
-enum Prepared {
-    /// NaN marks missing.
-    Continuous(Vec<f64>),
-    /// `u32::MAX` marks missing.
-    Ordinal(Vec<u32>, usize),
-}
-
-const MISSING_CODE: u32 = u32::MAX;
-
 /// Mixed correlation matrix with pairwise deletion.
 ///
 /// Per pair of columns, on the rows where both are present: two continuous -> Pearson's
@@ -99,30 +97,26 @@ const MISSING_CODE: u32 = u32::MAX;
 /// pass; one of each -> polyserial (Olsson, Drasgow & Dorans 1982). `fit` selects the two-step
 /// or joint estimator for the ordinal methods. Pairs run in parallel on the current rayon pool.
 ///
-/// Errors: columns of unequal length, a non-finite continuous value, an ordinal code outside
-/// its levels or zero levels -> `InvalidInput`; a pair with fewer than `MIN_PAIR_N` complete
+/// Errors: columns of unequal length, an infinite continuous value, an ordinal code outside
+/// its levels, zero or more than `MAX_LEVELS` levels -> `InvalidInput`; a pair with fewer than `MIN_PAIR_N` complete
 /// rows, a variable constant within the pair, or a non-converging fit -> `StatsError::Pair`
 /// for the first such pair in row-major order (the same pair whatever the thread count).
-pub fn mixed_correlation(columns: &[Column], fit: OrdinalFit) -> Result<MixedCorrelation, StatsError> {
-    let prepared = prepare(columns)?;
+pub fn mixed_correlation(columns: &[Column<'_>], fit: OrdinalFit) -> Result<MixedCorrelation, StatsError> {
+    check(columns)?;
     let p = columns.len();
     let pairs: Vec<(usize, usize)> = (0..p).flat_map(|i| (i + 1..p).map(move |j| (i, j))).collect();
     let results: Vec<Result<PairEstimate, StatsError>> = pairs
         .par_iter()
         .map(|&(i, j)| {
-            pair_estimate(&prepared, i, j, fit).map_err(|e| StatsError::Pair {
-                first: i,
-                second: j,
-                source: Box::new(e),
-            })
+            pair_estimate(columns, i, j, fit).map_err(|e| StatsError::Pair { first: i, second: j, source: Box::new(e) })
         })
         .collect();
     let mut matrix = DMatrix::<f64>::identity(p, p);
     let mut n = DMatrix::<usize>::zeros(p, p);
-    for (i, col) in prepared.iter().enumerate() {
+    for (i, col) in columns.iter().enumerate() {
         n[(i, i)] = match col {
-            Prepared::Continuous(v) => v.iter().filter(|x| !x.is_nan()).count(),
-            Prepared::Ordinal(c, _) => c.iter().filter(|&&x| x != MISSING_CODE).count(),
+            Column::Continuous(v) => v.iter().filter(|x| !x.is_nan()).count(),
+            Column::Ordinal { codes, .. } => codes.iter().filter(|&&x| x != MISSING_CODE).count(),
         };
     }
     let mut estimates = Vec::with_capacity(results.len());
@@ -138,40 +132,35 @@ pub fn mixed_correlation(columns: &[Column], fit: OrdinalFit) -> Result<MixedCor
     Ok(MixedCorrelation { matrix, n, pairs: estimates })
 }
 
-fn prepare(columns: &[Column]) -> Result<Vec<Prepared>, StatsError> {
+/// The input checks, without copying any column.
+fn check(columns: &[Column<'_>]) -> Result<(), StatsError> {
     let rows = columns.first().map_or(0, Column::len);
-    columns
-        .iter()
-        .enumerate()
-        .map(|(c, col)| {
-            if col.len() != rows {
-                return Err(StatsError::InvalidInput(format!(
-                    "column {c} has {} rows, column 0 has {rows}",
-                    col.len()
-                )));
-            }
-            match col {
-                Column::Continuous(v) => {
-                    if let Some(r) = v.iter().position(|x| x.is_some_and(|x| !x.is_finite())) {
-                        return Err(StatsError::InvalidInput(format!("column {c} row {r}: value is not finite")));
-                    }
-                    Ok(Prepared::Continuous(v.iter().map(|x| x.unwrap_or(f64::NAN)).collect()))
-                }
-                Column::Ordinal { codes, levels } => {
-                    if *levels == 0 {
-                        return Err(StatsError::InvalidInput(format!("ordinal column {c} has no levels")));
-                    }
-                    if let Some(r) = codes.iter().position(|x| x.is_some_and(|x| x as usize >= *levels)) {
-                        return Err(StatsError::InvalidInput(format!(
-                            "column {c} row {r}: code {} outside {levels} levels",
-                            codes[r].unwrap_or_default()
-                        )));
-                    }
-                    Ok(Prepared::Ordinal(codes.iter().map(|x| x.unwrap_or(MISSING_CODE)).collect(), *levels))
+    for (c, col) in columns.iter().enumerate() {
+        if col.len() != rows {
+            return Err(StatsError::InvalidInput(format!("column {c} has {} rows, column 0 has {rows}", col.len())));
+        }
+        match col {
+            Column::Continuous(v) => {
+                if let Some(r) = v.iter().position(|x| x.is_infinite()) {
+                    return Err(StatsError::InvalidInput(format!("column {c} row {r}: value is not finite")));
                 }
             }
-        })
-        .collect()
+            Column::Ordinal { codes, levels } => {
+                if *levels == 0 || *levels > MAX_LEVELS {
+                    return Err(StatsError::InvalidInput(format!(
+                        "ordinal column {c} has {levels} levels; it needs 1 to {MAX_LEVELS}"
+                    )));
+                }
+                if let Some(r) = codes.iter().position(|&x| x != MISSING_CODE && x as usize >= *levels) {
+                    return Err(StatsError::InvalidInput(format!(
+                        "column {c} row {r}: code {} outside {levels} levels",
+                        codes[r]
+                    )));
+                }
+            }
+        }
+    }
+    Ok(())
 }
 
 fn too_few(what: &str, found: usize) -> Result<(), StatsError> {
@@ -181,11 +170,11 @@ fn too_few(what: &str, found: usize) -> Result<(), StatsError> {
     Ok(())
 }
 
-fn pair_estimate(cols: &[Prepared], i: usize, j: usize, fit: OrdinalFit) -> Result<PairEstimate, StatsError> {
+fn pair_estimate(cols: &[Column<'_>], i: usize, j: usize, fit: OrdinalFit) -> Result<PairEstimate, StatsError> {
     match (&cols[i], &cols[j]) {
-        (Prepared::Continuous(x), Prepared::Continuous(y)) => {
+        (Column::Continuous(x), Column::Continuous(y)) => {
             let (xs, ys): (Vec<f64>, Vec<f64>) =
-                x.iter().zip(y).filter(|(a, b)| !a.is_nan() && !b.is_nan()).map(|(a, b)| (*a, *b)).unzip();
+                x.iter().zip(y.iter()).filter(|(a, b)| !a.is_nan() && !b.is_nan()).map(|(a, b)| (*a, *b)).unzip();
             too_few("pearson correlation", xs.len())?;
             let rho = pearson(&xs, &ys)?;
             let n = xs.len();
@@ -201,9 +190,12 @@ fn pair_estimate(cols: &[Prepared], i: usize, j: usize, fit: OrdinalFit) -> Resu
                 at_bound: false,
             })
         }
-        (Prepared::Ordinal(x, lx), Prepared::Ordinal(y, ly)) => {
-            let complete =
-                x.iter().zip(y).filter(|(a, b)| **a != MISSING_CODE && **b != MISSING_CODE).map(|(a, b)| (*a, *b));
+        (Column::Ordinal { codes: x, levels: lx }, Column::Ordinal { codes: y, levels: ly }) => {
+            let complete = x
+                .iter()
+                .zip(y.iter())
+                .filter(|(a, b)| **a != MISSING_CODE && **b != MISSING_CODE)
+                .map(|(a, b)| (u32::from(*a), u32::from(*b)));
             let table = ContingencyTable::from_pairs(complete, *lx, *ly)?;
             let n = usize::try_from(table.total()).unwrap_or(usize::MAX);
             too_few("polychoric correlation", n)?;
@@ -229,10 +221,10 @@ fn pair_estimate(cols: &[Prepared], i: usize, j: usize, fit: OrdinalFit) -> Resu
                 at_bound: est.at_bound,
             })
         }
-        (Prepared::Continuous(x), Prepared::Ordinal(y, levels)) => {
+        (Column::Continuous(x), Column::Ordinal { codes: y, levels }) => {
             polyserial_pair(x, y, *levels, j, fit).map(|e| PairEstimate { first: i, second: j, ..e })
         }
-        (Prepared::Ordinal(y, levels), Prepared::Continuous(x)) => {
+        (Column::Ordinal { codes: y, levels }, Column::Continuous(x)) => {
             polyserial_pair(x, y, *levels, i, fit).map(|e| PairEstimate { first: i, second: j, ..e })
         }
     }
@@ -241,13 +233,13 @@ fn pair_estimate(cols: &[Prepared], i: usize, j: usize, fit: OrdinalFit) -> Resu
 /// Polyserial on the complete rows; `ordinal_column` names the ordinal column for merges.
 fn polyserial_pair(
     x: &[f64],
-    y: &[u32],
+    y: &[u8],
     levels: usize,
     ordinal_column: usize,
     fit: OrdinalFit,
 ) -> Result<PairEstimate, StatsError> {
     let (xs, ys): (Vec<f64>, Vec<u32>) =
-        x.iter().zip(y).filter(|(a, b)| !a.is_nan() && **b != MISSING_CODE).map(|(a, b)| (*a, *b)).unzip();
+        x.iter().zip(y).filter(|(a, b)| !a.is_nan() && **b != MISSING_CODE).map(|(a, b)| (*a, u32::from(*b))).unzip();
     too_few("polyserial correlation", xs.len())?;
     let est = polyserial(&xs, &ys, levels, fit)?;
     Ok(PairEstimate {
@@ -299,7 +291,7 @@ mod tests {
     // below (printed with 17 digits).
     #[test]
     fn pearson_pairwise_matches_r() {
-        let col = |v: [f64; 8]| Column::Continuous(v.iter().map(|&x| (!x.is_nan()).then_some(x)).collect());
+        let col = |v: [f64; 8]| Column::Continuous(v.to_vec().into());
         let nan = f64::NAN;
         let cols = [
             col([1.5, 2.0, nan, 7.0, 3.0, 4.5, 6.0, 2.5]),
@@ -343,7 +335,12 @@ mod tests {
         assert_eq!(method(2, 3).unwrap().method, PairMethod::Polychoric);
         let Column::Ordinal { codes: a, .. } = &cols[2] else { unreachable!() };
         let Column::Ordinal { codes: b, .. } = &cols[4] else { unreachable!() };
-        let (x, y): (Vec<u32>, Vec<u32>) = a.iter().zip(b).filter_map(|(p, q)| Some(((*p)?, (*q)?))).unzip();
+        let (x, y): (Vec<u32>, Vec<u32>) = a
+            .iter()
+            .zip(b.iter())
+            .filter(|(p, q)| **p != MISSING_CODE && **q != MISSING_CODE)
+            .map(|(p, q)| (u32::from(*p), u32::from(*q)))
+            .unzip();
         let direct = polychoric(&x, &y, 5, 5, OrdinalFit::TwoStep).unwrap();
         let pair = method(2, 4).unwrap();
         assert_eq!(pair.rho, direct.rho);
@@ -362,10 +359,10 @@ mod tests {
         let mut cols = one_factor_columns(50, 3, 1, 0.0, 5);
         // Column 2 is constant on the rows where column 1 is present.
         let Column::Ordinal { codes, .. } = &mut cols[1] else { unreachable!() };
-        for c in codes.iter_mut().skip(10) {
-            *c = None;
+        for c in codes.to_mut().iter_mut().skip(10) {
+            *c = MISSING_CODE;
         }
-        cols[2] = Column::Ordinal { codes: (0..50).map(|r| Some(u32::from(r >= 10))).collect(), levels: 2 };
+        cols[2] = Column::Ordinal { codes: (0..50).map(|r| u8::from(r >= 10)).collect(), levels: 2 };
         let err = mixed_correlation(&cols, OrdinalFit::TwoStep).unwrap_err();
         match err {
             StatsError::Pair { first, second, source } => {
@@ -374,16 +371,20 @@ mod tests {
             }
             other => panic!("unexpected {other:?}"),
         }
-        let bad = vec![
-            Column::Continuous(vec![Some(1.0), Some(f64::INFINITY)]),
-            Column::Continuous(vec![Some(1.0), Some(2.0)]),
-        ];
+        let bad = vec![Column::Continuous(vec![1.0, f64::INFINITY].into()), Column::Continuous(vec![1.0, 2.0].into())];
         assert!(matches!(mixed_correlation(&bad, OrdinalFit::TwoStep), Err(StatsError::InvalidInput(_))));
         let short = vec![
-            Column::Continuous(vec![Some(1.0), Some(2.0), Some(3.0)]),
-            Column::Ordinal { codes: vec![Some(0), Some(1)], levels: 2 },
+            Column::Continuous(vec![1.0, 2.0, 3.0].into()),
+            Column::Ordinal { codes: vec![0, 1].into(), levels: 2 },
         ];
         assert!(matches!(mixed_correlation(&short, OrdinalFit::TwoStep), Err(StatsError::InvalidInput(_))));
+        let outside = vec![
+            Column::Continuous(vec![1.0, 2.0, 3.0].into()),
+            Column::Ordinal { codes: vec![0, 1, 2].into(), levels: 2 },
+        ];
+        assert!(matches!(mixed_correlation(&outside, OrdinalFit::TwoStep), Err(StatsError::InvalidInput(_))));
+        let too_many = vec![Column::Ordinal { codes: vec![0, 1, 2].into(), levels: 256 }];
+        assert!(matches!(mixed_correlation(&too_many, OrdinalFit::TwoStep), Err(StatsError::InvalidInput(_))));
     }
 
     #[test]
@@ -391,7 +392,7 @@ mod tests {
         let mut cols = one_factor_columns(400, 3, 1, 0.0, 9);
         // Recode column 2 so that category 1 never occurs.
         let Column::Ordinal { codes, .. } = &mut cols[2] else { unreachable!() };
-        for c in codes.iter_mut().flatten() {
+        for c in codes.to_mut().iter_mut() {
             if *c == 1 {
                 *c = 0;
             }

@@ -89,7 +89,7 @@ pub fn one_factor_columns(
     continuous: usize,
     missing: f64,
     seed: u64,
-) -> Vec<crate::mixed::Column> {
+) -> Vec<crate::mixed::Column<'static>> {
     let mut rng = seeded(seed);
     let cuts = [-1.5, -0.5, 0.4, 1.3];
     let loadings: Vec<f64> = (0..items).map(|k| 0.5 + 0.4 * (k % 5) as f64 / 4.0).collect();
@@ -102,16 +102,16 @@ pub fn one_factor_columns(
             let v = l * f + (1.0 - l * l).sqrt() * e;
             let absent = rng.random::<f64>() < missing;
             if k < continuous {
-                cont[k].push((!absent).then_some(10.0 + 2.0 * v));
+                cont[k].push(if absent { f64::NAN } else { 10.0 + 2.0 * v });
             } else {
-                let code = cuts.iter().filter(|&&c| v > c).count() as u32;
-                ord[k - continuous].push((!absent).then_some(code));
+                let code = cuts.iter().filter(|&&c| v > c).count() as u8;
+                ord[k - continuous].push(if absent { crate::mixed::MISSING_CODE } else { code });
             }
         }
     }
     cont.into_iter()
-        .map(crate::mixed::Column::Continuous)
-        .chain(ord.into_iter().map(|codes| crate::mixed::Column::Ordinal { codes, levels: 5 }))
+        .map(|v| crate::mixed::Column::Continuous(v.into()))
+        .chain(ord.into_iter().map(|codes| crate::mixed::Column::Ordinal { codes: codes.into(), levels: 5 }))
         .collect()
 }
 
