@@ -287,6 +287,20 @@ const TAG_VALUES: u8 = 0;
 const TAG_CODES: u8 = 1;
 
 impl Table {
+    /// The rows where every one of `items` has a value, as an n x p matrix (what the
+    /// distribution-free tetrad test reads). Filled column by column (nalgebra is
+    /// column-major), each item read in its own form.
+    pub fn complete_rows(&self, items: &[usize]) -> nalgebra::DMatrix<f64> {
+        let rows: Vec<usize> =
+            (0..self.rows()).filter(|&r| items.iter().all(|&k| !self.columns[k].is_missing(r))).collect();
+        let mut m = nalgebra::DMatrix::zeros(rows.len(), items.len());
+        for (c, &k) in items.iter().enumerate() {
+            let col = &self.columns[k];
+            m.column_mut(c).iter_mut().zip(&rows).for_each(|(x, &r)| *x = col.get(r));
+        }
+        m
+    }
+
     pub fn rows(&self) -> usize {
         self.wave_of_row.len()
     }

@@ -5,7 +5,6 @@ use indexmap::IndexMap;
 use serde::{Deserialize, Serialize};
 use serde_json::{Value, json};
 
-use super::purify::{complete_rows, tetrad_kind};
 use super::{Artifact, Inputs, Step, StepError, StepKind};
 use crate::spec::types::{DiscoverSpec, ItemPool, TetradTest};
 use construe_stats::cluster::{ClusterOptions, find_clusters};
@@ -84,12 +83,12 @@ impl Step for DiscoverStep {
                     .table
                     .as_ref()
                     .ok_or(StepError::MissingInput { step: StepKind::Discover, needs: StepKind::Load })?;
-                Some(complete_rows(table, &(0..items.len()).collect::<Vec<_>>()))
+                Some(table.complete_rows(&(0..items.len()).collect::<Vec<_>>()))
             }
             TetradTest::Wishart => None,
         };
         let stats_err = |source| StepError::Stats { context: "cluster discovery".into(), source };
-        let tester = TetradTester::new(tetrad_kind(self.params.test), &cov.correlation_matrix(), n, data.as_ref())
+        let tester = TetradTester::new(self.params.test.into(), &cov.correlation_matrix(), n, data.as_ref())
             .map_err(stats_err)?;
         let found = find_clusters(&tester, &pool, &ClusterOptions { alpha: self.params.alpha, min_size: MIN_CLUSTER })
             .map_err(stats_err)?;

@@ -175,6 +175,16 @@ impl Artifact {
     }
 }
 
+/// The spec's tetrad test as the numerics name it (used by `purify` and `discover`).
+impl From<crate::spec::types::TetradTest> for construe_stats::tetrad::TetradTestKind {
+    fn from(test: crate::spec::types::TetradTest) -> Self {
+        match test {
+            crate::spec::types::TetradTest::Wishart => construe_stats::tetrad::TetradTestKind::Wishart,
+            crate::spec::types::TetradTest::Delta => construe_stats::tetrad::TetradTestKind::Delta,
+        }
+    }
+}
+
 /// The artifacts computed so far, handed to a step for its inputs.
 pub struct Inputs<'a> {
     pub step: StepKind,

@@ -4,7 +4,6 @@
 //! Constructs with fewer than two items take part only as partners in cross-construct tetrads.
 
 use indexmap::IndexMap;
-use nalgebra::DMatrix;
 use serde::{Deserialize, Serialize};
 use serde_json::{Value, json};
 
@@ -12,7 +11,6 @@ use super::{Artifact, Inputs, Step, StepError, StepKind};
 use crate::spec::SpecFile;
 use crate::spec::types::{PurifySpec, TetradTest};
 use construe_stats::purify::{PurifyOptions, TetradEvidence, purify};
-use construe_stats::tetrad::TetradTestKind;
 
 /// Bump when purification results change for the same covariances and parameters.
 pub const VERSION: u32 = 1;
@@ -77,26 +75,6 @@ impl PurifyStep {
     }
 }
 
-/// The complete rows of `items` as an n x p matrix (for the distribution-free test).
-pub fn complete_rows(table: &crate::data::Table, items: &[usize]) -> DMatrix<f64> {
-    let rows: Vec<usize> =
-        (0..table.rows()).filter(|&r| items.iter().all(|&k| !table.columns[k].is_missing(r))).collect();
-    // Filled column by column (nalgebra is column-major), reading each item in its own form.
-    let mut m = DMatrix::zeros(rows.len(), items.len());
-    for (c, &k) in items.iter().enumerate() {
-        let col = &table.columns[k];
-        m.column_mut(c).iter_mut().zip(&rows).for_each(|(x, &r)| *x = col.get(r));
-    }
-    m
-}
-
-pub fn tetrad_kind(test: TetradTest) -> TetradTestKind {
-    match test {
-        TetradTest::Wishart => TetradTestKind::Wishart,
-        TetradTest::Delta => TetradTestKind::Delta,
-    }
-}
-
 fn record(items: &[String], t: &TetradEvidence) -> TetradRecord {
     TetradRecord {
         items: t.items.map(|i| items[i].clone()),
@@ -139,15 +117,12 @@ impl Step for PurifyStep {
                     .table
                     .as_ref()
                     .ok_or(StepError::MissingInput { step: StepKind::Purify, needs: StepKind::Load })?;
-                Some(complete_rows(table, &(0..items.len()).collect::<Vec<_>>()))
+                Some(table.complete_rows(&(0..items.len()).collect::<Vec<_>>()))
             }
             TetradTest::Wishart => None,
         };
-        let options = PurifyOptions {
-            test: tetrad_kind(self.params.test),
-            alpha: self.params.alpha,
-            min_items: self.params.min_items,
-        };
+        let options =
+            PurifyOptions { test: self.params.test.into(), alpha: self.params.alpha, min_items: self.params.min_items };
         let result = purify(&cov.correlation_matrix(), n, data.as_ref(), &groups, &options)
             .map_err(|source| StepError::Stats { context: "tetrad purification".into(), source })?;
         let constructs = self
