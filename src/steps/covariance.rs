@@ -15,7 +15,7 @@ use super::{Artifact, Inputs, Step, StepError, StepKind};
 use crate::data::Table;
 use crate::data::table::{Column as DataColumn, MISSING};
 use crate::spec::types::{CovarianceSpec, MatrixKind, Missing, OrdinalEstimation};
-use construe_stats::mixed::{self, Column, mixed_correlation};
+use construe_stats::mixed::{self, Column, mixed_correlation, response_scale_covariance};
 use construe_stats::moments::{Deletion, pearson_columns, sample_variance};
 use construe_stats::polychoric::OrdinalFit;
 use construe_stats::smoothing::{self, smooth_correlation};
@@ -281,15 +281,9 @@ impl CovarianceStep {
                 _ => sample_variance(&masked(k)),
             })
             .collect();
-        let sd: Vec<f64> = variance.iter().map(|v| v.sqrt()).collect();
         let correlation = mixed.matrix.clone();
-        let covariance = DMatrix::from_fn(p, p, |a, b| {
-            match (cont.iter().position(|&c| c == a), cont.iter().position(|&c| c == b), &moments) {
-                (Some(i), Some(j), Some(m)) => m.covariance[(i, j)],
-                _ if a == b => variance[a],
-                _ => correlation[(a, b)] * sd[a] * sd[b],
-            }
-        });
+        let covariance =
+            response_scale_covariance(&correlation, &cont, moments.as_ref().map(|m| &m.covariance), &variance);
         let n = (0..p).map(|r| (0..p).map(|c| mixed.n[(r, c)]).collect()).collect();
         let mut e = Estimates::new(correlation, covariance, n);
         for pair in &mixed.pairs {

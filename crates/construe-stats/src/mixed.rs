@@ -281,8 +281,44 @@ fn pearson(x: &[f64], y: &[f64]) -> Result<f64, StatsError> {
     Ok((sxy / (sxx * syy).sqrt()).clamp(-1.0, 1.0))
 }
 
+/// The covariance matrix on the items' response scales from their mixed correlations:
+/// product-moment covariances among continuous items (`continuous` lists their indices in
+/// ascending order, `moments` is their covariance matrix in that order), each item's own
+/// `variance` on the diagonal, and r_ab · sd_a · sd_b elsewhere — the scaling of the
+/// latent-response correlation to the observed response scale (common practice; Jöreskog 1994).
+pub fn response_scale_covariance(
+    correlation: &DMatrix<f64>,
+    continuous: &[usize],
+    moments: Option<&DMatrix<f64>>,
+    variance: &[f64],
+) -> DMatrix<f64> {
+    let p = correlation.nrows();
+    let sd: Vec<f64> = variance.iter().map(|v| v.sqrt()).collect();
+    DMatrix::from_fn(p, p, |a, b| {
+        match (continuous.iter().position(|&c| c == a), continuous.iter().position(|&c| c == b), moments) {
+            (Some(i), Some(j), Some(m)) => m[(i, j)],
+            _ if a == b => variance[a],
+            _ => correlation[(a, b)] * sd[a] * sd[b],
+        }
+    })
+}
+
 #[cfg(test)]
 mod tests {
+
+    // Hand-computed: two continuous items (0, 2) keep their product moments, the ordinal item
+    // 1 gets r * sd * sd with both variances, and every diagonal is the item's variance.
+    #[test]
+    fn response_scale_covariance_by_hand() {
+        let r = DMatrix::from_row_slice(3, 3, &[1.0, 0.5, 0.2, 0.5, 1.0, 0.4, 0.2, 0.4, 1.0]);
+        let m = DMatrix::from_row_slice(2, 2, &[4.0, 0.7, 0.7, 9.0]);
+        let c = response_scale_covariance(&r, &[0, 2], Some(&m), &[4.0, 0.25, 9.0]);
+        assert_eq!(c[(0, 2)], 0.7);
+        assert_eq!(c[(0, 1)], 0.5 * 2.0 * 0.5);
+        assert_eq!(c[(1, 2)], 0.4 * 0.5 * 3.0);
+        assert_eq!((c[(0, 0)], c[(1, 1)], c[(2, 2)]), (4.0, 0.25, 9.0));
+        assert_eq!(c, c.transpose());
+    }
     use super::*;
     use crate::polychoric::polychoric;
     use crate::testkit::one_factor_columns;
