@@ -19,7 +19,7 @@ fn floats(v: &Value) -> Vec<f64> {
 fn one_factor_cfa_matches_r_factanal() {
     // R 4.2.2 stats::factanal(factors = 1) on datasets::ability.cov and the verbal subset of
     // datasets::Harman74.cor (tests/reference/sem/make_factanal.R).
-    let fixture: Value = serde_json::from_str(include_str!("../../../../tests/reference/sem/factanal.json")).unwrap();
+    let fixture: Value = crate::reference!("sem/factanal.json");
     for case in ["ability_cov", "harman74_verbal"] {
         let c = &fixture[case];
         let s = matrix(&c["cov"]);
@@ -96,7 +96,7 @@ fn matrix_kind(name: &str) -> Matrix {
 }
 
 fn sem_fixture() -> Value {
-    serde_json::from_str(include_str!("../../../../tests/reference/sem/sem.json")).unwrap()
+    crate::reference!("sem/sem.json")
 }
 
 /// Compare one fitted case with the independent scipy fit: estimates 1e-4, SEs 1e-3, F and fit
@@ -243,7 +243,7 @@ fn analytic_gradient_matches_finite_differences() {
 #[test]
 fn large_cfa_matches_scipy_lbfgsb() {
     // 60 items on 4 factors; scipy L-BFGS-B reference (cfa60x4.json, make_fixtures.py).
-    let case: Value = serde_json::from_str(include_str!("../../../../tests/reference/sem/cfa60x4.json")).unwrap();
+    let case: Value = crate::reference!("sem/cfa60x4.json");
     let s = matrix(&case["cov"]);
     let fit = build_model(&case["model"]).fit(&s, 1000, &FitOptions::default()).unwrap();
     assert!(fit.converged);
@@ -378,8 +378,7 @@ fn unidentified_single_indicator_is_an_error_and_fixed_error_variance_identifies
 #[test]
 fn reliability_from_a_fitted_one_factor_model_matches_numpy() {
     // numpy alpha and omega from a scipy ML fit (reliability.json, make_fixtures.py).
-    let fixture: Value =
-        serde_json::from_str(include_str!("../../../../tests/reference/sem/reliability.json")).unwrap();
+    let fixture: Value = crate::reference!("sem/reliability.json");
     let s = matrix(&fixture["cov"]);
     let alpha = crate::reliability::cronbach_alpha(&s, &[0, 1, 2, 3]).unwrap();
     assert!((alpha - fixture["alpha"].as_f64().unwrap()).abs() < 1e-12);
