@@ -18,6 +18,7 @@ use crate::data::table::{MAX_CODED_LEVELS, MISSING};
 use crate::data::{Column, DataError, Table, read_columns};
 use crate::spec::SpecFile;
 use crate::spec::types::{AUTO_MAX_LEVELS, MatrixKind, OrdinalSpec};
+use construe_stats::disclosure::{guarded_percentile, guarded_percentile_counted, round_significant};
 
 /// Bump when the loaded table or summary changes for the same files and parameters.
 /// 3: the summary drops each item's minimum and maximum for disclosure-safe aggregates.
@@ -323,11 +324,14 @@ impl LoadStep {
                 let (p5, p95) = match col {
                     Column::Values(v) => {
                         let mut present: Vec<f64> = v.iter().copied().filter(|v| !v.is_nan()).collect();
-                        (safe_percentile(&mut present, 0.05), safe_percentile(&mut present, 0.95))
+                        (
+                            guarded_percentile(&mut present, 0.05, MIN_GROUP),
+                            guarded_percentile(&mut present, 0.95, MIN_GROUP),
+                        )
                     }
                     Column::Codes { .. } => (
-                        counted_percentile(distinct, &shape.counts, 0.05),
-                        counted_percentile(distinct, &shape.counts, 0.95),
+                        guarded_percentile_counted(distinct, &shape.counts, 0.05, MIN_GROUP),
+                        guarded_percentile_counted(distinct, &shape.counts, 0.95, MIN_GROUP),
                     ),
                 };
                 (
@@ -507,74 +511,6 @@ impl Shape {
     }
 }
 
-/// `safe_percentile` from the sorted distinct values and their counts: the same order
-/// statistics, found by cumulative counts instead of selection.
-fn counted_percentile(distinct: &[f64], counts: &[usize], p: f64) -> Option<f64> {
-    let n: usize = counts.iter().sum();
-    if n == 0 {
-        return None;
-    }
-    let h = (n - 1) as f64 * p;
-    let lo = h.floor() as usize;
-    let beyond = if p < 0.5 { lo + 1 } else { n - h.ceil() as usize };
-    if beyond < MIN_GROUP {
-        return None;
-    }
-    let order = |i: usize| {
-        let mut seen = 0;
-        distinct.iter().zip(counts).find_map(|(v, c)| {
-            seen += c;
-            (i < seen).then_some(*v)
-        })
-    };
-    let below = order(lo)?;
-    let next = if lo + 1 < n { order(lo + 1)? } else { below };
-    Some(below + (h - lo as f64) * (next - below))
-}
-
-/// `x` rounded to `digits` significant digits (0, NaN and infinities unchanged). The power of
-/// ten is applied by multiplying or dividing by an exact integer power, so 96882 to 2 digits
-/// is exactly 97000.
-pub fn round_significant(x: f64, digits: i32) -> f64 {
-    if x == 0.0 || !x.is_finite() {
-        return x;
-    }
-    let shift = digits - 1 - x.abs().log10().floor() as i32;
-    let rounded = if shift >= 0 {
-        let scale = 10f64.powi(shift);
-        (x * scale).round() / scale
-    } else {
-        let scale = 10f64.powi(-shift);
-        (x / scale).round() * scale
-    };
-    // Rounding 9.96 up to 10.0 can leave one digit too many in the last place; a second pass
-    // at the new magnitude is exact.
-    if rounded != 0.0 && rounded.abs().log10().floor() as i32 != x.abs().log10().floor() as i32 {
-        return round_significant(rounded, digits);
-    }
-    rounded
-}
-
-/// The `p` quantile of `values` (Hyndman & Fan 1996, type 7: h = (n − 1)p, interpolated
-/// between the order statistics around h), or `None` when fewer than `MIN_GROUP` values lie at
-/// or below it (p < 0.5) or at or above it (p ≥ 0.5): near the tails of a small sample a
-/// percentile is close to one respondent's answer. Reorders `values` (selection, O(n)).
-fn safe_percentile(values: &mut [f64], p: f64) -> Option<f64> {
-    let n = values.len();
-    if n == 0 {
-        return None;
-    }
-    let h = (n - 1) as f64 * p;
-    let lo = h.floor() as usize;
-    let beyond = if p < 0.5 { lo + 1 } else { n - h.ceil() as usize };
-    if beyond < MIN_GROUP {
-        return None;
-    }
-    let (_, &mut below, above) = values.select_nth_unstable_by(lo, f64::total_cmp);
-    let next = above.iter().copied().min_by(f64::total_cmp).unwrap_or(below);
-    Some(below + (h - lo as f64) * (next - below))
-}
-
 /// Counts of each level in `distinct` (sorted) among `present`, pooled bottom-up into groups
 /// of at least `MIN_GROUP` respondents; a short last group joins the one before it.
 #[cfg(test)]
@@ -670,36 +606,6 @@ mod tests {
     }
 
     #[test]
-    fn significant_digits() {
-        assert_eq!(round_significant(96882.3, 2), 97000.0);
-        assert_eq!(round_significant(987654.321, 2), 990000.0);
-        assert_eq!(round_significant(4.56789, 3), 4.57);
-        assert_eq!(round_significant(-0.0123456, 2), -0.012);
-        assert_eq!(round_significant(9.96, 2), 10.0);
-        assert_eq!(round_significant(0.0, 2), 0.0);
-        assert!(round_significant(f64::NAN, 2).is_nan());
-    }
-
-    #[test]
-    fn percentiles_interpolate_and_hide_thin_tails() {
-        // Type 7 on 1..=101: h = 100 p, so the 5th percentile is 6 and the 95th is 96.
-        let mut v: Vec<f64> = (1..=101).rev().map(f64::from).collect();
-        assert_eq!(safe_percentile(&mut v, 0.05), Some(6.0));
-        assert_eq!(safe_percentile(&mut v, 0.95), Some(96.0));
-        // On 1..=100: h = 4.95 and 94.05.
-        let mut v: Vec<f64> = (1..=100).map(f64::from).collect();
-        assert!((safe_percentile(&mut v, 0.05).unwrap() - 5.95).abs() < 1e-12);
-        assert!((safe_percentile(&mut v, 0.95).unwrap() - 95.05).abs() < 1e-12);
-        // 80 answers: only 4 at or below h = 3.95; 81 answers: 5.
-        let mut v: Vec<f64> = (1..=80).map(f64::from).collect();
-        assert_eq!(safe_percentile(&mut v, 0.05), None);
-        assert_eq!(safe_percentile(&mut v, 0.95), None);
-        let mut v: Vec<f64> = (1..=81).map(f64::from).collect();
-        assert_eq!(safe_percentile(&mut v, 0.05), Some(5.0));
-        assert_eq!(safe_percentile(&mut v, 0.95), Some(77.0));
-    }
-
-    #[test]
     fn rare_levels_are_pooled_and_outer_bounds_hidden() {
         let mut present = Vec::new();
         for (level, count) in [(1.0, 1), (2.0, 3), (3.0, 40), (4.0, 30), (5.0, 2), (7.0, 1)] {
@@ -763,23 +669,6 @@ mod tests {
         let e2 = load.recode("r", &mut crate::data::table::compact(values), path).unwrap_err().to_string();
         assert_eq!(e1, e2);
         assert!(e1.contains("value 9 outside its reverse range [1, 7] (`w.csv` row 3)"), "{e1}");
-    }
-
-    #[test]
-    fn counted_percentiles_equal_selected_ones() {
-        for n in [1usize, 4, 5, 80, 81, 100, 101, 257] {
-            let mut present: Vec<f64> = (0..n).map(|i| f64::from(((i * 37) % 23) as u32) * 0.25).collect();
-            let distinct = distinct_values(&present);
-            let counts: Vec<usize> = distinct.iter().map(|d| present.iter().filter(|v| *v == d).count()).collect();
-            for p in [0.05, 0.95] {
-                let want = safe_percentile(&mut present, p);
-                assert_eq!(
-                    counted_percentile(&distinct, &counts, p).map(f64::to_bits),
-                    want.map(f64::to_bits),
-                    "{n} {p}"
-                );
-            }
-        }
     }
 
     #[test]

@@ -5,6 +5,7 @@
 pub mod bootstrap;
 pub mod bvn;
 pub mod cluster;
+pub mod disclosure;
 pub mod error;
 pub mod fdr;
 pub mod mixed;
