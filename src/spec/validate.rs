@@ -372,16 +372,7 @@ fn check_analyses(spec: &Spec, available: Option<&Vec<String>>, out: &mut Vec<Fi
                 "analyses.purify.test",
             ));
         }
-        if p.min_items > MAX_MIN_ITEMS {
-            out.push(Finding::value(
-                SpecProblem::TooMany {
-                    what: "`purify.min_items`".into(),
-                    value: p.min_items as u64,
-                    max: MAX_MIN_ITEMS as u64,
-                },
-                "analyses.purify.min_items",
-            ));
-        }
+        too_many(out, "`purify.min_items`", p.min_items, MAX_MIN_ITEMS, "analyses.purify.min_items");
         if p.min_items < 3 {
             out.push(Finding::value(
                 SpecProblem::OutOfRange {
@@ -448,16 +439,13 @@ fn check_analyses(spec: &Spec, available: Option<&Vec<String>>, out: &mut Vec<Fi
                 ));
                 continue;
             }
-            if grid.len() > MAX_GRID_POINTS {
-                out.push(Finding::value(
-                    SpecProblem::TooMany {
-                        what: format!("the number of reliability values for `{name}`"),
-                        value: grid.len() as u64,
-                        max: MAX_GRID_POINTS as u64,
-                    },
-                    path.clone(),
-                ));
-            }
+            too_many(
+                out,
+                &format!("the number of reliability values for `{name}`"),
+                grid.len(),
+                MAX_GRID_POINTS,
+                path.clone(),
+            );
             for (i, &r) in grid.iter().enumerate() {
                 if !(r > 0.0 && r <= 1.0) {
                     out.push(Finding::value(
@@ -496,16 +484,10 @@ fn check_analyses(spec: &Spec, available: Option<&Vec<String>>, out: &mut Vec<Fi
                 }
             }
         }
-        if s.draws > MAX_DRAWS {
-            out.push(Finding::value(
-                SpecProblem::TooMany {
-                    what: "`sensitivity.draws`".into(),
-                    value: s.draws as u64,
-                    max: MAX_DRAWS as u64,
-                },
-                "analyses.sensitivity.draws",
-            ));
-        } else if s.draws == 0 && !s.prior.is_empty() {
+        if !too_many(out, "`sensitivity.draws`", s.draws, MAX_DRAWS, "analyses.sensitivity.draws")
+            && s.draws == 0
+            && !s.prior.is_empty()
+        {
             out.push(Finding::value(
                 SpecProblem::OutOfRange {
                     what: "`sensitivity.draws`".into(),
@@ -522,21 +504,22 @@ fn check_analyses(spec: &Spec, available: Option<&Vec<String>>, out: &mut Vec<Fi
     if a.resample.is_some() && !rows {
         out.push(Finding::key(SpecProblem::NeedsRows { analysis: "resample".into() }, "analyses.resample"));
     }
-    if let Some(r) = &a.resample {
-        if r.replicates > MAX_REPLICATES {
-            out.push(Finding::value(
-                SpecProblem::TooMany {
-                    what: "`resample.replicates`".into(),
-                    value: r.replicates as u64,
-                    max: MAX_REPLICATES as u64,
-                },
-                "analyses.resample.replicates",
-            ));
-        } else if r.replicates == 0 {
-            out.push(Finding::value(
-                SpecProblem::OutOfRange { what: "`resample.replicates`".into(), range: "1 or more".into(), value: 0.0 },
-                "analyses.resample.replicates",
-            ));
-        }
+    if let Some(r) = &a.resample
+        && !too_many(out, "`resample.replicates`", r.replicates, MAX_REPLICATES, "analyses.resample.replicates")
+        && r.replicates == 0
+    {
+        out.push(Finding::value(
+            SpecProblem::OutOfRange { what: "`resample.replicates`".into(), range: "1 or more".into(), value: 0.0 },
+            "analyses.resample.replicates",
+        ));
     }
+}
+
+/// Pushes a `TooMany` finding at `path` when `value` exceeds `max`; true when it did.
+fn too_many(out: &mut Vec<Finding>, what: &str, value: usize, max: usize, path: impl Into<String>) -> bool {
+    if value <= max {
+        return false;
+    }
+    out.push(Finding::value(SpecProblem::TooMany { what: what.into(), value: value as u64, max: max as u64 }, path));
+    true
 }
