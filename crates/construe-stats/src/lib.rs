@@ -2,6 +2,7 @@
 //! Invariant: reads no file, clock or environment; takes slices and matrices, returns numbers
 //! or a `StatsError`. Nothing here knows about specs, YAML, caches or templates.
 
+pub mod acov;
 pub mod bootstrap;
 pub mod bvn;
 pub mod cluster;
