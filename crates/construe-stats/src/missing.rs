@@ -50,7 +50,8 @@ impl Patterns {
         let mut map: BTreeMap<Vec<usize>, Vec<usize>> = BTreeMap::new();
         let mut empty = 0;
         for i in 0..n {
-            let observed: Vec<usize> = (0..p).filter(|&j| !columns[j][i].is_nan()).collect();
+            let observed: Vec<usize> =
+                columns.iter().enumerate().filter(|(_, c)| !c[i].is_nan()).map(|(j, _)| j).collect();
             if observed.is_empty() {
                 empty += 1;
             } else {
