@@ -7,6 +7,7 @@ use std::borrow::Cow;
 
 use indexmap::IndexMap;
 use nalgebra::DMatrix;
+use schemars::JsonSchema;
 use serde::{Deserialize, Serialize};
 use serde_json::{Value, json};
 
@@ -84,8 +85,23 @@ impl<'de> Deserialize<'de> for ItemPair {
     }
 }
 
+/// A pair key of results.json: `"first|second"`.
+impl JsonSchema for ItemPair {
+    fn schema_name() -> std::borrow::Cow<'static, str> {
+        "ItemPair".into()
+    }
+
+    fn json_schema(_: &mut schemars::SchemaGenerator) -> schemars::Schema {
+        schemars::json_schema!({
+            "description": "Two items of the matrix, `first|second`, the first before the second in item order.",
+            "type": "string",
+            "pattern": "\\|",
+        })
+    }
+}
+
 /// The estimator used for one item pair.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize, JsonSchema)]
 #[serde(rename_all = "snake_case")]
 pub enum PairMethod {
     Pearson,
@@ -96,7 +112,7 @@ pub enum PairMethod {
 }
 
 /// Whether the correlation matrix is positive definite, and if not, which items are involved.
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct Definiteness {
     pub positive_definite: bool,
     pub min_eigenvalue: f64,
@@ -105,7 +121,7 @@ pub struct Definiteness {
     pub involved: Vec<String>,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct CovarianceOutput {
     pub items: Vec<String>,
     pub kind: IndexMap<String, ItemKind>,
@@ -127,7 +143,7 @@ pub struct CovarianceOutput {
     pub at_bound: Vec<ItemPair>,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct Merge {
     pub pair: ItemPair,
     pub item: String,
@@ -138,7 +154,7 @@ pub struct Merge {
     pub into_level: u32,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct SmoothingSummary {
     pub method: String,
     pub min_eigenvalue_before: f64,

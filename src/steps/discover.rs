@@ -2,6 +2,7 @@
 //! ignoring the declared constructs, then set beside them. Central type: `DiscoverOutput`.
 
 use indexmap::IndexMap;
+use schemars::JsonSchema;
 use serde::{Deserialize, Serialize};
 use serde_json::{Value, json};
 
@@ -16,14 +17,14 @@ pub const VERSION: u32 = 1;
 /// Smallest cluster reported: three items identify a one-factor model.
 const MIN_CLUSTER: usize = 3;
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct ClusterOrigin {
     pub items: Vec<String>,
     /// Declared construct -> how many of the cluster's items it claims.
     pub declared: IndexMap<String, usize>,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct DiscoverOutput {
     pub clusters: Vec<Vec<String>>,
     pub unclustered: Vec<String>,

@@ -9,6 +9,7 @@ use std::path::PathBuf;
 
 use indexmap::IndexMap;
 use rayon::prelude::*;
+use schemars::JsonSchema;
 use serde::{Deserialize, Serialize};
 use serde_json::{Value, json};
 
@@ -38,14 +39,14 @@ pub const MEAN_DIGITS: i32 = 3;
 /// respondents' answers, so it is shown coarser than the mean.
 pub const PERCENTILE_DIGITS: i32 = 2;
 
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize, JsonSchema)]
 #[serde(rename_all = "snake_case")]
 pub enum ItemKind {
     Continuous,
     Ordinal,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct ItemSummary {
     pub name: String,
     pub construct: String,
@@ -77,7 +78,7 @@ pub struct ItemSummary {
 /// Adjacent response levels of an ordinal item and how many answered one of them. An outer
 /// group that pools several levels leaves its outer bound open (`None`): that bound would be
 /// the smallest or largest answer, possibly a single respondent's.
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct ResponseGroup {
     /// Lowest level in the group; `None` for "this level or below".
     pub from: Option<f64>,
@@ -88,14 +89,14 @@ pub struct ResponseGroup {
     pub label: String,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct WaveSummary {
     pub id: String,
     pub file: String,
     pub rows: usize,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct SummaryMatrix {
     pub kind: MatrixKind,
     pub n: usize,
@@ -103,7 +104,7 @@ pub struct SummaryMatrix {
     pub values: Vec<Vec<f64>>,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct DataSummary {
     /// `waves` (respondent rows) or `matrix` (a published summary matrix).
     pub source: String,

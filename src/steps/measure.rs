@@ -5,6 +5,7 @@
 
 use indexmap::IndexMap;
 use nalgebra::DMatrix;
+use schemars::JsonSchema;
 use serde::{Deserialize, Serialize};
 use serde_json::{Value, json};
 
@@ -18,14 +19,14 @@ use construe_stats::sem::{FitIndices, Matrix, ParameterKind, SemFit};
 /// Bump when the fit changes for the same covariances, purification and parameters.
 pub const VERSION: u32 = 2;
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct Estimate {
     pub est: f64,
     pub se: Option<f64>,
     pub std: Option<f64>,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct ErrorVariance {
     pub est: f64,
     pub se: Option<f64>,
@@ -33,19 +34,19 @@ pub struct ErrorVariance {
     pub fixed: bool,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct NamedMatrix {
     pub names: Vec<String>,
     pub matrix: Vec<Vec<f64>>,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct Reliability {
     pub omega: Option<f64>,
     pub alpha: Option<f64>,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct HeywoodRecord {
     pub kind: String,
     pub parameter: String,
@@ -54,7 +55,7 @@ pub struct HeywoodRecord {
 
 /// The latent covariance with the delta-method covariance of its lower-triangle elements,
 /// for the structure search's Wald tests.
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct LatentCovariance {
     pub names: Vec<String>,
     pub matrix: Vec<Vec<f64>>,
@@ -63,13 +64,14 @@ pub struct LatentCovariance {
     pub acov: Vec<Vec<f64>>,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct MeasureOutput {
     pub converged: bool,
     pub iterations: usize,
     pub identification: Identification,
     pub n: usize,
     pub constructs: IndexMap<String, Vec<String>>,
+    #[schemars(with = "super::stats_schema::FitIndicesSchema")]
     pub fit: FitIndices,
     pub loadings: IndexMap<String, IndexMap<String, Estimate>>,
     pub error_variances: IndexMap<String, ErrorVariance>,
@@ -81,9 +83,10 @@ pub struct MeasureOutput {
     pub unpurified: Option<UnpurifiedFit>,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct UnpurifiedFit {
     pub converged: bool,
+    #[schemars(with = "super::stats_schema::FitIndicesSchema")]
     pub fit: FitIndices,
 }
 

@@ -4,6 +4,7 @@
 //! Constructs with fewer than two items take part only as partners in cross-construct tetrads.
 
 use indexmap::IndexMap;
+use schemars::JsonSchema;
 use serde::{Deserialize, Serialize};
 use serde_json::{Value, json};
 
@@ -15,7 +16,7 @@ use construe_stats::purify::{PurifyOptions, TetradEvidence, purify};
 /// Bump when purification results change for the same covariances and parameters.
 pub const VERSION: u32 = 1;
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct TetradRecord {
     pub items: [String; 4],
     /// Which of the three tetrad differences (1, 2 or 3; see `stats::tetrad`).
@@ -27,14 +28,14 @@ pub struct TetradRecord {
     pub p_adjusted: f64,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct DroppedRecord {
     pub item: String,
     pub round: usize,
     pub tetrads: Vec<TetradRecord>,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct ConstructPurity {
     pub kept: Vec<String>,
     pub dropped: Vec<DroppedRecord>,
@@ -42,7 +43,7 @@ pub struct ConstructPurity {
     pub min_items_reached: bool,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct PurifyOutput {
     pub constructs: IndexMap<String, ConstructPurity>,
     pub test: TetradTest,

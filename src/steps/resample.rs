@@ -9,6 +9,7 @@ use std::collections::BTreeMap;
 
 use indexmap::IndexMap;
 use rayon::prelude::*;
+use schemars::JsonSchema;
 use serde::{Deserialize, Serialize};
 use serde_json::{Value, json};
 
@@ -22,7 +23,7 @@ use construe_stats::search::EdgeKind;
 /// Bump when bootstrap results change for the same inputs and parameters.
 pub const VERSION: u32 = 2;
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct EdgeFrequency {
     pub from: String,
     pub to: String,
@@ -33,7 +34,7 @@ pub struct EdgeFrequency {
     pub backward: f64,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct EffectInterval {
     pub from: String,
     pub to: String,
@@ -43,7 +44,7 @@ pub struct EffectInterval {
     pub replicates: usize,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct ResampleOutput {
     pub replicates: usize,
     pub seed: u64,
@@ -58,7 +59,7 @@ pub struct ResampleOutput {
     pub effects: Vec<EffectInterval>,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct ClusterFrequency {
     pub items: Vec<String>,
     pub frequency: f64,

@@ -10,6 +10,7 @@ use std::collections::BTreeMap;
 use indexmap::IndexMap;
 use rand_distr::{Beta, Distribution};
 use rayon::prelude::*;
+use schemars::JsonSchema;
 use serde::{Deserialize, Serialize};
 use serde_json::{Value, json};
 
@@ -103,9 +104,10 @@ mod words_in_results {
 }
 
 /// A statement with how it fares across the sensitivity analyses.
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct Conclusion {
     #[serde(with = "words_in_results")]
+    #[schemars(with = "String")]
     pub what: Statement,
     /// Construct -> grid values at which the conclusion holds.
     pub holds_for: IndexMap<String, Vec<f64>>,
@@ -118,7 +120,7 @@ pub struct Conclusion {
 }
 
 /// One effect's estimate along one construct's reliability grid, for the plot.
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct EffectCurve {
     pub construct: String,
     pub from: String,
@@ -131,7 +133,7 @@ pub struct EffectCurve {
     pub tipping: Option<f64>,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct SensitivityOutput {
     pub conclusions: Vec<Conclusion>,
     pub curves: Vec<EffectCurve>,

@@ -4,6 +4,7 @@
 
 use indexmap::IndexMap;
 use nalgebra::DMatrix;
+use schemars::JsonSchema;
 use serde::{Deserialize, Serialize};
 use serde_json::{Value, json};
 
@@ -25,16 +26,17 @@ pub const VERSION: u32 = 3;
 /// Class members fitted at most (the rest are counted, not fitted).
 const MAX_MEMBERS: usize = 8;
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct EdgeRecord {
     pub from: String,
     pub to: String,
     /// Directed, or undirected when the data cannot orient it (`"directed"` / `"undirected"`).
+    #[schemars(with = "super::stats_schema::EdgeKindSchema")]
     pub kind: EdgeKind,
     pub reason: String,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct RemovedRecord {
     pub a: String,
     pub b: String,
@@ -43,7 +45,7 @@ pub struct RemovedRecord {
     pub by_knowledge: bool,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct EffectRecord {
     pub from: String,
     pub to: String,
@@ -53,16 +55,17 @@ pub struct EffectRecord {
     pub std: Option<f64>,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct MemberFit {
     pub edges: Vec<[String; 2]>,
     pub converged: bool,
+    #[schemars(with = "super::stats_schema::FitIndicesSchema")]
     pub fit: FitIndices,
     pub effects: Vec<EffectRecord>,
     pub r_squared: IndexMap<String, f64>,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct StructureOutput {
     pub test: CiTestKind,
     pub alpha: f64,
@@ -72,6 +75,7 @@ pub struct StructureOutput {
     pub tests_run: usize,
     /// Effects and fit of the first DAG of the class (the one the report draws).
     pub effects: Vec<EffectRecord>,
+    #[schemars(with = "Option<super::stats_schema::FitIndicesSchema>")]
     pub fit: Option<FitIndices>,
     pub r_squared: IndexMap<String, f64>,
     pub members: Vec<MemberFit>,
