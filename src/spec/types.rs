@@ -68,7 +68,6 @@ pub struct DataSpec {
     /// Which items are ordinal: `auto` (integer items with at most 10 levels), `none`, or a list
     /// of item names.
     #[serde(default)]
-    #[schemars(extend("default" = "auto"))]
     pub ordinal: OrdinalSpec,
     /// Items to reverse, each with its scale's lowest and highest value: `{item: [1, 5]}`
     /// turns an answer x into 1 + 5 - x.
@@ -123,14 +122,25 @@ pub enum MatrixKind {
 }
 
 /// Which items are ordinal: decided from the data (`auto`), never (`none`), or listed.
-#[derive(Debug, Clone, Default, Serialize, PartialEq)]
-#[serde(untagged)]
+#[derive(Debug, Clone, Default, PartialEq)]
 pub enum OrdinalSpec {
     /// Integer items with at most `AUTO_MAX_LEVELS` distinct values are ordinal.
     #[default]
     Auto,
     None,
     Items(Vec<String>),
+}
+
+/// Written as the spec writes it: `"auto"`, `"none"` or the list. (An untagged derive wrote
+/// both words as `null`, so the two settings shared a `load` key and a spec hash.)
+impl Serialize for OrdinalSpec {
+    fn serialize<S: serde::Serializer>(&self, s: S) -> Result<S::Ok, S::Error> {
+        match self {
+            OrdinalSpec::Auto => s.serialize_str("auto"),
+            OrdinalSpec::None => s.serialize_str("none"),
+            OrdinalSpec::Items(items) => items.serialize(s),
+        }
+    }
 }
 
 /// The level count below which an all-integer item is read as ordinal under `ordinal: auto`.

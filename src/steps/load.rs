@@ -653,6 +653,23 @@ mod tests {
         assert_eq!(groups, vec![ResponseGroup { from: None, to: None, count: 3, label: "all".into() }]);
     }
 
+    /// `ordinal: auto` and `ordinal: none` load different tables, so their keys must differ
+    /// (both were once written as `null`, and the cache served one for the other).
+    #[test]
+    fn every_ordinal_setting_has_its_own_key() {
+        let params: Vec<Value> = [OrdinalSpec::Auto, OrdinalSpec::None, OrdinalSpec::Items(vec!["r".into()])]
+            .into_iter()
+            .map(|o| step(o).params())
+            .collect();
+        assert_eq!(params[0]["ordinal"], "auto");
+        assert_eq!(params[1]["ordinal"], "none");
+        assert_eq!(params[2]["ordinal"], json!(["r"]));
+        // The words read back as what they were written from.
+        for (o, p) in [OrdinalSpec::Auto, OrdinalSpec::None].iter().zip(&params) {
+            assert_eq!(&serde_json::from_value::<OrdinalSpec>(p["ordinal"].clone()).unwrap(), o);
+        }
+    }
+
     fn step(ordinal: OrdinalSpec) -> LoadStep {
         let mut reverse = IndexMap::new();
         reverse.insert("r".to_string(), [1.0, 7.0]);
