@@ -266,6 +266,22 @@ fn the_demo_spec_names_its_schema_for_editors() {
     assert!(repo().join("pipelines/transit").join(target).is_file(), "{target} does not exist");
 }
 
+/// The editor hint is a comment: the parsed spec, and so every step key, is the same without it.
+#[test]
+fn the_editor_hint_changes_no_key() {
+    let case = demo_case(None);
+    let with_hint = case.run(["plan", "pipelines/transit/spec.yaml"]);
+    with_hint.success();
+    let spec = case.read("pipelines/transit/spec.yaml");
+    assert!(spec.starts_with("# yaml-language-server: $schema="));
+    let without: String = spec.lines().skip(1).map(|l| format!("{l}\n")).collect();
+    let case = case.file("pipelines/transit/spec.yaml", without);
+    let without_hint = case.run(["plan", "pipelines/transit/spec.yaml"]);
+    without_hint.success();
+    assert_eq!(with_hint.stdout, without_hint.stdout);
+    assert!(with_hint.stdout.lines().count() >= 7, "{}", with_hint.stdout);
+}
+
 /// The CSV tables hold results.json's aggregates (same numbers, parsed back), quoted so that
 /// names with commas and quotes survive, and `verify` renders them again.
 #[test]
