@@ -157,6 +157,13 @@ fn every_spec_and_the_demo_results_pass_their_schemas() {
         }
     }
     assert!(count >= 8, "expected the tests' spec literals, found {count}");
+    // The unit tests' spec with every key of the format (`src/spec/schema.rs`), less its
+    // summary matrix (it also has waves, which `check` refuses with a matrix).
+    let source = std::fs::read_to_string(repo().join("src/spec/schema.rs")).unwrap();
+    let every_key = source.split("EVERY_KEY: &str = r#\"").nth(1).and_then(|s| s.split("\"#").next()).unwrap();
+    let matrix = every_key.lines().find(|l| l.trim_start().starts_with("matrix:")).expect("a matrix line");
+    std::fs::write(literals.path().join("every-key.yaml"), every_key.replace(&format!("{matrix}\n"), "")).unwrap();
+    files.push(literals.path().join("every-key.yaml"));
     let (code, out) = validate("schemas/spec.schema.json", &files);
     assert_eq!(code, 0, "specs fail the spec schema:\n{out}");
     assert_eq!(out.matches(": ok").count(), files.len(), "{out}");
@@ -322,6 +329,10 @@ fn tables_hold_the_results_and_quote_names() {
         serde_json::from_str(&std::fs::read_to_string(dir.join("manifest.json")).unwrap()).unwrap();
     for table in ["loadings", "fit", "edges", "effects"] {
         assert!(manifest["files"][format!("tables/{table}.csv")].is_string(), "{table} not in the manifest");
+    }
+    if python_with(&["jsonschema", "yaml"], "tables_hold_the_results_and_quote_names (schema part)") {
+        let (code, out) = validate("schemas/results.schema.json", &[dir.join("results.json")]);
+        assert_eq!(code, 0, "results.json without resample fails its schema:\n{out}");
     }
     let out = case.run(["verify", "reports/odd-names/v1"]);
     out.success().stdout_contains("file tables/loadings.csv");
