@@ -173,6 +173,12 @@ fn every_spec_and_the_demo_results_pass_their_schemas() {
     let results = case.path().join("reports/transit-rider-panel/v1/results.json");
     let (code, out) = validate("schemas/results.schema.json", std::slice::from_ref(&results));
     assert_eq!(code, 0, "the demo's results.json fails the results schema:\n{out}");
+    // A published matrix instead of rows: no means, no percentiles, no bootstrap.
+    let matrix = Case::new().spec(crate::inputs::MATRIX_SPEC).file("m.csv", crate::inputs::MATRIX);
+    matrix.run(["run", "spec.yaml"]).success();
+    let (code, out) =
+        validate("schemas/results.schema.json", &[matrix.path().join("reports/published/v1/results.json")]);
+    assert_eq!(code, 0, "a summary matrix's results.json fails the results schema:\n{out}");
     // The validator is not a rubber stamp: a results.json missing its format version fails.
     let mut broken: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(&results).unwrap()).unwrap();
     broken.as_object_mut().unwrap().remove("results_format");
