@@ -9,6 +9,7 @@ use clap::{Parser, Subcommand};
 use crate::app::check::check;
 use crate::app::plan::plan;
 use crate::app::run::run;
+use crate::app::schema::{SchemaKind, schema_text};
 use crate::app::{AppError, Exit, Log};
 use crate::pipeline::cache::Cache;
 use crate::pipeline::chain::Progress;
@@ -108,6 +109,20 @@ pub enum Command {
         /// A report version folder, e.g. reports/transit-rider-panel/v1
         report_dir: PathBuf,
     },
+    /// Print the JSON Schema (draft 2020-12) of the spec format or of results.json
+    Schema {
+        /// Which schema
+        #[arg(value_enum)]
+        which: SchemaWhich,
+    },
+}
+
+#[derive(Debug, Clone, Copy, clap::ValueEnum)]
+pub enum SchemaWhich {
+    /// The analysis spec (for editors: see the README)
+    Spec,
+    /// results.json of a report version
+    Results,
 }
 
 struct StderrLog;
@@ -167,6 +182,14 @@ pub fn dispatch(cli: Cli) -> Exit {
         Command::Check { spec } => check_command(&spec),
         Command::Plan { spec, cache } => plan_command(&spec, &cache.resolve()),
         Command::Verify { report_dir } => verify_command(&report_dir),
+        Command::Schema { which } => {
+            let kind = match which {
+                SchemaWhich::Spec => SchemaKind::Spec,
+                SchemaWhich::Results => SchemaKind::Results,
+            };
+            print!("{}", schema_text(kind));
+            Ok(Exit::Ok)
+        }
         Command::Diff { from, to } => crate::app::diff::diff_dirs(&from, &to).map(|c| {
             print!("{}", c.markdown(&from.display().to_string(), &to.display().to_string()));
             Exit::Ok

@@ -6,7 +6,7 @@ use crate::harness::{Case, SMALL_COLUMNS, SMALL_SPEC, synthetic_csv};
 
 // ---------------------------------------------------------------- published matrices (item 3)
 
-const MATRIX: &str = ",a1,a2,a3,b1,b2,b3
+pub const MATRIX: &str = ",a1,a2,a3,b1,b2,b3
 a1,1,0.5,0.4,0.2,0.2,0.1
 a2,0.5,1,0.45,0.2,0.15,0.1
 a3,0.4,0.45,1,0.1,0.2,0.2
@@ -15,7 +15,7 @@ b2,0.2,0.15,0.2,0.5,1,0.45
 b3,0.1,0.1,0.2,0.4,0.45,1
 ";
 
-const MATRIX_SPEC: &str = "construe: 1
+pub const MATRIX_SPEC: &str = "construe: 1
 title: Published
 data:
   matrix: {file: m.csv, kind: correlation, n: 300}

@@ -16,6 +16,7 @@ mod inputs;
 mod reference;
 mod report;
 mod robustness;
+mod schemas;
 mod sensitivity;
 mod simulate;
 mod types;

@@ -8,6 +8,7 @@ pub mod diff;
 pub mod lints;
 pub mod plan;
 pub mod run;
+pub mod schema;
 pub mod simulate;
 pub mod verify;
 

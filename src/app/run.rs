@@ -5,19 +5,19 @@
 use std::collections::BTreeMap;
 use std::path::Path;
 
-use serde_json::{Map, Value};
+use serde_json::Value;
 
 use super::check::check;
 use super::context::report_context;
 use super::lints::data_lints;
 use super::{AppError, Log};
 use crate::pipeline::cache::Cache;
-use crate::pipeline::executor::{Event, Execution, execute};
+use crate::pipeline::executor::{Event, execute};
 use crate::pipeline::key::Key;
 use crate::pipeline::lock::RunLock;
 use crate::pipeline::manifest::{Manifest, SpecInfo};
 use crate::pipeline::plan::Plan;
-use crate::report::{WriteOutcome, slug, write_version};
+use crate::report::{Results, WriteOutcome, slug, write_version};
 use crate::spec::SpecFile;
 use crate::steps::{Artifact, StepKind};
 
@@ -58,7 +58,8 @@ pub fn run(path: &Path, cache: &Cache, log: &mut dyn Log) -> Result<RunSummary, 
             log.warn(d.to_string().trim_end().trim_start_matches("warning: "));
         }
     }
-    let results = results_json(&execution);
+    let typed = Results::of(&execution.artifacts);
+    let results = typed.to_value();
     let mut manifest =
         Manifest::new(spec_info(&spec), &plan, &execution.outcomes, seeds(&spec), report_settings(&spec));
     // The version folder sits one level below `root`.
@@ -66,25 +67,14 @@ pub fn run(path: &Path, cache: &Cache, log: &mut dyn Log) -> Result<RunSummary, 
         super::verify::relative_path(&root, &spec.path).map(|r| Path::new("..").join(r).display().to_string());
     let mut context = report_context(&spec, &execution, &results);
     let mut warnings = Vec::new();
-    let outcome = write_version(&root, &mut manifest, &results, &mut context, &spec.spec.report.formats, &mut |w| {
-        warnings.push(w)
-    });
+    let outcome =
+        write_version(&root, &mut manifest, &typed, &mut context, &spec.spec.report.formats, &mut |w| warnings.push(w));
     for w in &warnings {
         log.warn(w);
     }
     let outcome = outcome?;
     let cached = execution.outcomes.iter().filter(|o| o.cached).count();
     Ok(RunSummary { outcome, computed: execution.outcomes.len() - cached, cached })
-}
-
-/// results.json: `data` (the load summary) and one key per analysis that ran.
-pub fn results_json(execution: &Execution) -> Value {
-    let mut map = Map::new();
-    for (kind, artifact) in &execution.artifacts {
-        let key = if kind.name() == "load" { "data" } else { kind.name() };
-        map.insert(key.to_string(), artifact.results());
-    }
-    Value::Object(map)
 }
 
 pub(crate) fn spec_info(spec: &SpecFile) -> SpecInfo {

@@ -9,7 +9,7 @@ use serde_json::Value;
 
 use super::AppError;
 use super::context::report_context;
-use super::run::{report_settings, results_json, seeds, spec_info};
+use super::run::{report_settings, seeds, spec_info};
 use crate::fsguard::{MAX_TEXT_BYTES, read_regular, read_regular_text};
 use crate::pipeline::PipelineError;
 use crate::pipeline::cache::Cache;
@@ -18,7 +18,7 @@ use crate::pipeline::executor::{Execution, execute};
 use crate::pipeline::key::Key;
 use crate::pipeline::manifest::{MANIFEST_FORMAT, Manifest};
 use crate::pipeline::plan::Plan;
-use crate::report::{complete_context, read_results, render_files, versions};
+use crate::report::{Results, complete_context, read_results, render_files, versions};
 use crate::spec::{Diagnostic, Report, SpecFile};
 
 /// One line of the verification: a step, an input file, a manifest field or a published file,
@@ -229,7 +229,8 @@ fn check_files(
     spec: &SpecFile,
     execution: &Execution,
 ) {
-    let results = results_json(execution);
+    let typed = Results::of(&execution.artifacts);
+    let results = typed.to_value();
     let previous = match &manifest.previous {
         None => Ok(None),
         Some(p) => {
@@ -244,7 +245,7 @@ fn check_files(
     let rendered = previous.clone().and_then(|previous| {
         let mut context = report_context(spec, execution, &results);
         complete_context(&mut context, manifest, &results, previous.as_ref().map(|(n, r, m)| (*n, r, m)));
-        render_files(&results, &context, &spec.spec.report.formats).map_err(|e| e.to_string())
+        render_files(&typed, &context, &spec.spec.report.formats).map_err(|e| e.to_string())
     });
     let mut names: Vec<&str> = vec!["results.json"];
     for name in manifest.files.keys() {

@@ -1,4 +1,5 @@
-//! The report: results.json, manifest.json, report.html and report.md for one version, written
+//! The report: results.json, the CSV tables (`tables/*.csv`), manifest.json, report.html and
+//! report.md for one version, written
 //! to `<report.dir>/<slug>/v<N>/`. Central function: `write_version`. A version folder appears
 //! whole or not at all (built under a hidden temporary name, then renamed); an identical
 //! rerun (same manifest fingerprint as the latest version) writes nothing. `render_files` and
@@ -6,7 +7,9 @@
 
 pub mod diagram;
 pub mod diff;
+pub mod results;
 pub mod svg;
+pub mod tables;
 pub mod text;
 pub mod versions;
 
@@ -20,6 +23,7 @@ use crate::pipeline::key::Key;
 use crate::pipeline::manifest::{Manifest, PreviousVersion};
 use crate::spec::types::ReportFormat;
 
+pub use results::{RESULTS_FORMAT, Results};
 pub use text::{code_span, markdown_text, visible};
 pub use versions::{WriteOutcome, slug};
 
@@ -127,14 +131,15 @@ pub fn render(format: ReportFormat, context: &Value) -> Result<String, ReportErr
 }
 
 /// The files of a version besides the manifest, rendered from the results and the completed
-/// context: `results.json` first, then one file per format. `verify` renders them again and
-/// compares bytes.
+/// context: `results.json` first, then the CSV tables, then one file per format. `verify`
+/// renders them again and compares bytes.
 pub fn render_files(
-    results: &Value,
+    results: &Results<'_>,
     context: &Value,
     formats: &[ReportFormat],
 ) -> Result<Vec<(&'static str, String)>, ReportError> {
-    let mut files = vec![("results.json", pretty(results))];
+    let mut files = vec![("results.json", pretty(&results.to_value()))];
+    files.extend(tables::tables(results));
     for format in formats {
         let name = match format {
             ReportFormat::Html => "report.html",
@@ -187,7 +192,7 @@ pub fn read_results(dir: &Path) -> Option<Value> {
 pub fn write_version(
     root: &Path,
     manifest: &mut Manifest,
-    results: &Value,
+    typed: &Results<'_>,
     context: &mut Value,
     formats: &[ReportFormat],
     warn: &mut dyn FnMut(String),
@@ -196,6 +201,7 @@ pub fn write_version(
         let path = path.to_path_buf();
         move |source| ReportError::Io { action, path, source }
     };
+    let results = &typed.to_value();
     std::fs::create_dir_all(root).map_err(io("create report folder", root))?;
     versions::remove_stale_partials(root);
     let survey = versions::survey(root);
@@ -221,11 +227,14 @@ pub fn write_version(
     });
     manifest.previous = previous.as_ref().map(|(n, _, m)| PreviousVersion { version: *n, fingerprint: m.fingerprint });
     complete_context(context, manifest, results, previous.as_ref().map(|(n, r, m)| (*n, r, *m)));
-    let files = render_files(results, context, formats)?;
+    let files = render_files(typed, context, formats)?;
     let staging =
         tempfile::Builder::new().prefix(".partial-v").tempdir_in(root).map_err(io("create staging folder in", root))?;
     for (name, text) in &files {
         let path = staging.path().join(name);
+        if let Some(folder) = path.parent() {
+            std::fs::create_dir_all(folder).map_err(io("create folder", folder))?;
+        }
         std::fs::write(&path, text).map_err(io("write", &path))?;
         manifest.files.insert((*name).to_string(), Key::of_bytes(text.as_bytes()));
     }

@@ -1,75 +1,128 @@
 //! The spec format, version 1, as serde types: one YAML file per analysis (DESIGN.md §2).
 //! Central type: `Spec`. Every struct rejects unknown keys; defaults live here and nowhere else.
 //! Changing this file's meaning is a format change: add optional keys, never rename.
+//! The doc comments of the types and fields are the descriptions of the published JSON Schema
+//! (`construe schema spec`, `schemas/spec.schema.json`): write them for the spec's author.
+//! Bounds that `validate.rs` checks are stated with `#[schemars(range(...))]` over the same
+//! `MAX_*` constants, or with the bounded number types at the end of this file, whose `holds`
+//! is what `validate.rs` tests.
 
 use std::path::PathBuf;
 
+use std::borrow::Cow;
+
 use indexmap::IndexMap;
+use schemars::{JsonSchema, Schema, SchemaGenerator, json_schema};
 use serde::{Deserialize, Deserializer, Serialize};
+
+use super::validate::{MAX_DRAWS, MAX_GRID_POINTS, MAX_MATRIX_N, MAX_MIN_ITEMS, MAX_REPLICATES, MAX_TITLE_CHARS};
 
 /// The spec format version this build reads.
 pub const FORMAT_VERSION: u32 = 1;
 
-#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+/// A construe analysis spec: the data, the constructs and their items, what is known about
+/// their order, the analyses to run and the report to write. One YAML file per analysis.
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq, JsonSchema)]
 #[serde(deny_unknown_fields)]
+#[schemars(title = "construe spec")]
 pub struct Spec {
-    /// Spec format version; must equal `FORMAT_VERSION`.
+    /// Spec format version; this construe reads version 1.
+    #[schemars(range(min = FORMAT_VERSION, max = FORMAT_VERSION))]
     pub construe: u32,
+    /// The analysis's name; the report folder is named after it.
+    #[schemars(length(max = MAX_TITLE_CHARS))]
     pub title: String,
+    /// Where the answers are: survey waves of respondent rows, or one published summary matrix.
     pub data: DataSpec,
+    /// The constructs (latent variables), each named by its key, with the items that measure it.
     pub constructs: IndexMap<String, ConstructSpec>,
+    /// What is known in advance about the order of the constructs (for the structure search).
     #[serde(default)]
     pub knowledge: Knowledge,
+    /// The analyses to run; each key present means that analysis runs.
     #[serde(default)]
     pub analyses: Analyses,
+    /// Where and in which formats the report is written.
     #[serde(default)]
     pub report: ReportSpec,
 }
 
-#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+/// The data: either `waves` (one or more files of respondent rows) or `matrix` (a published
+/// summary matrix), not both.
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq, JsonSchema)]
 #[serde(deny_unknown_fields)]
+#[schemars(transform = waves_or_matrix)]
 pub struct DataSpec {
+    /// Survey waves, each a CSV or Parquet file of respondent rows with one column per item.
     #[serde(default)]
     pub waves: Vec<WaveSpec>,
+    /// A published correlation or covariance matrix used instead of respondent rows.
     #[serde(default)]
     pub matrix: Option<MatrixSpec>,
+    /// The column that identifies a respondent (not an item).
     #[serde(default)]
     pub id_column: Option<String>,
+    /// Answer codes that mean "missing" (for example -9).
     #[serde(default)]
     pub missing_codes: Vec<f64>,
+    /// Which items are ordinal: `auto` (integer items with at most 10 levels), `none`, or a list
+    /// of item names.
     #[serde(default)]
     pub ordinal: OrdinalSpec,
+    /// Items to reverse, each with its scale's lowest and highest value: `{item: [1, 5]}`
+    /// turns an answer x into 1 + 5 - x.
     #[serde(default)]
     pub reverse: IndexMap<String, [f64; 2]>,
 }
 
-#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+/// `data` must name its source: `waves` with at least one wave, or `matrix` (then `waves` is
+/// empty or absent). `validate.rs` reports the same two cases (`NoData`, `WavesAndMatrix`).
+fn waves_or_matrix(schema: &mut Schema) {
+    schema.insert(
+        "oneOf".into(),
+        serde_json::json!([
+            {"required": ["waves"], "properties": {"waves": {"minItems": 1}}, "not": {"required": ["matrix"]}},
+            {"required": ["matrix"], "properties": {"waves": {"maxItems": 0}}}
+        ]),
+    );
+}
+
+/// One survey wave.
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq, JsonSchema)]
 #[serde(deny_unknown_fields)]
 pub struct WaveSpec {
+    /// The wave's name (unique within the spec).
     pub id: String,
-    /// Relative to the spec file's folder.
+    /// The wave's data file (`.csv` or `.parquet`), relative to the spec file's folder.
     pub file: PathBuf,
 }
 
 /// A published summary matrix used instead of respondent rows.
-#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq, JsonSchema)]
 #[serde(deny_unknown_fields)]
 pub struct MatrixSpec {
+    /// The matrix file (CSV with item names as header and first column), relative to the
+    /// spec file's folder.
     pub file: PathBuf,
+    /// Whether the file holds correlations or covariances.
     pub kind: MatrixKind,
+    /// The number of respondents the matrix was computed from (more than the number of items).
+    #[schemars(range(min = 1, max = MAX_MATRIX_N))]
     pub n: usize,
 }
 
-#[derive(Debug, Clone, Copy, Serialize, Deserialize, PartialEq, Eq)]
+/// What a summary matrix holds.
+#[derive(Debug, Clone, Copy, Serialize, Deserialize, PartialEq, Eq, JsonSchema)]
 #[serde(rename_all = "snake_case")]
 pub enum MatrixKind {
+    /// Correlations (unit diagonal).
     Correlation,
+    /// Covariances.
     Covariance,
 }
 
 /// Which items are ordinal: decided from the data (`auto`), never (`none`), or listed.
-#[derive(Debug, Clone, Default, Serialize, PartialEq)]
-#[serde(untagged)]
+#[derive(Debug, Clone, Default, PartialEq)]
 pub enum OrdinalSpec {
     /// Integer items with at most `AUTO_MAX_LEVELS` distinct values are ordinal.
     #[default]
@@ -78,8 +131,38 @@ pub enum OrdinalSpec {
     Items(Vec<String>),
 }
 
+/// Written as the spec writes it: `"auto"`, `"none"` or the list. (An untagged derive wrote
+/// both words as `null`, so the two settings shared a `load` key and a spec hash.)
+impl Serialize for OrdinalSpec {
+    fn serialize<S: serde::Serializer>(&self, s: S) -> Result<S::Ok, S::Error> {
+        match self {
+            OrdinalSpec::Auto => s.serialize_str("auto"),
+            OrdinalSpec::None => s.serialize_str("none"),
+            OrdinalSpec::Items(items) => items.serialize(s),
+        }
+    }
+}
+
 /// The level count below which an all-integer item is read as ordinal under `ordinal: auto`.
 pub const AUTO_MAX_LEVELS: usize = 10;
+
+/// The words and the list `Deserialize` accepts (an untagged enum's unit variants would derive
+/// as `null`).
+impl JsonSchema for OrdinalSpec {
+    fn schema_name() -> Cow<'static, str> {
+        "OrdinalSpec".into()
+    }
+
+    fn json_schema(_: &mut SchemaGenerator) -> Schema {
+        json_schema!({
+            "description": format!("Which items are ordinal: `auto` (integer items with at most {AUTO_MAX_LEVELS} distinct values), `none`, or a list of item names."),
+            "oneOf": [
+                {"type": "string", "enum": ["auto", "none"]},
+                {"type": "array", "items": {"type": "string"}}
+            ]
+        })
+    }
+}
 
 impl<'de> Deserialize<'de> for OrdinalSpec {
     fn deserialize<D: Deserializer<'de>>(deserializer: D) -> Result<Self, D::Error> {
@@ -100,50 +183,68 @@ impl<'de> Deserialize<'de> for OrdinalSpec {
     }
 }
 
-#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+/// One construct: the items (data columns) that measure it.
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq, JsonSchema)]
 #[serde(deny_unknown_fields)]
 pub struct ConstructSpec {
+    /// The construct's items, by column name; three or more identify a construct on its own,
+    /// a single item needs `reliability`.
+    #[schemars(length(min = 1))]
     pub items: Vec<String>,
     /// Reliability of a single indicator, in (0, 1]: its error variance is fixed at
     /// (1 - reliability) x variance.
     #[serde(default)]
+    #[schemars(with = "Option<Reliability>")]
     pub reliability: Option<f64>,
 }
 
-#[derive(Debug, Clone, Default, Serialize, Deserialize, PartialEq)]
+/// What is known before looking at the data, as constraints on the structure search.
+#[derive(Debug, Clone, Default, Serialize, Deserialize, PartialEq, JsonSchema)]
 #[serde(deny_unknown_fields)]
 pub struct Knowledge {
+    /// Construct names in causal order: a construct never causes one in an earlier tier.
     #[serde(default)]
     pub tiers: Vec<Vec<String>>,
+    /// Edges that may not exist, each `[from, to]`.
     #[serde(default)]
     pub forbid: Vec<[String; 2]>,
+    /// Edges that must exist, each `[from, to]`.
     #[serde(default)]
     pub require: Vec<[String; 2]>,
 }
 
-/// Each key present means that analysis runs.
-#[derive(Debug, Clone, Default, Serialize, Deserialize, PartialEq)]
+/// The analyses to run. Each key present means that analysis runs (`{}` takes the defaults).
+#[derive(Debug, Clone, Default, Serialize, Deserialize, PartialEq, JsonSchema)]
 #[serde(deny_unknown_fields)]
 pub struct Analyses {
+    /// The item correlation matrix (Pearson, polychoric or polyserial per pair).
     #[serde(default)]
     pub covariance: Option<CovarianceSpec>,
+    /// Drops items that break their construct's one-factor structure (tetrad tests).
     #[serde(default)]
     pub purify: Option<PurifySpec>,
+    /// Searches the item pool for pure one-factor clusters.
     #[serde(default)]
     pub discover: Option<DiscoverSpec>,
+    /// Fits the measurement model of the declared constructs.
     #[serde(default)]
     pub measure: Option<MeasureSpec>,
+    /// Searches the causal structure among the constructs and fits it.
     #[serde(default)]
     pub structure: Option<StructureSpec>,
+    /// Refits with other reliabilities of single indicators (needs `structure`).
     #[serde(default)]
     pub sensitivity: Option<SensitivitySpec>,
+    /// Bootstrap of the whole analysis (needs respondent rows).
     #[serde(default)]
     pub resample: Option<ResampleSpec>,
 }
 
-#[derive(Debug, Clone, Default, Serialize, Deserialize, PartialEq)]
+/// How the item correlation matrix is estimated.
+#[derive(Debug, Clone, Default, Serialize, Deserialize, PartialEq, JsonSchema)]
 #[serde(deny_unknown_fields)]
 pub struct CovarianceSpec {
+    /// How missing answers are handled.
     #[serde(default)]
     pub missing: Missing,
     /// How ordinal pairs are estimated: two-step (thresholds from the marginals) or full ML.
@@ -151,38 +252,56 @@ pub struct CovarianceSpec {
     pub ordinal: OrdinalEstimation,
 }
 
-#[derive(Debug, Clone, Copy, Default, Serialize, Deserialize, PartialEq, Eq)]
+/// How missing answers are handled.
+#[derive(Debug, Clone, Copy, Default, Serialize, Deserialize, PartialEq, Eq, JsonSchema)]
 #[serde(rename_all = "snake_case")]
 pub enum Missing {
+    /// Each pair of items uses every respondent who answered both.
     #[default]
     Pairwise,
+    /// Only respondents who answered every item.
     Listwise,
 }
 
-#[derive(Debug, Clone, Copy, Default, Serialize, Deserialize, PartialEq, Eq)]
+/// How ordinal pairs are estimated.
+#[derive(Debug, Clone, Copy, Default, Serialize, Deserialize, PartialEq, Eq, JsonSchema)]
 #[serde(rename_all = "snake_case")]
 pub enum OrdinalEstimation {
+    /// Thresholds from each item's marginal distribution, then the correlation.
     #[default]
     TwoStep,
+    /// Thresholds and correlation jointly by maximum likelihood.
     Full,
 }
 
-#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+/// Item purification by tetrad tests.
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq, JsonSchema)]
 #[serde(deny_unknown_fields)]
 pub struct PurifySpec {
+    /// The tetrad test.
     #[serde(default)]
     pub test: TetradTest,
+    /// False discovery rate of the tetrad tests, in (0, 1).
     #[serde(default = "default_tetrad_alpha")]
+    #[schemars(with = "Alpha")]
     pub alpha: f64,
+    /// Items a construct keeps at least; purification stops there.
     #[serde(default = "default_min_items")]
+    #[schemars(range(min = MIN_ITEMS_FLOOR, max = MAX_MIN_ITEMS))]
     pub min_items: usize,
 }
 
-#[derive(Debug, Clone, Copy, Default, Serialize, Deserialize, PartialEq, Eq)]
+/// The smallest `purify.min_items`: a tetrad needs 4 items, a latent variable 3.
+pub const MIN_ITEMS_FLOOR: usize = 3;
+
+/// The tetrad test.
+#[derive(Debug, Clone, Copy, Default, Serialize, Deserialize, PartialEq, Eq, JsonSchema)]
 #[serde(rename_all = "snake_case")]
 pub enum TetradTest {
+    /// Wishart's test (normal theory; works from the correlation matrix).
     #[default]
     Wishart,
+    /// The asymptotically distribution-free delta-method test (needs respondent rows).
     Delta,
 }
 
@@ -196,13 +315,19 @@ fn default_structure_alpha() -> f64 {
     0.05
 }
 
-#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+/// Cluster discovery in an item pool.
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq, JsonSchema)]
 #[serde(deny_unknown_fields)]
 pub struct DiscoverSpec {
+    /// The item pool: `all` (every item of the data) or a list of item names.
     #[serde(default)]
+    #[schemars(extend("default" = "all"))]
     pub items: ItemPool,
+    /// False discovery rate of the tetrad tests, in (0, 1).
     #[serde(default = "default_tetrad_alpha")]
+    #[schemars(with = "Alpha")]
     pub alpha: f64,
+    /// The tetrad test.
     #[serde(default)]
     pub test: TetradTest,
 }
@@ -214,6 +339,23 @@ pub enum ItemPool {
     #[default]
     All,
     Items(Vec<String>),
+}
+
+/// The word and the list `Deserialize` accepts.
+impl JsonSchema for ItemPool {
+    fn schema_name() -> Cow<'static, str> {
+        "ItemPool".into()
+    }
+
+    fn json_schema(_: &mut SchemaGenerator) -> Schema {
+        json_schema!({
+            "description": "The item pool: `all` (every item of the data) or a list of item names.",
+            "oneOf": [
+                {"type": "string", "enum": ["all"]},
+                {"type": "array", "items": {"type": "string"}}
+            ]
+        })
+    }
 }
 
 impl<'de> Deserialize<'de> for ItemPool {
@@ -234,14 +376,17 @@ impl<'de> Deserialize<'de> for ItemPool {
     }
 }
 
-#[derive(Debug, Clone, Default, Serialize, Deserialize, PartialEq)]
+/// The measurement model.
+#[derive(Debug, Clone, Default, Serialize, Deserialize, PartialEq, JsonSchema)]
 #[serde(deny_unknown_fields)]
 pub struct MeasureSpec {
+    /// How each construct's scale is set.
     #[serde(default)]
     pub identification: Identification,
 }
 
-#[derive(Debug, Clone, Copy, Default, Serialize, Deserialize, PartialEq, Eq)]
+/// How each construct's scale is set.
+#[derive(Debug, Clone, Copy, Default, Serialize, Deserialize, PartialEq, Eq, JsonSchema)]
 #[serde(rename_all = "snake_case")]
 pub enum Identification {
     /// Latent variances fixed at 1.
@@ -251,16 +396,21 @@ pub enum Identification {
     FirstLoading,
 }
 
-#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+/// The structure search among the constructs.
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq, JsonSchema)]
 #[serde(deny_unknown_fields)]
 pub struct StructureSpec {
+    /// Significance level of the conditional independence tests, in (0, 1).
     #[serde(default = "default_structure_alpha")]
+    #[schemars(with = "Alpha")]
     pub alpha: f64,
+    /// The conditional independence test.
     #[serde(default)]
     pub test: CiTest,
 }
 
-#[derive(Debug, Clone, Copy, Default, Serialize, Deserialize, PartialEq, Eq)]
+/// The conditional independence test of the structure search.
+#[derive(Debug, Clone, Copy, Default, Serialize, Deserialize, PartialEq, Eq, JsonSchema)]
 #[serde(rename_all = "snake_case")]
 pub enum CiTest {
     /// Wald test of the partial correlation carrying the measurement model's uncertainty.
@@ -270,17 +420,26 @@ pub enum CiTest {
     Fisher,
 }
 
-#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+/// Sensitivity of the conclusions to the assumed reliability of single indicators.
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq, JsonSchema)]
 #[serde(deny_unknown_fields)]
 pub struct SensitivitySpec {
+    /// Per single-indicator construct, the reliabilities to refit with, each in (0, 1].
     #[serde(default)]
+    #[schemars(with = "IndexMap<String, ReliabilityGrid>")]
     pub reliability: IndexMap<String, Vec<f64>>,
+    /// Per single-indicator construct, a prior on its reliability for Monte Carlo draws.
     #[serde(default)]
     pub prior: IndexMap<String, PriorSpec>,
+    /// Monte Carlo draws from the priors (at least 1 when a prior is given).
     #[serde(default = "default_draws")]
+    #[schemars(range(max = MAX_DRAWS))]
     pub draws: usize,
+    /// Other significance levels of the structure search to try, each in (0, 1).
     #[serde(default)]
+    #[schemars(with = "Vec<Alpha>")]
     pub alpha: Vec<f64>,
+    /// Seed of the prior draws.
     #[serde(default = "default_seed")]
     pub seed: u64,
 }
@@ -292,17 +451,24 @@ fn default_seed() -> u64 {
     1
 }
 
-#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+/// A prior on a reliability.
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq, JsonSchema)]
 #[serde(deny_unknown_fields)]
 pub struct PriorSpec {
+    /// Beta distribution parameters `[a, b]`, both positive (mean a / (a + b)).
+    #[schemars(with = "[Positive; 2]")]
     pub beta: [f64; 2],
 }
 
-#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+/// The bootstrap.
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq, JsonSchema)]
 #[serde(deny_unknown_fields)]
 pub struct ResampleSpec {
+    /// Bootstrap replicates; each reruns every analysis.
     #[serde(default = "default_replicates")]
+    #[schemars(range(min = 1, max = MAX_REPLICATES))]
     pub replicates: usize,
+    /// Seed of the resampling.
     #[serde(default = "default_seed")]
     pub seed: u64,
 }
@@ -311,11 +477,15 @@ fn default_replicates() -> usize {
     200
 }
 
-#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+/// The report.
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq, JsonSchema)]
 #[serde(deny_unknown_fields)]
 pub struct ReportSpec {
+    /// The report formats to write (at least one).
     #[serde(default = "default_formats")]
+    #[schemars(length(min = 1))]
     pub formats: Vec<ReportFormat>,
+    /// The folder the report versions go to, relative to the spec file's folder.
     #[serde(default = "default_report_dir")]
     pub dir: PathBuf,
     /// A `construe simulate` model file the data were drawn from (relative to the spec): the
@@ -330,10 +500,13 @@ impl Default for ReportSpec {
     }
 }
 
-#[derive(Debug, Clone, Copy, Serialize, Deserialize, PartialEq, Eq)]
+/// A report format.
+#[derive(Debug, Clone, Copy, Serialize, Deserialize, PartialEq, Eq, JsonSchema)]
 #[serde(rename_all = "snake_case")]
 pub enum ReportFormat {
+    /// `report.html`, one self-contained page.
     Html,
+    /// `report.md`.
     Markdown,
 }
 
@@ -342,4 +515,95 @@ fn default_formats() -> Vec<ReportFormat> {
 }
 fn default_report_dir() -> PathBuf {
     PathBuf::from("reports")
+}
+
+/// A significance level or false discovery rate: strictly between 0 and 1. Schema only (the
+/// spec holds a plain `f64`); `validate.rs` tests `Alpha::holds`.
+pub struct Alpha;
+
+impl Alpha {
+    pub fn holds(value: f64) -> bool {
+        value > 0.0 && value < 1.0
+    }
+}
+
+impl JsonSchema for Alpha {
+    fn inline_schema() -> bool {
+        true
+    }
+
+    fn schema_name() -> Cow<'static, str> {
+        "Alpha".into()
+    }
+
+    fn json_schema(_: &mut SchemaGenerator) -> Schema {
+        json_schema!({"type": "number", "exclusiveMinimum": 0.0, "exclusiveMaximum": 1.0})
+    }
+}
+
+/// A reliability: above 0, at most 1. Schema only; `validate.rs` tests `Reliability::holds`.
+pub struct Reliability;
+
+impl Reliability {
+    pub fn holds(value: f64) -> bool {
+        value > 0.0 && value <= 1.0
+    }
+}
+
+impl JsonSchema for Reliability {
+    fn inline_schema() -> bool {
+        true
+    }
+
+    fn schema_name() -> Cow<'static, str> {
+        "Reliability".into()
+    }
+
+    fn json_schema(_: &mut SchemaGenerator) -> Schema {
+        json_schema!({"type": "number", "exclusiveMinimum": 0.0, "maximum": 1.0})
+    }
+}
+
+/// A sensitivity grid of reliabilities: at most `MAX_GRID_POINTS` values. Schema only.
+pub struct ReliabilityGrid;
+
+impl JsonSchema for ReliabilityGrid {
+    fn inline_schema() -> bool {
+        true
+    }
+
+    fn schema_name() -> Cow<'static, str> {
+        "ReliabilityGrid".into()
+    }
+
+    fn json_schema(generator: &mut SchemaGenerator) -> Schema {
+        json_schema!({
+            "type": "array",
+            "items": generator.subschema_for::<Reliability>(),
+            "maxItems": MAX_GRID_POINTS,
+        })
+    }
+}
+
+/// A number above 0. Schema only; `validate.rs` tests `Positive::holds`.
+pub struct Positive;
+
+impl Positive {
+    pub fn holds(value: f64) -> bool {
+        value > 0.0
+    }
+}
+
+impl JsonSchema for Positive {
+    fn inline_schema() -> bool {
+        true
+    }
+
+    fn schema_name() -> Cow<'static, str> {
+        "Positive".into()
+    }
+
+    fn json_schema(_: &mut SchemaGenerator) -> Schema {
+        json_schema!({"type": "number", "exclusiveMinimum": 0.0})
+    }
 }

@@ -9,7 +9,7 @@ use std::path::PathBuf;
 use super::diagnostic::suggest;
 use super::positions::{child, element};
 use super::problem::{Finding, SpecProblem};
-use super::types::{ItemPool, OrdinalSpec, Spec, TetradTest};
+use super::types::{Alpha, ItemPool, MIN_ITEMS_FLOOR, OrdinalSpec, Positive, Reliability, Spec, TetradTest};
 use crate::data::MatrixProblem;
 
 /// What the caller found when reading a data source's header.
@@ -159,7 +159,7 @@ fn check_constructs(spec: &Spec, sources: &[SourceColumns], available: Option<&V
             out.push(Finding::key(SpecProblem::EmptyConstruct { construct: name.clone() }, base.clone()));
         }
         if let Some(r) = c.reliability {
-            if !(r > 0.0 && r <= 1.0) {
+            if !Reliability::holds(r) {
                 out.push(Finding::value(
                     SpecProblem::OutOfRange {
                         what: format!("reliability of `{name}`"),
@@ -355,7 +355,7 @@ fn check_analyses(spec: &Spec, available: Option<&Vec<String>>, out: &mut Vec<Fi
     let a = &spec.analyses;
     let rows = spec.data.matrix.is_none();
     let alpha = |what: &str, value: f64, path: &str, out: &mut Vec<Finding>| {
-        if !(value > 0.0 && value < 1.0) {
+        if !Alpha::holds(value) {
             out.push(Finding::value(
                 SpecProblem::OutOfRange { what: what.into(), range: "(0, 1)".into(), value },
                 path,
@@ -373,7 +373,7 @@ fn check_analyses(spec: &Spec, available: Option<&Vec<String>>, out: &mut Vec<Fi
             ));
         }
         too_many(out, "`purify.min_items`", p.min_items, MAX_MIN_ITEMS, "analyses.purify.min_items");
-        if p.min_items < 3 {
+        if p.min_items < MIN_ITEMS_FLOOR {
             out.push(Finding::value(
                 SpecProblem::OutOfRange {
                     what: "`purify.min_items`".into(),
@@ -447,7 +447,7 @@ fn check_analyses(spec: &Spec, available: Option<&Vec<String>>, out: &mut Vec<Fi
                 path.clone(),
             );
             for (i, &r) in grid.iter().enumerate() {
-                if !(r > 0.0 && r <= 1.0) {
+                if !Reliability::holds(r) {
                     out.push(Finding::value(
                         SpecProblem::OutOfRange {
                             what: format!("reliability grid value for `{name}`"),
@@ -475,7 +475,7 @@ fn check_analyses(spec: &Spec, available: Option<&Vec<String>>, out: &mut Vec<Fi
                     let what = format!("beta prior parameter {} for `{name}`", k + 1);
                     let problem = if !v.is_finite() {
                         SpecProblem::NotFinite { what, value: v }
-                    } else if v <= 0.0 {
+                    } else if !Positive::holds(v) {
                         SpecProblem::OutOfRange { what, range: "(0, inf)".into(), value: v }
                     } else {
                         continue;

@@ -7,6 +7,7 @@ use std::borrow::Cow;
 
 use indexmap::IndexMap;
 use nalgebra::DMatrix;
+use schemars::JsonSchema;
 use serde::{Deserialize, Serialize};
 use serde_json::{Value, json};
 
@@ -86,8 +87,23 @@ impl<'de> Deserialize<'de> for ItemPair {
     }
 }
 
+/// A pair key of results.json: `"first|second"`.
+impl JsonSchema for ItemPair {
+    fn schema_name() -> std::borrow::Cow<'static, str> {
+        "ItemPair".into()
+    }
+
+    fn json_schema(_: &mut schemars::SchemaGenerator) -> schemars::Schema {
+        schemars::json_schema!({
+            "description": "Two items of the matrix, `first|second`, the first before the second in item order.",
+            "type": "string",
+            "pattern": "\\|",
+        })
+    }
+}
+
 /// The estimator used for one item pair.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize, JsonSchema)]
 #[serde(rename_all = "snake_case")]
 pub enum PairMethod {
     Pearson,
@@ -98,26 +114,37 @@ pub enum PairMethod {
 }
 
 /// Whether the correlation matrix is positive definite, and if not, which items are involved.
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct Definiteness {
+    /// Whether every eigenvalue is positive.
     pub positive_definite: bool,
+    /// The smallest eigenvalue.
     pub min_eigenvalue: f64,
     /// Items with the largest weights in the eigenvector of the smallest eigenvalue, when that
     /// eigenvalue is not clearly positive: the items whose combination is (nearly) degenerate.
     pub involved: Vec<String>,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+/// The item correlations and covariances.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct CovarianceOutput {
+    /// The items of the matrix, in order (rows and columns of every matrix here).
     pub items: Vec<String>,
+    /// Item -> how it is analysed.
     pub kind: IndexMap<String, ItemKind>,
     /// Per pair a < b in item order (results.json: keys `"a|b"`).
     pub method: IndexMap<ItemPair, PairMethod>,
+    /// The item correlation matrix (after smoothing, if any).
     pub correlation: Vec<Vec<f64>>,
+    /// The item covariance matrix the models fit (ordinal pairs: correlation times the response-scale standard deviations).
     pub covariance: Vec<Vec<f64>>,
+    /// Respondents behind each entry (pairwise complete answers).
     pub n: Vec<Vec<usize>>,
+    /// Whether the matrix was smoothed to be positive definite.
     pub smoothed: bool,
+    /// How missing answers were handled.
     pub missing: Missing,
+    /// Whether the estimated matrix was positive definite, before any smoothing.
     pub definiteness: Definiteness,
     /// Standard error of each pair's correlation, where defined.
     pub se: IndexMap<ItemPair, Option<f64>>,
@@ -138,23 +165,33 @@ pub struct CovarianceOutput {
     pub sampling_note: Option<String>,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+/// An empty category merged with a neighbour for one pair's estimate.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct Merge {
+    /// The pair whose table had the empty category.
     pub pair: ItemPair,
+    /// The item whose category was empty.
     pub item: String,
     /// The empty category and the one it was merged into, as 1-based positions among the
     /// item's response levels (lowest first), never as response values: a category that is
     /// empty for one pair may hold a single respondent's rare answer overall (issue 13).
     pub empty_level: u32,
+    /// See `empty_level`.
     pub into_level: u32,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+/// How smoothing changed the correlation matrix.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct SmoothingSummary {
+    /// How the matrix was smoothed.
     pub method: String,
+    /// Smallest eigenvalue before smoothing.
     pub min_eigenvalue_before: f64,
+    /// Smallest eigenvalue after smoothing.
     pub min_eigenvalue_after: f64,
+    /// Largest absolute change of a correlation.
     pub max_abs_change: f64,
+    /// Frobenius norm of the change.
     pub frobenius_change: f64,
 }
 

@@ -2,6 +2,7 @@
 //! ignoring the declared constructs, then set beside them. Central type: `DiscoverOutput`.
 
 use indexmap::IndexMap;
+use schemars::JsonSchema;
 use serde::{Deserialize, Serialize};
 use serde_json::{Value, json};
 
@@ -16,20 +17,29 @@ pub const VERSION: u32 = 1;
 /// Smallest cluster reported: three items identify a one-factor model.
 const MIN_CLUSTER: usize = 3;
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+/// Which declared constructs a discovered cluster's items come from.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct ClusterOrigin {
+    /// The cluster's items.
     pub items: Vec<String>,
     /// Declared construct -> how many of the cluster's items it claims.
     pub declared: IndexMap<String, usize>,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+/// Pure clusters found in the item pool.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct DiscoverOutput {
+    /// The pure one-factor clusters found, each a list of items.
     pub clusters: Vec<Vec<String>>,
+    /// Items in no cluster.
     pub unclustered: Vec<String>,
+    /// For each cluster, the declared constructs of its items.
     pub origins: Vec<ClusterOrigin>,
+    /// The false discovery rate used.
     pub alpha: f64,
+    /// The tetrad test used.
     pub test: TetradTest,
+    /// The sample size of the tests.
     pub n: usize,
 }
 

@@ -9,6 +9,7 @@ use std::path::PathBuf;
 
 use indexmap::IndexMap;
 use rayon::prelude::*;
+use schemars::JsonSchema;
 use serde::{Deserialize, Serialize};
 use serde_json::{Value, json};
 
@@ -38,19 +39,28 @@ pub const MEAN_DIGITS: i32 = 3;
 /// respondents' answers, so it is shown coarser than the mean.
 pub const PERCENTILE_DIGITS: i32 = 2;
 
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+/// How an item is analysed.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize, JsonSchema)]
 #[serde(rename_all = "snake_case")]
 pub enum ItemKind {
+    /// Analysed on its own scale (Pearson or polyserial correlations).
     Continuous,
+    /// Ordered categories (polychoric or polyserial correlations).
     Ordinal,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+/// One item's distribution, with no single respondent's value (see the disclosure rule).
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct ItemSummary {
+    /// The item (column) name.
     pub name: String,
+    /// The construct that lists the item (empty when none does).
     pub construct: String,
+    /// Whether the item is analysed as continuous or ordinal.
     pub kind: ItemKind,
+    /// Respondents who answered the item.
     pub n: usize,
+    /// Respondents without an answer (missing codes included).
     pub missing: usize,
     /// Number of distinct observed values.
     pub levels: usize,
@@ -62,40 +72,48 @@ pub struct ItemSummary {
     /// `None` for a summary matrix, which carries no means. Rounded to `MEAN_DIGITS`
     /// significant digits.
     pub mean: Option<f64>,
+    /// Standard deviation, to 3 significant digits; `null` for a summary matrix.
     pub sd: Option<f64>,
     /// Continuous items: the 5th and 95th percentiles (linear interpolation between order
     /// statistics, Hyndman & Fan 1996 type 7), to `PERCENTILE_DIGITS` significant digits; `None`
     /// when fewer than `MIN_GROUP` answers lie at or beyond one of them.
     pub p5: Option<f64>,
+    /// Continuous items: the 95th percentile (see `p5`).
     pub p95: Option<f64>,
     /// Ordinal items: response levels with their counts, pooled into groups of at least
     /// `MIN_GROUP` respondents.
     pub responses: Option<Vec<ResponseGroup>>,
+    /// Whether the item was reverse-coded (`data.reverse`).
     pub reversed: bool,
 }
 
 /// Adjacent response levels of an ordinal item and how many answered one of them. An outer
 /// group that pools several levels leaves its outer bound open (`None`): that bound would be
 /// the smallest or largest answer, possibly a single respondent's.
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct ResponseGroup {
     /// Lowest level in the group; `None` for "this level or below".
     pub from: Option<f64>,
     /// Highest level in the group; `None` for "this level or above".
     pub to: Option<f64>,
+    /// Respondents in the group (at least 5).
     pub count: usize,
     /// `3`, `2–3`, `≤ 2`, `≥ 4` (or `all` when every answer is in one group).
     pub label: String,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+/// One wave as read.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct WaveSummary {
+    /// The wave's id from the spec.
     pub id: String,
+    /// The data file, as the spec names it.
     pub file: String,
+    /// Rows read from the file.
     pub rows: usize,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct SummaryMatrix {
     pub kind: MatrixKind,
     pub n: usize,
@@ -103,12 +121,16 @@ pub struct SummaryMatrix {
     pub values: Vec<Vec<f64>>,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+/// What was read.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct DataSummary {
     /// `waves` (respondent rows) or `matrix` (a published summary matrix).
     pub source: String,
+    /// The waves read, in spec order (empty for a summary matrix).
     pub waves: Vec<WaveSummary>,
+    /// Respondent rows over all waves (the matrix's `n` for a summary matrix).
     pub rows: usize,
+    /// Each item's summary, in item order.
     pub items: Vec<ItemSummary>,
 }
 
@@ -629,6 +651,23 @@ mod tests {
         // Fewer than MIN_GROUP answers in all: one group, no bounds.
         let groups = response_groups(&[1.0, 2.0, 2.0], &[1.0, 2.0]);
         assert_eq!(groups, vec![ResponseGroup { from: None, to: None, count: 3, label: "all".into() }]);
+    }
+
+    /// `ordinal: auto` and `ordinal: none` load different tables, so their keys must differ
+    /// (both were once written as `null`, and the cache served one for the other).
+    #[test]
+    fn every_ordinal_setting_has_its_own_key() {
+        let params: Vec<Value> = [OrdinalSpec::Auto, OrdinalSpec::None, OrdinalSpec::Items(vec!["r".into()])]
+            .into_iter()
+            .map(|o| step(o).params())
+            .collect();
+        assert_eq!(params[0]["ordinal"], "auto");
+        assert_eq!(params[1]["ordinal"], "none");
+        assert_eq!(params[2]["ordinal"], json!(["r"]));
+        // The words read back as what they were written from.
+        for (o, p) in [OrdinalSpec::Auto, OrdinalSpec::None].iter().zip(&params) {
+            assert_eq!(&serde_json::from_value::<OrdinalSpec>(p["ordinal"].clone()).unwrap(), o);
+        }
     }
 
     fn step(ordinal: OrdinalSpec) -> LoadStep {

@@ -5,6 +5,7 @@
 
 use indexmap::IndexMap;
 use nalgebra::DMatrix;
+use schemars::JsonSchema;
 use serde::{Deserialize, Serialize};
 use serde_json::{Value, json};
 
@@ -18,72 +19,112 @@ use construe_stats::sem::{FitIndices, Matrix, ParameterKind, SemFit};
 /// Bump when the fit changes for the same covariances, purification and parameters.
 pub const VERSION: u32 = 2;
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+/// A parameter estimate.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct Estimate {
+    /// The estimate.
     pub est: f64,
+    /// Its standard error (information matrix); `null` where not defined.
     pub se: Option<f64>,
+    /// The completely standardized estimate.
     pub std: Option<f64>,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+/// An item's error variance.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct ErrorVariance {
+    /// The estimate.
     pub est: f64,
+    /// Its standard error; `null` when fixed.
     pub se: Option<f64>,
     /// Fixed from a stated reliability rather than estimated.
     pub fixed: bool,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+/// A square matrix with its row and column names.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct NamedMatrix {
+    /// Row and column names.
     pub names: Vec<String>,
+    /// The matrix, row by row.
     pub matrix: Vec<Vec<f64>>,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+/// A construct's reliability.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct Reliability {
+    /// McDonald's omega from the fitted loadings; `null` for a single indicator (or when it cannot
+    /// be computed).
     pub omega: Option<f64>,
+    /// Cronbach's alpha of the kept items; `null` for a single indicator (or when it cannot be
+    /// computed).
     pub alpha: Option<f64>,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+/// An improper estimate (Heywood case).
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct HeywoodRecord {
+    /// What is improper (for example a negative variance).
     pub kind: String,
+    /// The parameter, in words.
     pub parameter: String,
+    /// Its value.
     pub value: f64,
 }
 
 /// The latent covariance with the delta-method covariance of its lower-triangle elements,
 /// for the structure search's Wald tests.
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct LatentCovariance {
+    /// The constructs.
     pub names: Vec<String>,
+    /// Their covariance matrix.
     pub matrix: Vec<Vec<f64>>,
     /// (i, j), i >= j, column-major lower triangle: the order of `acov`.
     pub pairs: Vec<(usize, usize)>,
+    /// Delta-method covariance of the lower-triangle elements, in the order of `pairs`.
     pub acov: Vec<Vec<f64>>,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+/// The measurement model (confirmatory factor analysis, maximum likelihood).
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct MeasureOutput {
+    /// Whether the fit converged.
     pub converged: bool,
+    /// Fisher scoring iterations.
     pub iterations: usize,
+    /// How the latent scales were set.
     pub identification: Identification,
+    /// The sample size of the fit.
     pub n: usize,
+    /// Construct -> the items it was fitted with (after purification).
     pub constructs: IndexMap<String, Vec<String>>,
+    /// Global fit of the measurement model.
+    #[schemars(with = "super::stats_schema::FitIndicesSchema")]
     pub fit: FitIndices,
+    /// Construct -> item -> loading.
     pub loadings: IndexMap<String, IndexMap<String, Estimate>>,
+    /// Item -> error variance.
     pub error_variances: IndexMap<String, ErrorVariance>,
+    /// Correlations among the constructs.
     pub latent_correlation: NamedMatrix,
+    /// Covariances among the constructs, with their sampling covariance.
     pub latent_covariance: LatentCovariance,
+    /// Construct -> reliability.
     pub reliability: IndexMap<String, Reliability>,
+    /// Improper estimates, if any.
     pub heywood: Vec<HeywoodRecord>,
     /// The declared (unpurified) model's fit, when purification dropped items.
     pub unpurified: Option<UnpurifiedFit>,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+/// The fit of the declared model before purification.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct UnpurifiedFit {
+    /// Whether the fit converged.
     pub converged: bool,
+    /// Global fit with every declared item.
+    #[schemars(with = "super::stats_schema::FitIndicesSchema")]
     pub fit: FitIndices,
 }
 

@@ -12,6 +12,7 @@ pub mod purify;
 pub mod resample;
 pub mod sampling;
 pub mod sensitivity;
+pub mod stats_schema;
 pub mod structure;
 
 use std::collections::BTreeMap;
@@ -162,20 +163,6 @@ impl Artifact {
             StepKind::Structure => read_exact(bytes).map(|a| Artifact::Structure(Box::new(a))),
             StepKind::Resample => read_exact(bytes).map(|a| Artifact::Resample(Box::new(a))),
             StepKind::Sensitivity => read_exact(bytes).map(|a| Artifact::Sensitivity(Box::new(a))),
-        }
-    }
-
-    /// The aggregate, respondent-free form of the artifact for results.json and the report.
-    pub fn results(&self) -> Value {
-        match self {
-            Artifact::Load(a) => serde_json::to_value(&a.summary).unwrap_or(Value::Null),
-            Artifact::Covariance(a) => serde_json::to_value(a.as_ref()).unwrap_or(Value::Null),
-            Artifact::Purify(a) => serde_json::to_value(a.as_ref()).unwrap_or(Value::Null),
-            Artifact::Discover(a) => serde_json::to_value(a.as_ref()).unwrap_or(Value::Null),
-            Artifact::Measure(a) => serde_json::to_value(a.as_ref()).unwrap_or(Value::Null),
-            Artifact::Structure(a) => serde_json::to_value(a.as_ref()).unwrap_or(Value::Null),
-            Artifact::Resample(a) => serde_json::to_value(a.as_ref()).unwrap_or(Value::Null),
-            Artifact::Sensitivity(a) => serde_json::to_value(a.as_ref()).unwrap_or(Value::Null),
         }
     }
 }

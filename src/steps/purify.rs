@@ -4,6 +4,7 @@
 //! Constructs with fewer than two items take part only as partners in cross-construct tetrads.
 
 use indexmap::IndexMap;
+use schemars::JsonSchema;
 use serde::{Deserialize, Serialize};
 use serde_json::{Value, json};
 
@@ -15,39 +16,57 @@ use construe_stats::purify::{PurifyOptions, TetradEvidence, purify};
 /// Bump when purification results change for the same covariances and parameters.
 pub const VERSION: u32 = 1;
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+/// One tetrad test.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct TetradRecord {
+    /// The four items.
     pub items: [String; 4],
     /// Which of the three tetrad differences (1, 2 or 3; see `stats::tetrad`).
     pub which: usize,
+    /// The tetrad difference.
     pub diff: f64,
+    /// The test statistic (standard normal under the null of a vanishing tetrad).
     pub stat: f64,
+    /// The p-value.
     pub p: f64,
     /// Benjamini–Hochberg adjusted over the round's family of tests.
     pub p_adjusted: f64,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+/// An item purification dropped, with the tetrads that implicated it.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct DroppedRecord {
+    /// The dropped item.
     pub item: String,
+    /// The round it was dropped in (0 first; round r tests the items kept after r drops).
     pub round: usize,
+    /// The violations of that round that involve the item, most significant first.
     pub tetrads: Vec<TetradRecord>,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+/// One construct's purification.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct ConstructPurity {
+    /// Items kept.
     pub kept: Vec<String>,
+    /// Items dropped, in the order they were dropped.
     pub dropped: Vec<DroppedRecord>,
     /// Purification stopped here because dropping more would leave fewer than `min_items`.
     pub min_items_reached: bool,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+/// Item purification by vanishing tetrads.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct PurifyOutput {
+    /// Construct -> its purification.
     pub constructs: IndexMap<String, ConstructPurity>,
+    /// The tetrad test used.
     pub test: TetradTest,
+    /// The false discovery rate used.
     pub alpha: f64,
+    /// The fewest items a construct kept.
     pub min_items: usize,
+    /// The sample size of the tests.
     pub n: usize,
     /// Tests per round (the false-discovery-rate family of each round).
     pub family_sizes: Vec<usize>,

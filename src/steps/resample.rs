@@ -9,6 +9,7 @@ use std::collections::BTreeMap;
 
 use indexmap::IndexMap;
 use rayon::prelude::*;
+use schemars::JsonSchema;
 use serde::{Deserialize, Serialize};
 use serde_json::{Value, json};
 
@@ -22,45 +23,67 @@ use construe_stats::search::EdgeKind;
 /// Bump when bootstrap results change for the same inputs and parameters.
 pub const VERSION: u32 = 2;
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+/// How often the bootstrap found two constructs adjacent, and in which direction.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct EdgeFrequency {
+    /// One construct (the pair in name order).
     pub from: String,
+    /// The other.
     pub to: String,
     /// Share of successful replicates with the two constructs adjacent.
     pub present: f64,
     /// Share oriented `from -> to`, and `to -> from`.
     pub forward: f64,
+    /// See `forward`.
     pub backward: f64,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+/// A bootstrap interval of a path coefficient.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct EffectInterval {
+    /// Cause.
     pub from: String,
+    /// Effect.
     pub to: String,
     /// Percentile 95% interval of the estimate over the replicates that fitted this path.
     pub ci: [f64; 2],
+    /// The same for the standardized coefficient.
     pub std_ci: [f64; 2],
+    /// Replicates that fitted this path.
     pub replicates: usize,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+/// The bootstrap of the whole analysis (replicates resampled within waves).
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct ResampleOutput {
+    /// Replicates drawn.
     pub replicates: usize,
+    /// Seed of the resampling.
     pub seed: u64,
+    /// Replicates whose analysis ran through.
     pub succeeded: usize,
     /// Replicates whose analysis failed (non-convergence is counted, not dropped silently).
     pub failed: usize,
+    /// The first few reasons.
     pub failures: Vec<String>,
+    /// Replicates with a fit that did not converge.
     pub not_converged: usize,
+    /// Item -> share of successful replicates that kept it.
     pub items_kept: IndexMap<String, f64>,
+    /// Discovered clusters and how often each recurred.
     pub clusters: Vec<ClusterFrequency>,
+    /// Adjacent pairs and how often each was found, and oriented which way.
     pub edges: Vec<EdgeFrequency>,
+    /// Bootstrap percentile intervals of the paths.
     pub effects: Vec<EffectInterval>,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+/// A discovered cluster and how often the bootstrap found it.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct ClusterFrequency {
+    /// The cluster's items.
     pub items: Vec<String>,
+    /// Share of replicates that found it.
     pub frequency: f64,
 }
 

@@ -10,6 +10,7 @@ use std::collections::BTreeMap;
 use indexmap::IndexMap;
 use rand_distr::{Beta, Distribution};
 use rayon::prelude::*;
+use schemars::JsonSchema;
 use serde::{Deserialize, Serialize};
 use serde_json::{Value, json};
 
@@ -103,42 +104,58 @@ mod words_in_results {
 }
 
 /// A statement with how it fares across the sensitivity analyses.
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct Conclusion {
+    /// The conclusion, in words (for example `edge crowding → trust`).
     #[serde(with = "words_in_results")]
+    #[schemars(with = "String")]
     pub what: Statement,
     /// Construct -> grid values at which the conclusion holds.
     pub holds_for: IndexMap<String, Vec<f64>>,
     /// Construct -> the largest grid value at which the conclusion's verdict differs from its
     /// verdict at the largest grid value (`null`: the same verdict everywhere on the grid).
     pub tipping: IndexMap<String, Option<f64>>,
+    /// Share of the prior draws under which it holds; `null` without a prior.
     pub prior_probability: Option<f64>,
     /// Alpha values (from `sensitivity.alpha`) at which it holds.
     pub holds_for_alpha: Vec<f64>,
 }
 
 /// One effect's estimate along one construct's reliability grid, for the plot.
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct EffectCurve {
+    /// The construct whose reliability varies.
     pub construct: String,
+    /// Cause.
     pub from: String,
+    /// Effect.
     pub to: String,
+    /// The grid of reliabilities.
     pub reliability: Vec<f64>,
     /// `None` where the refit has no such path (the edge vanished or turned).
     pub est: Vec<Option<f64>>,
+    /// Lower 95% bound at each grid value.
     pub lo: Vec<Option<f64>>,
+    /// Upper 95% bound at each grid value.
     pub hi: Vec<Option<f64>>,
+    /// The tipping point (see `Conclusion.tipping`); `null` when none.
     pub tipping: Option<f64>,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+/// How the conclusions depend on the reliability of single indicators and on alpha.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct SensitivityOutput {
+    /// Each conclusion of the analysis and where it holds.
     pub conclusions: Vec<Conclusion>,
+    /// Effect curves over each reliability grid.
     pub curves: Vec<EffectCurve>,
+    /// Prior draws made.
     pub draws: usize,
+    /// Seed of the draws.
     pub seed: u64,
     /// Refits that failed (counted, never dropped silently), and the first few reasons.
     pub failed: usize,
+    /// The first few reasons.
     pub failures: Vec<String>,
 }
 

@@ -4,6 +4,7 @@
 
 use indexmap::IndexMap;
 use nalgebra::DMatrix;
+use schemars::JsonSchema;
 use serde::{Deserialize, Serialize};
 use serde_json::{Value, json};
 
@@ -25,58 +26,95 @@ pub const VERSION: u32 = 3;
 /// Class members fitted at most (the rest are counted, not fitted).
 const MAX_MEMBERS: usize = 8;
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+/// An edge of the structure the search found.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct EdgeRecord {
+    /// Cause (for an undirected edge, the first of the two).
     pub from: String,
+    /// Effect (for an undirected edge, the second).
     pub to: String,
     /// Directed, or undirected when the data cannot orient it (`"directed"` / `"undirected"`).
+    #[schemars(with = "super::stats_schema::EdgeKindSchema")]
     pub kind: EdgeKind,
+    /// Why the edge has its orientation (for example `tier order`, `collider (...)`, `Meek rule 1`).
     pub reason: String,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+/// Two constructs the search left non-adjacent.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct RemovedRecord {
+    /// One construct.
     pub a: String,
+    /// The other.
     pub b: String,
+    /// The constructs conditioned on when the two were found independent.
     pub sepset: Vec<String>,
+    /// The p-value of that test; `null` when knowledge removed the edge.
     pub p: Option<f64>,
+    /// Never adjacent because `knowledge` forbids both directions (rather than removed by a test).
     pub by_knowledge: bool,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+/// A path of the structural model.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct EffectRecord {
+    /// Cause.
     pub from: String,
+    /// Effect.
     pub to: String,
+    /// The path coefficient.
     pub est: f64,
+    /// Its standard error.
     pub se: Option<f64>,
+    /// 95% Wald interval, `[lower, upper]`.
     pub ci: [Option<f64>; 2],
+    /// The standardized coefficient.
     pub std: Option<f64>,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+/// One member (DAG) of the equivalence class, fitted as a structural model.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct MemberFit {
+    /// Its directed edges, each `[from, to]`.
     pub edges: Vec<[String; 2]>,
+    /// Whether the fit converged.
     pub converged: bool,
+    /// Global fit of the structural model.
+    #[schemars(with = "super::stats_schema::FitIndicesSchema")]
     pub fit: FitIndices,
+    /// Its paths.
     pub effects: Vec<EffectRecord>,
+    /// Construct -> variance explained.
     pub r_squared: IndexMap<String, f64>,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+/// The structure among the constructs: PC search, then a structural model of each member of the class.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct StructureOutput {
+    /// The conditional independence test used.
     pub test: CiTestKind,
+    /// Its significance level.
     pub alpha: f64,
+    /// The sample size of the tests and fits.
     pub n: usize,
+    /// The edges found.
     pub edges: Vec<EdgeRecord>,
+    /// Pairs left non-adjacent, with why.
     pub removed: Vec<RemovedRecord>,
+    /// Conditional independence tests run.
     pub tests_run: usize,
     /// Effects and fit of the first DAG of the class (the one the report draws).
     pub effects: Vec<EffectRecord>,
+    /// Fit of the first member of the class.
+    #[schemars(with = "Option<super::stats_schema::FitIndicesSchema>")]
     pub fit: Option<FitIndices>,
+    /// Construct -> variance explained (first member).
     pub r_squared: IndexMap<String, f64>,
+    /// The fitted members of the class.
     pub members: Vec<MemberFit>,
     /// Members of the equivalence class consistent with the knowledge (at most the cap).
     pub class_size: usize,
+    /// Whether every member of the class was enumerated.
     pub class_complete: bool,
 }
 
