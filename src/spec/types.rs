@@ -261,6 +261,11 @@ pub enum Missing {
     Pairwise,
     /// Only respondents who answered every item.
     Listwise,
+    /// Every respondent's answers, valid when values are missing at random (MAR): full-information
+    /// maximum likelihood for continuous items (the saturated mean and covariance by EM, with
+    /// the two-stage sampling covariance), multiple imputation under a latent-normal model with
+    /// Rubin's rules for ordinal and mixed items.
+    Fiml,
 }
 
 /// How ordinal pairs are estimated.

@@ -12,6 +12,7 @@ use serde::{Deserialize, Serialize};
 use serde_json::{Value, json};
 
 use super::load::{ItemKind, LoadOutput};
+use super::missing_data::{McarRecord, MissingData};
 use super::{Artifact, Inputs, Step, StepError, StepKind};
 use crate::data::Table;
 use crate::data::table::{Column as DataColumn, MISSING};
@@ -28,8 +29,9 @@ use construe_stats::smoothing::{self, smooth_correlation};
 /// typed `ItemPair`s (the artifact's bytes changed; results.json did not). (v6 unchanged by the
 /// compact table of load v4: the ordinal codes are borrowed, the figures are bit-identical.)
 /// v7: the artifact records the ordinal estimator, the unsmoothed correlations of a smoothed
-/// matrix and which sampling theory later steps can use (`steps::sampling`).
-pub const VERSION: u32 = 7;
+/// matrix and which sampling theory later steps can use (`steps::sampling`). v8: `missing: fiml`
+/// (EM or multiple imputation) and Little's MCAR test recorded whenever values are missing.
+pub const VERSION: u32 = 8;
 
 /// Two items of the matrix, `first` before `second` in item order: the key of every per-pair
 /// fact. results.json writes it `"first|second"` (scripts read those keys); the exact artifact
@@ -163,6 +165,10 @@ pub struct CovarianceOutput {
     pub sampling: String,
     /// A caveat on that sampling covariance, when one applies (a smoothed matrix).
     pub sampling_note: Option<String>,
+    /// How `missing: fiml` estimated the matrix (None for pairwise and listwise deletion).
+    pub missing_data: Option<MissingData>,
+    /// Little's (1988) test of missing completely at random, whenever values are missing.
+    pub mcar: Option<McarRecord>,
 }
 
 /// An empty category merged with a neighbour for one pair's estimate.
@@ -272,6 +278,9 @@ impl CovarianceStep {
         let items = &table.items;
         let p = items.len();
         let kinds = load.item_kinds();
+        if self.missing == Missing::Fiml {
+            return self.fiml_estimates(load, table);
+        }
         if kinds.iter().all(|k| *k == ItemKind::Continuous) {
             return self.product_moment_estimates(table);
         }
@@ -339,7 +348,7 @@ impl CovarianceStep {
 /// Listwise deletion: the rows where every item is present (`None` for pairwise).
 pub(crate) fn complete_rows(table: &Table, missing: Missing) -> Option<Vec<bool>> {
     match missing {
-        Missing::Pairwise => None,
+        Missing::Pairwise | Missing::Fiml => None,
         Missing::Listwise => Some((0..table.rows()).map(|r| table.columns.iter().all(|c| !c.is_missing(r))).collect()),
     }
 }
@@ -400,11 +409,40 @@ fn ordinal_codes<'a>(col: &'a DataColumn, categories: &[f64], complete: Option<&
 }
 
 impl CovarianceStep {
+    /// `missing: fiml`: every respondent's answers under MAR (`steps::missing_data`).
+    fn fiml_estimates(&self, load: &LoadOutput, table: &Table) -> Result<Estimates, StepError> {
+        let p = table.items.len();
+        let columns = estimator_columns(load, table, None);
+        let fit = match self.ordinal {
+            OrdinalEstimation::TwoStep => OrdinalFit::TwoStep,
+            OrdinalEstimation::Full => OrdinalFit::Full,
+        };
+        let f = super::missing_data::fiml(load, table, &columns, fit)?;
+        let kinds = load.item_kinds();
+        let mut e = Estimates::new(f.correlation, f.covariance, vec![vec![f.n; p]; p]);
+        for a in 0..p {
+            for b in a + 1..p {
+                let method = match (kinds[a], kinds[b]) {
+                    (ItemKind::Continuous, ItemKind::Continuous) => PairMethod::Pearson,
+                    (ItemKind::Ordinal, ItemKind::Ordinal) => PairMethod::Polychoric,
+                    _ => PairMethod::Polyserial,
+                };
+                let key = ItemPair::of(&table.items, a, b);
+                e.method.insert(key.clone(), method);
+                e.se.insert(key, None);
+            }
+        }
+        e.missing_data = Some(f.record);
+        Ok(e)
+    }
+
     /// The moment routines' name for the spec's missing-data rule.
     fn deletion(&self) -> Deletion {
         match self.missing {
             Missing::Pairwise => Deletion::Pairwise,
             Missing::Listwise => Deletion::Listwise,
+            // `fiml` never reaches the deletion-based estimators.
+            Missing::Fiml => Deletion::Pairwise,
         }
     }
 
@@ -445,6 +483,7 @@ struct Estimates {
     se: IndexMap<ItemPair, Option<f64>>,
     merges: Vec<Merge>,
     at_bound: Vec<ItemPair>,
+    missing_data: Option<MissingData>,
 }
 
 impl Estimates {
@@ -457,6 +496,7 @@ impl Estimates {
             se: IndexMap::new(),
             merges: Vec::new(),
             at_bound: Vec::new(),
+            missing_data: None,
         }
     }
 }
@@ -525,6 +565,10 @@ impl Step for CovarianceStep {
         let kinds = load.item_kinds();
         let sampling = super::sampling::available(load.matrix.is_some(), &kinds, self.ordinal).to_string();
         let sampling_note = smoothing.as_ref().map(|_| super::sampling::SMOOTHED_NOTE.to_string());
+        let mcar = match &load.table {
+            Some(table) => super::missing_data::mcar(load, table)?,
+            None => None,
+        };
         Ok(Artifact::Covariance(Box::new(CovarianceOutput {
             kind: items.iter().cloned().zip(kinds).collect(),
             items,
@@ -543,6 +587,8 @@ impl Step for CovarianceStep {
             unsmoothed,
             sampling,
             sampling_note,
+            missing_data: e.missing_data,
+            mcar,
         })))
     }
 

@@ -8,6 +8,7 @@ pub mod covariance;
 pub mod discover;
 pub mod load;
 pub mod measure;
+pub mod missing_data;
 pub mod purify;
 pub mod resample;
 pub mod sampling;

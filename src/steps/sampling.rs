@@ -118,6 +118,9 @@ pub fn sampling_covariance(
             "use the correlations' sampling covariance",
         ));
     }
+    if let Some(record) = &cov.missing_data {
+        return fiml_sampling(load, table, cov, record, moments, theory, continuous);
+    }
     match theory {
         Theory::Normal if !continuous => Err(unavailable(
             "a normal-theory sampling covariance",
@@ -168,6 +171,41 @@ pub fn sampling_covariance(
             Ok(Box::new(built))
         }
     }
+}
+
+/// `missing: fiml`: the two-stage sampling covariance of the EM estimates (continuous items;
+/// normal theory = the inverse observed information, distribution-free = its sandwich), or
+/// Rubin's rules over the completed data sets (ordinal and mixed items).
+fn fiml_sampling(
+    load: &LoadOutput,
+    table: &crate::data::Table,
+    cov: &CovarianceOutput,
+    record: &super::missing_data::MissingData,
+    moments: Moments,
+    theory: Theory,
+    continuous: bool,
+) -> Result<Box<dyn SamplingCovariance>, StepError> {
+    if continuous {
+        let two = super::missing_data::two_stage(
+            table,
+            theory == Theory::DistributionFree,
+            moments == Moments::Correlations,
+        )?;
+        return Ok(Box::new(two));
+    }
+    if theory == Theory::Normal {
+        return Err(unavailable(
+            "a normal-theory sampling covariance",
+            "normal theory does not hold for polychoric and polyserial correlations of ordinal items",
+            "use the distribution-free sampling covariance",
+        ));
+    }
+    let fit = match cov.ordinal {
+        OrdinalEstimation::TwoStep => construe_stats::polychoric::OrdinalFit::TwoStep,
+        OrdinalEstimation::Full => construe_stats::polychoric::OrdinalFit::Full,
+    };
+    let columns = estimator_columns(load, table, None);
+    Ok(Box::new(super::missing_data::pool(&columns, &record.imputed, fit)?))
 }
 
 fn to_matrix(rows: &[Vec<f64>]) -> DMatrix<f64> {

@@ -62,8 +62,8 @@ pub struct Imputations {
 
 /// One column's role in the sampler.
 enum Margin {
-    /// Codes per row (MISSING_CODE = missing) and the level count.
-    Ordinal { codes: Vec<u8>, levels: usize },
+    /// Codes per row (MISSING_CODE = missing), the rows of each category, the missing rows.
+    Ordinal { codes: Vec<u8>, by_level: Vec<Vec<usize>>, missing: Vec<usize> },
     /// Fixed normal scores for present rows; sorted present values for the back-transform.
     Continuous { present: Vec<bool>, sorted: Vec<f64> },
 }
@@ -183,7 +183,18 @@ pub fn impute(columns: &[Column<'_>], options: &ImputeOptions) -> Result<Imputat
             }
         }
         margins.push(match col {
-            Column::Ordinal { codes, levels } => Margin::Ordinal { codes: codes.to_vec(), levels: *levels },
+            Column::Ordinal { codes, levels } => {
+                let mut by_level = vec![Vec::new(); *levels];
+                let mut missing = Vec::new();
+                for (i, &c) in codes.iter().enumerate() {
+                    if c == MISSING_CODE {
+                        missing.push(i);
+                    } else {
+                        by_level[usize::from(c)].push(i);
+                    }
+                }
+                Margin::Ordinal { codes: codes.to_vec(), by_level, missing }
+            }
             Column::Continuous(v) => Margin::Continuous {
                 present: v.iter().map(|x| !x.is_nan()).collect(),
                 sorted: present.iter().map(|x| x.0).collect(),
@@ -222,34 +233,39 @@ pub fn impute(columns: &[Column<'_>], options: &ImputeOptions) -> Result<Imputat
                 .ok_or_else(|| StatsError::Singular { what: "the latent correlation".into() })?
                 .solve(&c_oj);
             let sd = (1.0 - beta.dot(&c_oj)).max(1e-12).sqrt();
-            let mean: Vec<f64> =
-                (0..n).map(|i| others.iter().zip(beta.iter()).map(|(&k, b)| z[(i, k)] * b).sum()).collect();
+            let mut beta_full = DVector::zeros(p);
+            for (&k, b) in others.iter().zip(beta.iter()) {
+                beta_full[k] = *b;
+            }
+            let mean = &z * beta_full;
             match &margins[j] {
-                Margin::Ordinal { codes, levels } => {
-                    for c in 0..*levels {
-                        // Bounds from the current latent values of the other categories.
-                        let (mut lo, mut hi) = (f64::NEG_INFINITY, f64::INFINITY);
-                        for (i, &code) in codes.iter().enumerate() {
-                            if code == MISSING_CODE {
-                                continue;
-                            }
-                            let code = usize::from(code);
-                            if code < c {
-                                lo = lo.max(z[(i, j)]);
-                            } else if code > c {
-                                hi = hi.min(z[(i, j)]);
-                            }
-                        }
-                        for (i, &code) in codes.iter().enumerate() {
-                            if usize::from(code) == c && code != MISSING_CODE {
-                                z[(i, j)] = truncated_normal(&mut rng, mean[i], sd, lo, hi);
-                            }
-                        }
+                Margin::Ordinal { by_level, missing, .. } => {
+                    // Each category's current extremes; category c's rows are boxed between the
+                    // highest value below c and the lowest above c, refreshed after each update.
+                    let extremes = |rows: &[usize], z: &DMatrix<f64>| {
+                        rows.iter().fold((f64::NEG_INFINITY, f64::INFINITY), |(hi, lo), &i| {
+                            (hi.max(z[(i, j)]), lo.min(z[(i, j)]))
+                        })
+                    };
+                    let mut max_by: Vec<f64> = Vec::with_capacity(by_level.len());
+                    let mut min_by: Vec<f64> = Vec::with_capacity(by_level.len());
+                    for rows in by_level {
+                        let (hi, lo) = extremes(rows, &z);
+                        max_by.push(hi);
+                        min_by.push(lo);
                     }
-                    for (i, &code) in codes.iter().enumerate() {
-                        if code == MISSING_CODE {
-                            z[(i, j)] = mean[i] + sd * rng.sample::<f64, _>(StandardNormal);
+                    for (c, rows) in by_level.iter().enumerate() {
+                        let lo = max_by[..c].iter().copied().fold(f64::NEG_INFINITY, f64::max);
+                        let hi = min_by[c + 1..].iter().copied().fold(f64::INFINITY, f64::min);
+                        for &i in rows {
+                            z[(i, j)] = truncated_normal(&mut rng, mean[i], sd, lo, hi);
                         }
+                        let (h, l) = extremes(rows, &z);
+                        max_by[c] = h;
+                        min_by[c] = l;
+                    }
+                    for &i in missing {
+                        z[(i, j)] = mean[i] + sd * rng.sample::<f64, _>(StandardNormal);
                     }
                 }
                 Margin::Continuous { present, .. } => {
