@@ -191,6 +191,11 @@ fn type_check_all(source: &str, positions: &Positions, unknown: Vec<Finding>) ->
             Ok(spec) => return (Some(spec), findings),
             Err(e) => e,
         };
+        // A missing key after something was set aside is that removal's doing, not the user's.
+        let set_aside = !findings.is_empty();
+        if set_aside && message.contains("missing field") {
+            break;
+        }
         let Some(at) = at else {
             findings.push(Finding::value(SpecProblem::Type { message }, ""));
             break;
