@@ -259,7 +259,7 @@ fn plan_command(spec: &std::path::Path, cache: &Cache) -> Result<Exit, AppError>
         eprintln!("{d}");
     }
     for l in &lines {
-        println!("{:<12} {}  {}", l.step, l.key, if l.cached { "cached" } else { "stale" });
+        println!("{:<12} {}  {}", l.step, l.key, l.status);
     }
     Ok(Exit::Ok)
 }
