@@ -73,6 +73,8 @@ pub fn report_context(spec: &SpecFile, execution: &Execution, results: &Value) -
     let tiers: Vec<Value> = s.knowledge.tiers.iter().map(|t| json!(t)).collect();
     let diagram = structure_diagram(spec, execution);
     json!({
+        "findings": super::findings::findings(results),
+        "few_replicates": super::findings::MIN_INTERVAL_REPLICATES,
         "title": s.title,
         "spec_path": spec.path.display().to_string(),
         "tool_version": env!("CARGO_PKG_VERSION"),

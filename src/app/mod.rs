@@ -5,6 +5,7 @@
 pub mod check;
 pub mod context;
 pub mod diff;
+pub mod findings;
 pub mod lints;
 pub mod plan;
 pub mod run;
