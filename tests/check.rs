@@ -293,7 +293,9 @@ fn check_finds_every_data_problem_run_would_refuse() {
     let out = Case::new().spec(&spec).file("w1.csv", csv.clone()).run(["check", "spec.yaml"]);
     out.failure(1)
         .stderr_contains("analyses.covariance.missing: unknown variant `pairwize`")
-        .stderr_contains("error: `w1.csv` column `a2`: 2 values are not numbers (row 4 (line 5): `often`; row 9 (line 10): `n/a`)")
+        .stderr_contains(
+            "error: `w1.csv` column `a2`: 2 values are not numbers (row 4 (line 5): `often`; row 9 (line 10): `n/a`)",
+        )
         .stderr_contains("error: `w1.csv` column `b1`: 1 value is not a number (row 12 (line 13): `5..`)")
         .stderr_contains("error: item `a1` has ")
         .stderr_contains("outside its reverse range [1, 4] (5 in `w1.csv` row ")

@@ -23,7 +23,9 @@ pub enum StepStatus {
     /// The latest version ran it with other inputs; the reasons, one each.
     InputsChanged(Vec<String>),
     /// The latest version ran it with these very inputs, but the cache no longer has it.
-    Evicted { version: u32 },
+    Evicted {
+        version: u32,
+    },
 }
 
 impl std::fmt::Display for StepStatus {

@@ -162,8 +162,13 @@ fn scan_parquet(path: &Path, wanted: &[(String, Rules)]) -> Result<FileScan, Dat
     let file = open_data(path)?;
     parquet_footer::check_footer(path).map_err(|e| read_error(path, e))?;
     let schema = ParquetReader::new(file).schema().map_err(|e| read_error(path, e))?;
-    let mut out =
-        FileScan { rows: 0, expected_fields: schema.len(), bad_records: 0, bad_record_examples: Vec::new(), columns: Vec::new() };
+    let mut out = FileScan {
+        rows: 0,
+        expected_fields: schema.len(),
+        bad_records: 0,
+        bad_record_examples: Vec::new(),
+        columns: Vec::new(),
+    };
     for (name, rules) in wanted {
         if !schema.iter_names().any(|n| n.as_str() == name.as_str()) {
             continue;

@@ -284,7 +284,9 @@ fn estimates(ra: &Value, rb: &Value) -> Vec<String> {
         }
     }
     for (k, eb) in &b {
-        if !a.contains_key(k) && let Some(new) = f(&eb["est"]) {
+        if !a.contains_key(k)
+            && let Some(new) = f(&eb["est"])
+        {
             out.push(format!("effect {} → {}: new, {new:.2}", k.0, k.1));
         }
     }

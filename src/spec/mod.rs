@@ -286,7 +286,10 @@ fn set_path(value: &mut serde_yaml::Value, path: &str, with: serde_yaml::Value) 
 }
 
 /// The mapping that holds the last key of `path`, and that key.
-fn parent_mapping<'a, 'p>(value: &'a mut serde_yaml::Value, path: &'p str) -> Option<(&'a mut serde_yaml::Mapping, &'p str)> {
+fn parent_mapping<'a, 'p>(
+    value: &'a mut serde_yaml::Value,
+    path: &'p str,
+) -> Option<(&'a mut serde_yaml::Mapping, &'p str)> {
     let mut segments: Vec<&str> = path.split('.').collect();
     let last = segments.pop()?;
     let mut node = value;
