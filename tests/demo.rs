@@ -25,6 +25,13 @@ fn transit_demo_writes_its_report() {
     let out = case.run(["run", "pipelines/transit/spec.yaml"]);
     out.success().stderr_contains("wrote report v1");
     assert!(case.exists("reports/transit-rider-panel/v1/report.html"));
+    // The path diagram as published is readable: type at least 11 px, no text over another
+    // text, a box or an edge (geometry of the emitted SVG, `diagram::layout_problems`).
+    let html = case.read("reports/transit-rider-panel/v1/report.html");
+    let start = html.find("<svg xmlns=\"http://www.w3.org/2000/svg\" class=\"diagram\"").expect("a path diagram");
+    let end = start + html[start..].find("</svg>").unwrap() + 6;
+    let problems = construe::report::diagram::layout_problems(&html[start..end]);
+    assert!(problems.is_empty(), "{problems:#?}");
     assert!(case.exists("reports/transit-rider-panel/v1/report.md"));
     let results: serde_json::Value =
         serde_json::from_str(&case.read("reports/transit-rider-panel/v1/results.json")).unwrap();

@@ -135,14 +135,10 @@ fn structure_diagram(spec: &SpecFile, execution: &Execution) -> Option<String> {
         .iter()
         .filter_map(|e| {
             let coefficient = st.effects.iter().find(|f| f.from == e.from && f.to == e.to).and_then(|f| f.std);
-            // With resampling, the share of replicates in which the edge appeared.
-            let label = match (coefficient, bootstrap_support(execution, &e.from, &e.to)) {
-                (Some(c), Some(p)) => Some(format!("{c:+.2} ({:.0}%)", p * 100.0)),
-                (Some(c), None) => Some(format!("{c:+.2}")),
-                (None, Some(p)) => Some(format!("{:.0}%", p * 100.0)),
-                (None, None) => None,
-            };
-            Some(Link { from: index(&e.from)?, to: index(&e.to)?, kind: e.kind, label })
+            // With resampling, the share of replicates with the edge as drawn (oriented the
+            // same way for a directed edge; present at all for an undirected one).
+            let support = drawn_support(execution, &e.from, &e.to, e.kind.is_directed());
+            Some(Link { from: index(&e.from)?, to: index(&e.to)?, kind: e.kind, coefficient, support })
         })
         .collect();
     let dropped: Vec<String> = match execution.artifacts.get(&StepKind::Purify) {
@@ -202,10 +198,16 @@ fn truth_comparison(spec: &SpecFile, execution: &Execution) -> Option<Value> {
     }))
 }
 
-/// The bootstrap share of replicates with `a` and `b` adjacent, when resampling ran.
-fn bootstrap_support(execution: &Execution, a: &str, b: &str) -> Option<f64> {
+/// The bootstrap share of replicates with the edge `a` -> `b` as drawn (`directed`: oriented
+/// `a` -> `b`; otherwise adjacent at all), when resampling ran.
+fn drawn_support(execution: &Execution, a: &str, b: &str, directed: bool) -> Option<f64> {
     let Some(Artifact::Resample(r)) = execution.artifacts.get(&StepKind::Resample) else { return None };
-    Some(r.edges.iter().find(|e| (e.from == a && e.to == b) || (e.from == b && e.to == a)).map_or(0.0, |e| e.present))
+    let found = r.edges.iter().find(|e| (e.from == a && e.to == b) || (e.from == b && e.to == a));
+    Some(found.map_or(0.0, |e| match (directed, e.from == a) {
+        (false, _) => e.present,
+        (true, true) => e.forward,
+        (true, false) => e.backward,
+    }))
 }
 
 /// For each edge of the structure, its bootstrap presence and orientation shares.
