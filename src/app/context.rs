@@ -93,7 +93,8 @@ pub fn report_context(spec: &SpecFile, execution: &Execution, results: &Value) -
         "diagram": diagram,
         "truth": truth_comparison(spec, execution),
         "sensitivity": results.get("sensitivity"),
-        "sensitivity_plots": sensitivity_plots(execution),
+        "sensitivity_plots": sensitivity_plots(spec, execution),
+        "sensitivity_tables": sensitivity_tables(spec, results),
         "steps": steps,
     })
 }
@@ -233,16 +234,88 @@ fn edge_support(execution: &Execution) -> Value {
     Value::Array(rows)
 }
 
-/// One plot per effect and swept construct.
-fn sensitivity_plots(execution: &Execution) -> Vec<Value> {
+/// One plot per effect and swept construct, the declared reliability marked.
+fn sensitivity_plots(spec: &SpecFile, execution: &Execution) -> Vec<Value> {
     let Some(Artifact::Sensitivity(s)) = execution.artifacts.get(&StepKind::Sensitivity) else { return Vec::new() };
     s.curves
         .iter()
         .map(|c| {
+            let declared = spec.spec.constructs.get(&c.construct).and_then(|d| d.reliability);
             json!({
                 "title": format!("{} → {} against the reliability of {}", c.from, c.to, c.construct),
-                "svg": crate::report::svg::sensitivity_plot(&c.reliability, &c.est, &c.lo, &c.hi, c.tipping),
+                "svg": crate::report::svg::sensitivity_plot(&crate::report::svg::SensitivityCurve {
+                    construct: &c.construct,
+                    xs: &c.reliability,
+                    est: &c.est,
+                    lo: &c.lo,
+                    hi: &c.hi,
+                    tipping: c.tipping,
+                    declared,
+                }),
             })
         })
         .collect()
+}
+
+/// The sensitivity conclusions as one table per kind of conclusion (edges found, pairs found
+/// independent, others) and swept construct: a row per conclusion, a column per grid value
+/// (the declared one marked), a cell saying whether the conclusion holds there. And the failed
+/// refits in words: how many, at which reliabilities, and why such refits fail.
+fn sensitivity_tables(spec: &SpecFile, results: &Value) -> Value {
+    let s = &results["sensitivity"];
+    let Some(conclusions) = s["conclusions"].as_array() else { return Value::Null };
+    let grids = spec.spec.analyses.sensitivity.as_ref().map(|p| p.reliability.clone()).unwrap_or_default();
+    let mut tables = Vec::new();
+    for (construct, grid) in &grids {
+        let declared = spec.spec.constructs.get(construct).and_then(|c| c.reliability);
+        for (kind, title) in
+            [("edge ", "Edges found"), ("no edge", "Pairs found independent"), ("", "Other conclusions")]
+        {
+            let rows: Vec<Value> = conclusions
+                .iter()
+                .filter(|c| {
+                    let what = c["what"].as_str().unwrap_or("");
+                    match kind {
+                        "" => !what.starts_with("edge ") && !what.starts_with("no edge"),
+                        k => what.starts_with(k),
+                    }
+                })
+                .map(|c| {
+                    let holds: Vec<f64> = c["holds_for"][construct].as_array().into_iter().flatten().filter_map(Value::as_f64).collect();
+                    let cells: Vec<bool> = grid.iter().map(|g| holds.iter().any(|h| (h - g).abs() < 1e-9)).collect();
+                    json!({"what": c["what"], "cells": cells, "prior": c["prior_probability"], "tipping": c["tipping"][construct]})
+                })
+                .collect();
+            if !rows.is_empty() {
+                let all_hold = rows.iter().all(|r| r["cells"].as_array().is_some_and(|c| c.iter().all(|b| b == true)));
+                tables.push(json!({
+                    "title": title,
+                    "construct": construct,
+                    "grid": grid,
+                    "declared": declared,
+                    "rows": rows,
+                    "all_hold": all_hold,
+                }));
+            }
+        }
+    }
+    let failed = s["failed"].as_u64().unwrap_or(0);
+    let failures = s["failures"].as_array().map(Vec::as_slice).unwrap_or_default();
+    // "prior draw 165 (fare_burden = 0.181): …": the reliabilities at which refits failed.
+    let at: Vec<String> = failures
+        .iter()
+        .filter_map(|f| {
+            let f = f.as_str()?;
+            let inner = f.split_once('(')?.1.split_once(')')?.0;
+            inner.contains(" = ").then(|| inner.to_string())
+        })
+        .collect();
+    let failed_words = (failed > 0).then(|| {
+        let shown = if at.is_empty() { String::new() } else { format!(" (among them {})", at.join(", ")) };
+        format!(
+            "{failed} refit{} failed{shown}. Refits fail when the assumed reliability is so low that the corrected correlations among the constructs leave the valid range (above 1 in size), which no model can fit; those refits are left out of every share and probability.",
+            if failed == 1 { "" } else { "s" }
+        )
+    });
+    json!({"tables": tables, "failed_words": failed_words})
 }
