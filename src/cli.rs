@@ -6,7 +6,7 @@ use std::path::PathBuf;
 
 use clap::{Parser, Subcommand};
 
-use crate::app::check::check;
+use crate::app::check::check_with_data;
 use crate::app::plan::plan;
 use crate::app::run::run;
 use crate::app::schema::{SchemaKind, schema_text};
@@ -18,7 +18,7 @@ use crate::spec::diagnostic::plural;
 use crate::steps::StepKind;
 
 #[derive(Debug, Parser)]
-#[command(name = "construe", version, about = "Latent-structure analysis of survey constructs from one declarative spec", long_about = None)]
+#[command(name = "construe", version, arg_required_else_help = true, about = "Latent-structure analysis of survey constructs from one declarative spec", long_about = None)]
 pub struct Cli {
     #[command(subcommand)]
     pub command: Command,
@@ -175,6 +175,20 @@ impl Progress for Bar {
     }
 }
 
+/// Prints a command-line parse outcome that is not a command to run (help, version, a usage
+/// error) and returns its exit code: 0 for help and version, 1 for a usage error (a bad
+/// command line is bad input, like a bad spec; 2 stays reserved for run-time failures).
+/// A bare `construe` prints the help and exits 1.
+pub fn usage_exit(e: &clap::Error) -> Exit {
+    use clap::error::ErrorKind;
+    // Printing can only fail on a closed stream; the exit code still says what happened.
+    let _ = e.print();
+    match e.kind() {
+        ErrorKind::DisplayHelp | ErrorKind::DisplayVersion => Exit::Ok,
+        _ => Exit::Invalid,
+    }
+}
+
 /// Runs one parsed command line and returns the process exit code.
 pub fn dispatch(cli: Cli) -> Exit {
     let result = match cli.command {
@@ -251,7 +265,7 @@ fn run_command(spec: &std::path::Path, cache: &Cache) -> Result<Exit, AppError> 
 }
 
 fn check_command(spec: &std::path::Path) -> Result<Exit, AppError> {
-    let checked = check(spec);
+    let checked = check_with_data(spec);
     if checked.report.has_errors() {
         return Err(AppError::Invalid(checked.report));
     }
@@ -268,7 +282,7 @@ fn plan_command(spec: &std::path::Path, cache: &Cache) -> Result<Exit, AppError>
         eprintln!("{d}");
     }
     for l in &lines {
-        println!("{:<12} {}  {}", l.step, l.key, if l.cached { "cached" } else { "stale" });
+        println!("{:<12} {}  {}", l.step, l.key, l.status);
     }
     Ok(Exit::Ok)
 }

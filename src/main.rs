@@ -3,7 +3,10 @@
 use clap::Parser;
 
 fn main() -> std::process::ExitCode {
-    let cli = construe::cli::Cli::parse();
+    let cli = match construe::cli::Cli::try_parse() {
+        Ok(cli) => cli,
+        Err(e) => return std::process::ExitCode::from(construe::cli::usage_exit(&e) as u8),
+    };
     tracing_subscriber::fmt()
         .with_env_filter(tracing_subscriber::EnvFilter::new(cli.log_filter()))
         .with_writer(std::io::stderr)

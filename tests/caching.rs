@@ -20,8 +20,10 @@ fn plan_lines(stdout: &str) -> Vec<(String, String, String)> {
     stdout
         .lines()
         .map(|l| {
-            let p: Vec<&str> = l.split_whitespace().collect();
-            (p[0].to_string(), p[1].to_string(), p[2].to_string())
+            let (step, rest) = l.split_once(' ').unwrap();
+            let rest = rest.trim_start();
+            let (key, status) = rest.split_once("  ").unwrap();
+            (step.to_string(), key.to_string(), status.to_string())
         })
         .collect()
 }
@@ -62,7 +64,7 @@ fn changing_missing_recomputes_covariance_not_load() {
     let plan = case.run(["plan", "spec.yaml"]);
     let lines = plan_lines(&plan.success().stdout);
     assert_eq!(lines[0].2, "cached");
-    assert_eq!(lines[1].2, "stale");
+    assert_eq!(lines[1].2, "inputs changed: parameter missing: pairwise → listwise");
     let out = case.run(["run", "spec.yaml"]);
     out.success().stderr_contains("wrote report v2");
     assert_eq!(statuses(&out.stderr), [("load".into(), "cached".into()), ("covariance".into(), "computed".into())]);
@@ -120,4 +122,18 @@ fn concurrent_run_of_the_same_spec_is_refused_cleanly() {
         .stderr_contains("another `construe run` is writing")
         .stderr_contains("wait for it to finish")
         .no_report();
+}
+
+/// `plan` tells a step no version has run from one whose inputs changed since the last version.
+#[test]
+fn plan_says_not_computed_yet_before_the_first_run() {
+    let case = small_case();
+    let lines = plan_lines(&case.run(["plan", "spec.yaml"]).success().stdout.clone());
+    assert_eq!(lines[0].2, "not computed yet");
+    assert_eq!(lines[1].2, "not computed yet");
+    case.run(["run", "spec.yaml"]).success();
+    let case = case.file("w1.csv", synthetic_csv(200, 8, SMALL_COLUMNS));
+    let lines = plan_lines(&case.run(["plan", "spec.yaml"]).success().stdout.clone());
+    assert_eq!(lines[0].2, "inputs changed: data file w1.csv changed");
+    assert_eq!(lines[1].2, "inputs changed: upstream step load changed");
 }

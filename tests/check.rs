@@ -261,3 +261,76 @@ fn a_coarse_single_indicator_between_constructs_is_flagged() {
         )
         .stderr_contains("at spec.yaml:10:");
 }
+
+/// Sets column `column` of data row `row` (1-based) of a CSV to `value`.
+fn set_cell(csv: &str, row: usize, column: &str, value: &str) -> String {
+    let mut lines: Vec<String> = csv.lines().map(str::to_string).collect();
+    let k = lines[0].split(',').position(|c| c == column).unwrap();
+    let mut fields: Vec<String> = lines[row].split(',').map(str::to_string).collect();
+    fields[k] = value.into();
+    lines[row] = fields.join(",");
+    lines.join("\n") + "\n"
+}
+
+/// `check` reads every value once and reports all that `run` would refuse, each counted, with
+/// the spec entry to change: cells that are not numbers (two columns, one of them twice), a
+/// reverse range the item's answers do not fit, and a constant item — even after a type error
+/// elsewhere in the spec.
+#[test]
+fn check_finds_every_data_problem_run_would_refuse() {
+    let mut csv = synthetic_csv(80, 3, SMALL_COLUMNS);
+    csv = set_cell(&csv, 4, "a2", "often");
+    csv = set_cell(&csv, 9, "a2", "n/a");
+    csv = set_cell(&csv, 12, "b1", "5..");
+    let lines: Vec<String> = csv.lines().map(str::to_string).collect();
+    let constant: Vec<String> = lines.iter().skip(1).map(|_| "4".to_string()).collect();
+    for (r, v) in constant.iter().enumerate() {
+        csv = set_cell(&csv, r + 1, "b3", v);
+    }
+    let spec = SMALL_SPEC
+        .replace("  id_column: rid\n", "  id_column: rid\n  reverse: {a1: [1, 4]}\n")
+        .replace("covariance: {missing: pairwise}", "covariance: {missing: pairwize}");
+    let out = Case::new().spec(&spec).file("w1.csv", csv.clone()).run(["check", "spec.yaml"]);
+    out.failure(1)
+        .stderr_contains("analyses.covariance.missing: unknown variant `pairwize`")
+        .stderr_contains(
+            "error: `w1.csv` column `a2`: 2 values are not numbers (row 4 (line 5): `often`; row 9 (line 10): `n/a`)",
+        )
+        .stderr_contains("error: `w1.csv` column `b1`: 1 value is not a number (row 12 (line 13): `5..`)")
+        .stderr_contains("error: item `a1` has ")
+        .stderr_contains("outside its reverse range [1, 4] (5 in `w1.csv` row ")
+        .stderr_contains("error: item `b3` is constant (4 in every row with a value)")
+        .stderr_contains("5 errors and 0 warnings");
+    let reverse = "error: item `a1` has ";
+    let at = out.stderr.find(reverse).unwrap();
+    assert!(out.stderr[at..].contains("at spec.yaml:7:17"), "{}", out.stderr);
+    // `run` refuses the same data (at its first problem).
+    let fixed = spec.replace("pairwize", "pairwise");
+    Case::new().spec(&fixed).file("w1.csv", csv).run(["run", "spec.yaml"]).failure(1).no_report();
+}
+
+/// A clean file passes `check` whatever its size, and a problem past the first rows is found.
+#[test]
+fn check_reads_to_the_last_row() {
+    let csv = synthetic_csv(3000, 5, SMALL_COLUMNS);
+    let case = Case::new().spec(SMALL_SPEC).file("w1.csv", set_cell(&csv, 3000, "x", "--"));
+    case.run(["check", "spec.yaml"])
+        .failure(1)
+        .stderr_contains("`w1.csv` column `x`: 1 value is not a number (row 3000 (line 3001): `--`)");
+}
+
+/// Several type errors in the spec are all reported, each at its own position.
+#[test]
+fn every_type_error_is_reported() {
+    let spec = SMALL_SPEC
+        .replace("covariance: {missing: pairwise}", "covariance: {missing: pairwize}")
+        .replace("title: Small panel", "title: [Small, panel]");
+    with_spec(&spec)
+        .run(["check", "spec.yaml"])
+        .failure(1)
+        .stderr_contains("title: invalid type")
+        .stderr_contains("at spec.yaml:2:")
+        .stderr_contains("unknown variant `pairwize`")
+        .stderr_contains("at spec.yaml:11:")
+        .stderr_contains("2 errors and 0 warnings");
+}

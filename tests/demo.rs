@@ -25,7 +25,45 @@ fn transit_demo_writes_its_report() {
     let out = case.run(["run", "pipelines/transit/spec.yaml"]);
     out.success().stderr_contains("wrote report v1");
     assert!(case.exists("reports/transit-rider-panel/v1/report.html"));
+    // The path diagram as published is readable: type at least 11 px, no text over another
+    // text, a box or an edge (geometry of the emitted SVG, `diagram::layout_problems`).
+    let html = case.read("reports/transit-rider-panel/v1/report.html");
+    let start = html.find("<svg xmlns=\"http://www.w3.org/2000/svg\" class=\"diagram\"").expect("a path diagram");
+    let end = start + html[start..].find("</svg>").unwrap() + 6;
+    let problems = construe::report::diagram::layout_problems(&html[start..end]);
+    assert!(problems.is_empty(), "{problems:#?}");
     assert!(case.exists("reports/transit-rider-panel/v1/report.md"));
+    // Findings first, in both formats; every table of the HTML also in the Markdown.
+    let md = case.read("reports/transit-rider-panel/v1/report.md");
+    let findings = html.find("<h2>Findings</h2>").expect("a findings section");
+    assert!(findings < html.find("id=\"data\"").unwrap(), "findings come before the evidence");
+    assert!(md.find("## Findings").unwrap() < md.find("## 1. Data").unwrap());
+    for text in [
+        "**Constructs.** 5 constructs, measured by 19 of the 21 declared items",
+        "**Fit.** The purified measurement model fits well",
+        "**Structure.** The structure search finds 5 edges",
+        "This is the first version of this report.",
+    ] {
+        assert!(md.contains(text), "report.md lacks {text:?}");
+    }
+    assert!(html.contains("<details>"), "long evidence is folded");
+    for (what, html_mark, md_mark) in [
+        ("latent correlations", "<h3>Latent correlations</h3>", "Latent correlations:"),
+        ("bootstrap pairs", "how often, over", "how often, over"),
+        (
+            "standardized bootstrap intervals",
+            "<th class=\"n\">standardized</th></tr>",
+            "| effect | replicates | percentile 95% interval | standardized |",
+        ),
+        ("items kept per replicate", "Share of replicates keeping each item", "| item | kept in |"),
+        ("sensitivity per kind", "Edges found", "Edges found: does it hold"),
+        ("kept items per construct", "<th>kept items</th>", "| construct | kept items | dropped |"),
+    ] {
+        assert!(html.contains(html_mark), "report.html lacks the {what} table");
+        assert!(md.contains(md_mark), "report.md lacks the {what} table");
+    }
+    // With 8 replicates some intervals rest on few of them: flagged in both formats.
+    assert!(html.contains("(few: rough)") && md.contains("(few: rough)"));
     let results: serde_json::Value =
         serde_json::from_str(&case.read("reports/transit-rider-panel/v1/results.json")).unwrap();
     assert_eq!(results["data"]["waves"].as_array().unwrap().len(), 2);

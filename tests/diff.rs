@@ -21,7 +21,7 @@ fn adding_a_wave_is_reported_as_a_change() {
     assert!(md.contains("## Changes since the previous version (v1)"), "{md}");
     assert!(md.contains("- added input data/riders-autumn.parquet (autumn)"), "{md}");
     assert!(md.contains("- rows: 600 → 1100"), "{md}");
-    assert!(md.contains("- the spec's content changed"));
+    assert!(md.contains(": added ({id: autumn, file: data/riders-autumn.parquet})"), "{md}");
     let html = case.read("reports/transit-rider-panel/v2/report.html");
     assert!(html.contains("Changes since the previous version (v1)"));
     let v1 = case.read("reports/transit-rider-panel/v1/report.md");
@@ -30,5 +30,23 @@ fn adding_a_wave_is_reported_as_a_change() {
     out.success()
         .stdout_contains("## Changes from reports/transit-rider-panel/v1 to reports/transit-rider-panel/v2")
         .stdout_contains("- added input data/riders-autumn.parquet (autumn)")
-        .stdout_contains("- rows: 600 → 1100");
+        .stdout_contains("- rows: 600 → 1100")
+        .stdout_contains("- spec data.waves[1]: added ({id: autumn, file: data/riders-autumn.parquet})");
+}
+
+/// `diff` names each spec value that changed between two versions, old and new.
+#[test]
+fn diff_names_changed_spec_values() {
+    let case = crate::harness::small_case();
+    case.run(["run", "spec.yaml"]).success();
+    let edited = crate::harness::SMALL_SPEC
+        .replace("missing: pairwise", "missing: listwise")
+        .replace("  id_column: rid\n", "  id_column: rid\n  missing_codes: [-9]\n");
+    let case = case.file("spec.yaml", edited);
+    case.run(["run", "spec.yaml"]).success();
+    let out = case.run(["diff", "reports/small-panel/v1", "reports/small-panel/v2"]);
+    out.success()
+        .stdout_contains("- spec analyses.covariance.missing: pairwise → listwise\n")
+        .stdout_contains("- spec data.missing_codes: [] → [-9]\n");
+    assert!(!out.stdout.contains("the spec's content changed"), "{}", out.stdout);
 }

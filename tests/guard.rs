@@ -173,7 +173,7 @@ fn recovers_from_damaged_entries(damage: impl Fn(&Path)) {
     // `plan` looks without touching: nothing counts as cached, nothing blocks.
     let plan = run_in(case.path(), &["plan", "spec.yaml"], &[]);
     plan.code(0);
-    assert_eq!(plan.stdout.matches("stale").count(), 2, "{}", plan.show());
+    assert_eq!(plan.stdout.matches("not in the cache (computed for v1)").count(), 2, "{}", plan.show());
     let second = run_in(case.path(), &["run", "spec.yaml"], &[]);
     second.code(0).stderr_has("recomputing").stderr_has("nothing changed since v1");
     assert_eq!(second.stderr.matches("load         computed").count(), 1, "{}", second.show());

@@ -196,3 +196,17 @@ fn an_invalid_truth_model_fails_check() {
     let case = with_truth_model().file("model.yaml", MODEL);
     check_within_seconds(case).success();
 }
+
+/// Exit codes: help and version are success, a bare `construe` and any other usage error are
+/// bad input (1), never the run-time failure code 2 (README, "Exit codes").
+#[test]
+fn usage_errors_exit_1_and_help_exits_0() {
+    let bare = Case::new().run(Vec::<&str>::new());
+    bare.failure(1).stderr_contains("Usage: construe");
+    Case::new().run(["--version"]).success().stdout_contains("construe");
+    Case::new().run(["run", "--help"]).success().stdout_contains("Usage: construe run");
+    Case::new().run(["frobnicate"]).failure(1).stderr_contains("unrecognized subcommand");
+    Case::new().run(["run"]).failure(1).stderr_contains("<SPEC>");
+    Case::new().run(["run", "spec.yaml", "--bogus"]).failure(1).stderr_contains("--bogus");
+    Case::new().run(["simulate", "m.yaml", "--out", "x.csv", "--n", "many"]).failure(1).stderr_contains("many");
+}

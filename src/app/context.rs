@@ -73,6 +73,8 @@ pub fn report_context(spec: &SpecFile, execution: &Execution, results: &Value) -
     let tiers: Vec<Value> = s.knowledge.tiers.iter().map(|t| json!(t)).collect();
     let diagram = structure_diagram(spec, execution);
     json!({
+        "findings": super::findings::findings(results),
+        "few_replicates": super::findings::MIN_INTERVAL_REPLICATES,
         "title": s.title,
         "spec_path": spec.path.display().to_string(),
         "tool_version": env!("CARGO_PKG_VERSION"),
@@ -91,7 +93,8 @@ pub fn report_context(spec: &SpecFile, execution: &Execution, results: &Value) -
         "diagram": diagram,
         "truth": truth_comparison(spec, execution),
         "sensitivity": results.get("sensitivity"),
-        "sensitivity_plots": sensitivity_plots(execution),
+        "sensitivity_plots": sensitivity_plots(spec, execution),
+        "sensitivity_tables": sensitivity_tables(spec, results),
         "steps": steps,
     })
 }
@@ -133,14 +136,10 @@ fn structure_diagram(spec: &SpecFile, execution: &Execution) -> Option<String> {
         .iter()
         .filter_map(|e| {
             let coefficient = st.effects.iter().find(|f| f.from == e.from && f.to == e.to).and_then(|f| f.std);
-            // With resampling, the share of replicates in which the edge appeared.
-            let label = match (coefficient, bootstrap_support(execution, &e.from, &e.to)) {
-                (Some(c), Some(p)) => Some(format!("{c:+.2} ({:.0}%)", p * 100.0)),
-                (Some(c), None) => Some(format!("{c:+.2}")),
-                (None, Some(p)) => Some(format!("{:.0}%", p * 100.0)),
-                (None, None) => None,
-            };
-            Some(Link { from: index(&e.from)?, to: index(&e.to)?, kind: e.kind, label })
+            // With resampling, the share of replicates with the edge as drawn (oriented the
+            // same way for a directed edge; present at all for an undirected one).
+            let support = drawn_support(execution, &e.from, &e.to, e.kind.is_directed());
+            Some(Link { from: index(&e.from)?, to: index(&e.to)?, kind: e.kind, coefficient, support })
         })
         .collect();
     let dropped: Vec<String> = match execution.artifacts.get(&StepKind::Purify) {
@@ -200,10 +199,16 @@ fn truth_comparison(spec: &SpecFile, execution: &Execution) -> Option<Value> {
     }))
 }
 
-/// The bootstrap share of replicates with `a` and `b` adjacent, when resampling ran.
-fn bootstrap_support(execution: &Execution, a: &str, b: &str) -> Option<f64> {
+/// The bootstrap share of replicates with the edge `a` -> `b` as drawn (`directed`: oriented
+/// `a` -> `b`; otherwise adjacent at all), when resampling ran.
+fn drawn_support(execution: &Execution, a: &str, b: &str, directed: bool) -> Option<f64> {
     let Some(Artifact::Resample(r)) = execution.artifacts.get(&StepKind::Resample) else { return None };
-    Some(r.edges.iter().find(|e| (e.from == a && e.to == b) || (e.from == b && e.to == a)).map_or(0.0, |e| e.present))
+    let found = r.edges.iter().find(|e| (e.from == a && e.to == b) || (e.from == b && e.to == a));
+    Some(found.map_or(0.0, |e| match (directed, e.from == a) {
+        (false, _) => e.present,
+        (true, true) => e.forward,
+        (true, false) => e.backward,
+    }))
 }
 
 /// For each edge of the structure, its bootstrap presence and orientation shares.
@@ -229,16 +234,88 @@ fn edge_support(execution: &Execution) -> Value {
     Value::Array(rows)
 }
 
-/// One plot per effect and swept construct.
-fn sensitivity_plots(execution: &Execution) -> Vec<Value> {
+/// One plot per effect and swept construct, the declared reliability marked.
+fn sensitivity_plots(spec: &SpecFile, execution: &Execution) -> Vec<Value> {
     let Some(Artifact::Sensitivity(s)) = execution.artifacts.get(&StepKind::Sensitivity) else { return Vec::new() };
     s.curves
         .iter()
         .map(|c| {
+            let declared = spec.spec.constructs.get(&c.construct).and_then(|d| d.reliability);
             json!({
                 "title": format!("{} → {} against the reliability of {}", c.from, c.to, c.construct),
-                "svg": crate::report::svg::sensitivity_plot(&c.reliability, &c.est, &c.lo, &c.hi, c.tipping),
+                "svg": crate::report::svg::sensitivity_plot(&crate::report::svg::SensitivityCurve {
+                    construct: &c.construct,
+                    xs: &c.reliability,
+                    est: &c.est,
+                    lo: &c.lo,
+                    hi: &c.hi,
+                    tipping: c.tipping,
+                    declared,
+                }),
             })
         })
         .collect()
+}
+
+/// The sensitivity conclusions as one table per kind of conclusion (edges found, pairs found
+/// independent, others) and swept construct: a row per conclusion, a column per grid value
+/// (the declared one marked), a cell saying whether the conclusion holds there. And the failed
+/// refits in words: how many, at which reliabilities, and why such refits fail.
+fn sensitivity_tables(spec: &SpecFile, results: &Value) -> Value {
+    let s = &results["sensitivity"];
+    let Some(conclusions) = s["conclusions"].as_array() else { return Value::Null };
+    let grids = spec.spec.analyses.sensitivity.as_ref().map(|p| p.reliability.clone()).unwrap_or_default();
+    let mut tables = Vec::new();
+    for (construct, grid) in &grids {
+        let declared = spec.spec.constructs.get(construct).and_then(|c| c.reliability);
+        for (kind, title) in
+            [("edge ", "Edges found"), ("no edge", "Pairs found independent"), ("", "Other conclusions")]
+        {
+            let rows: Vec<Value> = conclusions
+                .iter()
+                .filter(|c| {
+                    let what = c["what"].as_str().unwrap_or("");
+                    match kind {
+                        "" => !what.starts_with("edge ") && !what.starts_with("no edge"),
+                        k => what.starts_with(k),
+                    }
+                })
+                .map(|c| {
+                    let holds: Vec<f64> = c["holds_for"][construct].as_array().into_iter().flatten().filter_map(Value::as_f64).collect();
+                    let cells: Vec<bool> = grid.iter().map(|g| holds.iter().any(|h| (h - g).abs() < 1e-9)).collect();
+                    json!({"what": c["what"], "cells": cells, "prior": c["prior_probability"], "tipping": c["tipping"][construct]})
+                })
+                .collect();
+            if !rows.is_empty() {
+                let all_hold = rows.iter().all(|r| r["cells"].as_array().is_some_and(|c| c.iter().all(|b| b == true)));
+                tables.push(json!({
+                    "title": title,
+                    "construct": construct,
+                    "grid": grid,
+                    "declared": declared,
+                    "rows": rows,
+                    "all_hold": all_hold,
+                }));
+            }
+        }
+    }
+    let failed = s["failed"].as_u64().unwrap_or(0);
+    let failures = s["failures"].as_array().map(Vec::as_slice).unwrap_or_default();
+    // "prior draw 165 (fare_burden = 0.181): …": the reliabilities at which refits failed.
+    let at: Vec<String> = failures
+        .iter()
+        .filter_map(|f| {
+            let f = f.as_str()?;
+            let inner = f.split_once('(')?.1.split_once(')')?.0;
+            inner.contains(" = ").then(|| inner.to_string())
+        })
+        .collect();
+    let failed_words = (failed > 0).then(|| {
+        let shown = if at.is_empty() { String::new() } else { format!(" (among them {})", at.join(", ")) };
+        format!(
+            "{failed} refit{} failed{shown}. Refits fail when the assumed reliability is so low that the corrected correlations among the constructs leave the valid range (above 1 in size), which no model can fit; those refits are left out of every share and probability.",
+            if failed == 1 { "" } else { "s" }
+        )
+    });
+    json!({"tables": tables, "failed_words": failed_words})
 }

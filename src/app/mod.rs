@@ -5,6 +5,7 @@
 pub mod check;
 pub mod context;
 pub mod diff;
+pub mod findings;
 pub mod lints;
 pub mod plan;
 pub mod run;
@@ -24,7 +25,8 @@ use crate::steps::StepError;
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum Exit {
     Ok = 0,
-    /// The spec or the data is invalid, or another run holds the lock.
+    /// The command line, the spec or the data is invalid, or another run holds the lock
+    /// (a bare `construe` is a usage error too: it prints the help and exits 1).
     Invalid = 1,
     /// The analysis failed at run time (I/O, a numerical failure).
     Failed = 2,

@@ -84,6 +84,7 @@ pub(crate) fn spec_info(spec: &SpecFile) -> SpecInfo {
         file_hash: Key::of_bytes(spec.source.as_bytes()),
         content_hash: Key::of_json(&content),
         from_report: None,
+        content: Some(content),
     }
 }
 

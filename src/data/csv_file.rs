@@ -16,12 +16,12 @@ const BUFFER: usize = 1 << 16;
 
 /// A reader over a regular file (never a FIFO or device), rows of any width so that this
 /// module, not the parser, reports a record with the wrong number of fields.
-fn open(path: &Path) -> Result<csv::Reader<File>, DataError> {
+pub(super) fn open(path: &Path) -> Result<csv::Reader<File>, DataError> {
     let file = crate::fsguard::open_regular(path).map_err(|e| read_error(path, e))?;
     Ok(csv::ReaderBuilder::new().has_headers(true).flexible(true).buffer_capacity(BUFFER).from_reader(file))
 }
 
-fn csv_error(path: &Path, e: csv::Error) -> DataError {
+pub(super) fn csv_error(path: &Path, e: csv::Error) -> DataError {
     match e.position() {
         Some(p) => DataError::Csv { path: path.to_path_buf(), line: Some(p.line() as usize), reason: e.to_string() },
         None => DataError::Csv { path: path.to_path_buf(), line: None, reason: e.to_string() },
@@ -29,7 +29,7 @@ fn csv_error(path: &Path, e: csv::Error) -> DataError {
 }
 
 /// The header's column names, checked: UTF-8, not empty, no name twice.
-fn names(path: &Path, reader: &mut csv::Reader<File>) -> Result<Vec<String>, DataError> {
+pub(super) fn names(path: &Path, reader: &mut csv::Reader<File>) -> Result<Vec<String>, DataError> {
     let header = reader.byte_headers().map_err(|e| csv_error(path, e))?.clone();
     if header.is_empty() {
         return Err(DataError::EmptyFile { path: path.to_path_buf() });
@@ -58,14 +58,14 @@ pub fn header(path: &Path) -> Result<Vec<String>, DataError> {
 }
 
 /// Why one cell is not a number.
-enum CellError {
+pub(super) enum CellError {
     NotUtf8,
     NotANumber(String),
 }
 
 /// An empty field and `NA` are missing (NaN); anything else must be a finite number, with
 /// surrounding spaces allowed. The same rules as the polars reader this replaced.
-fn cell(bytes: &[u8]) -> Result<f64, CellError> {
+pub(super) fn cell(bytes: &[u8]) -> Result<f64, CellError> {
     if bytes.is_empty() || bytes == b"NA" {
         return Ok(f64::NAN);
     }

@@ -9,6 +9,7 @@
 pub mod csv_file;
 pub mod matrix;
 pub mod parquet_footer;
+pub mod scan;
 pub mod table;
 pub mod write;
 

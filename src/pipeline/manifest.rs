@@ -33,6 +33,10 @@ pub struct SpecInfo {
     /// anywhere while the repository layout is kept.
     #[serde(default)]
     pub from_report: Option<String>,
+    /// The parsed spec as canonical JSON (what `content_hash` hashes), so `diff` can name the
+    /// values that changed between versions. Absent in manifests written before it was added.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub content: Option<Value>,
 }
 
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]

@@ -86,9 +86,100 @@ fn inputs(ma: &Value, mb: &Value, ra: &Value, rb: &Value) -> Vec<String> {
         out.push(format!("rows: {} → {}", ra["data"]["rows"], rb["data"]["rows"]));
     }
     if ma["spec"]["content_hash"] != mb["spec"]["content_hash"] {
-        out.push("the spec's content changed".into());
+        let (ca, cb) = (&ma["spec"]["content"], &mb["spec"]["content"]);
+        let named = if ca.is_null() || cb.is_null() { Vec::new() } else { value_changes(ca, cb) };
+        if named.is_empty() {
+            // A manifest written before specs were recorded: only the hash can differ.
+            out.push("the spec's content changed".into());
+        }
+        out.extend(named.into_iter().map(|c| format!("spec {c}")));
     }
     out
+}
+
+/// Most changed values named before the rest are counted.
+const MAX_NAMED_CHANGES: usize = 40;
+
+/// The values that differ between two JSON trees, one line each: `analyses.structure.alpha:
+/// 0.05 → 0.2`, `constructs.trust: added`. Mappings are followed key by key, lists of
+/// mappings element by element; any other list is one value. Sorted by path, at most
+/// `MAX_NAMED_CHANGES` lines (then a count of the rest).
+pub fn value_changes(a: &Value, b: &Value) -> Vec<String> {
+    let mut out = Vec::new();
+    walk_changes("", a, b, &mut out);
+    if out.len() > MAX_NAMED_CHANGES {
+        let rest = out.len() - MAX_NAMED_CHANGES;
+        out.truncate(MAX_NAMED_CHANGES);
+        out.push(format!("and {rest} more changed values"));
+    }
+    out
+}
+
+fn join(path: &str, key: &str) -> String {
+    if path.is_empty() { key.to_string() } else { format!("{path}.{key}") }
+}
+
+/// A value as a reader writes it: strings bare, whole numbers without `.0`, lists and
+/// mappings compact, cut short.
+fn shown(v: &Value) -> String {
+    fn text(v: &Value) -> String {
+        match v {
+            Value::String(t) => t.clone(),
+            Value::Null => "none".into(),
+            Value::Number(n) => match n.as_f64() {
+                Some(x) if x.fract() == 0.0 && x.abs() < 1e15 => format!("{}", x as i64),
+                _ => n.to_string(),
+            },
+            Value::Array(l) => format!("[{}]", l.iter().map(text).collect::<Vec<_>>().join(", ")),
+            Value::Object(m) => {
+                format!("{{{}}}", m.iter().map(|(k, v)| format!("{k}: {}", text(v))).collect::<Vec<_>>().join(", "))
+            }
+            Value::Bool(b) => b.to_string(),
+        }
+    }
+    let t = text(v);
+    match t.char_indices().nth(MAX_SHOWN_CHARS) {
+        Some((at, _)) => format!("{}…", &t[..at]),
+        None => t,
+    }
+}
+
+/// Most characters of a changed value shown.
+const MAX_SHOWN_CHARS: usize = 80;
+
+fn walk_changes(path: &str, a: &Value, b: &Value, out: &mut Vec<String>) {
+    if a == b {
+        return;
+    }
+    let is_record_list = |v: &Value| v.as_array().is_some_and(|l| !l.is_empty() && l.iter().all(Value::is_object));
+    match (a, b) {
+        (Value::Object(x), Value::Object(y)) => {
+            let keys: BTreeSet<&String> = x.keys().chain(y.keys()).collect();
+            for k in keys {
+                let p = join(path, k);
+                match (x.get(k), y.get(k)) {
+                    (Some(va), Some(vb)) => walk_changes(&p, va, vb, out),
+                    (None, Some(vb)) if !vb.is_null() => out.push(format!("{p}: added ({})", shown(vb))),
+                    (Some(va), None) if !va.is_null() => out.push(format!("{p}: removed (was {})", shown(va))),
+                    _ => {}
+                }
+            }
+        }
+        (Value::Array(x), Value::Array(y)) if is_record_list(a) && is_record_list(b) => {
+            for (i, (va, vb)) in x.iter().zip(y).enumerate() {
+                walk_changes(&format!("{path}[{i}]"), va, vb, out);
+            }
+            for (i, vb) in y.iter().enumerate().skip(x.len()) {
+                out.push(format!("{path}[{i}]: added ({})", shown(vb)));
+            }
+            for (i, va) in x.iter().enumerate().skip(y.len()) {
+                out.push(format!("{path}[{i}]: removed (was {})", shown(va)));
+            }
+        }
+        (Value::Null, v) => out.push(format!("{path}: added ({})", shown(v))),
+        (v, Value::Null) => out.push(format!("{path}: removed (was {})", shown(v))),
+        _ => out.push(format!("{path}: {} → {}", shown(a), shown(b))),
+    }
 }
 
 fn kept(r: &Value) -> Option<BTreeMap<String, BTreeSet<String>>> {
@@ -188,6 +279,15 @@ fn estimates(ra: &Value, rb: &Value) -> Vec<String> {
             |e: &Value, x: f64| matches!((f(&e["ci"][0]), f(&e["ci"][1])), (Some(lo), Some(hi)) if x < lo || x > hi);
         if outside(ea, new) || outside(eb, old) {
             out.push(format!("effect {} → {}: {old:.3} → {new:.3}, beyond its 95% interval", k.0, k.1));
+        } else if format!("{old:.2}") != format!("{new:.2}") {
+            out.push(format!("effect {} → {}: {old:.2} → {new:.2}, within its 95% interval", k.0, k.1));
+        }
+    }
+    for (k, eb) in &b {
+        if !a.contains_key(k)
+            && let Some(new) = f(&eb["est"])
+        {
+            out.push(format!("effect {} → {}: new, {new:.2}", k.0, k.1));
         }
     }
     let fit = |r: &Value| r["measure"]["fit"].clone();
@@ -197,6 +297,8 @@ fn estimates(ra: &Value, rb: &Value) -> Vec<String> {
             matches!((f(&fa["rmsea_ci"][0]), f(&fa["rmsea_ci"][1])), (Some(lo), Some(hi)) if new < lo || new > hi);
         if beyond {
             out.push(format!("measurement RMSEA: {old:.3} → {new:.3}, beyond its 90% interval"));
+        } else if format!("{old:.3}") != format!("{new:.3}") {
+            out.push(format!("measurement RMSEA: {old:.3} → {new:.3}, within its 90% interval"));
         }
         if let (Some(ca), Some(cb)) = (f(&fa["cfi"]), f(&fb["cfi"]))
             && (ca - cb).abs() >= 0.01
@@ -228,5 +330,25 @@ mod tests {
         assert!(md.contains("- edge reoriented: a → b became b → a"));
         assert!(md.contains("- edge added: a → c"));
         assert!(md.contains("- edge removed: b — c"));
+    }
+
+    #[test]
+    fn spec_values_are_named() {
+        let spec_a = json!({"analyses": {"structure": {"alpha": 0.05, "test": "wald"}},
+            "data": {"waves": [{"id": "w1", "file": "a.csv"}], "missing_codes": [-9]}});
+        let spec_b = json!({"analyses": {"structure": {"alpha": 0.2, "test": "wald"}, "measure": {}},
+            "data": {"waves": [{"id": "w1", "file": "b.csv"}], "missing_codes": [-9, 99]}});
+        let ma = json!({"spec": {"content_hash": "x", "content": spec_a}});
+        let mb = json!({"spec": {"content_hash": "y", "content": spec_b}});
+        let md = diff(&json!({}), &ma, &json!({}), &mb).markdown("v1", "v2");
+        assert!(md.contains("- spec analyses.structure.alpha: 0.05 → 0.2\n"), "{md}");
+        assert!(md.contains("- spec analyses.measure: added ({})\n"), "{md}");
+        assert!(md.contains("- spec data.waves[0].file: a.csv → b.csv\n"), "{md}");
+        assert!(md.contains("- spec data.missing_codes: [-9] → [-9, 99]\n"), "{md}");
+        assert!(!md.contains("the spec's content changed"), "{md}");
+        // An older manifest without the spec's content: only the hash is known.
+        let old = json!({"spec": {"content_hash": "x"}});
+        let md = diff(&json!({}), &old, &json!({}), &mb).markdown("v1", "v2");
+        assert!(md.contains("- the spec's content changed"), "{md}");
     }
 }

@@ -110,31 +110,50 @@ pub fn heatmap(items: &[String], groups: &[String], correlation: &[Vec<f64>]) ->
     s
 }
 
-/// One effect's estimate along a reliability grid: the estimate as a line with dots, its 95%
-/// interval as a band, the zero line, and the tipping point marked by a dashed rule.
-pub fn sensitivity_plot(
-    xs: &[f64],
-    est: &[Option<f64>],
-    lo: &[Option<f64>],
-    hi: &[Option<f64>],
-    tipping: Option<f64>,
-) -> String {
-    let (w, h, left, right, top, bottom) = (300.0, 170.0, 44.0, 10.0, 10.0, 30.0);
-    let values: Vec<f64> = est.iter().chain(lo).chain(hi).flatten().copied().chain([0.0]).collect();
+/// One curve of the sensitivity analysis: the refitted coefficient of one effect (unstandardized,
+/// as the refits report it) against the assumed reliability of one construct.
+pub struct SensitivityCurve<'a> {
+    pub construct: &'a str,
+    pub xs: &'a [f64],
+    pub est: &'a [Option<f64>],
+    pub lo: &'a [Option<f64>],
+    pub hi: &'a [Option<f64>],
+    pub tipping: Option<f64>,
+    /// The reliability the spec declares, marked on the x axis.
+    pub declared: Option<f64>,
+}
+
+/// About four to six round tick values covering `[lo, hi]` (steps of 1, 2 or 5 × 10^k).
+fn ticks(lo: f64, hi: f64) -> Vec<f64> {
+    let span = (hi - lo).max(1e-9);
+    let raw = span / 5.0;
+    let mag = 10f64.powf(raw.log10().floor());
+    let step = [1.0, 2.0, 5.0, 10.0].iter().map(|m| m * mag).find(|s| *s >= raw).unwrap_or(10.0 * mag);
+    let first = (lo / step).ceil() as i64;
+    let last = (hi / step).floor() as i64;
+    // Rounded, so 3 × 0.1 is written and compared as 0.3.
+    (first..=last).map(|k| (k as f64 * step * 1e10).round() / 1e10).collect()
+}
+
+/// The estimate (line and points), its 95% interval (band), zero, the declared reliability and
+/// the tipping point, with titled axes; every text at least 11 px.
+pub fn sensitivity_plot(c: &SensitivityCurve) -> String {
+    let (w, h, left, right, top, bottom) = (330.0, 200.0, 58.0, 12.0, 14.0, 44.0);
+    let values: Vec<f64> = c.est.iter().chain(c.lo).chain(c.hi).flatten().copied().chain([0.0]).collect();
     let (ymin, ymax) = values.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| (a.min(v), b.max(v)));
     let pad = ((ymax - ymin) * 0.08).max(1e-6);
     let (ymin, ymax) = (ymin - pad, ymax + pad);
-    let (xmin, xmax) = xs.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| (a.min(v), b.max(v)));
+    let (xmin, xmax) = c.xs.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| (a.min(v), b.max(v)));
     let xspan = (xmax - xmin).max(1e-9);
     let px = |x: f64| left + (x - xmin) / xspan * (w - left - right);
     let py = |y: f64| top + (ymax - y) / (ymax - ymin) * (h - top - bottom);
     let mut s = String::new();
     let _ = write!(
         s,
-        r#"<svg xmlns="http://www.w3.org/2000/svg" class="sens" viewBox="0 0 {w} {h}" width="{w}" height="{h}" role="img" aria-label="estimate against reliability">"#
+        r#"<svg xmlns="http://www.w3.org/2000/svg" class="sens" viewBox="0 0 {w} {h}" width="{w}" height="{h}" role="img" aria-label="coefficient against assumed reliability">"#
     );
     let band: Vec<(f64, f64, f64)> =
-        xs.iter().zip(lo.iter().zip(hi)).filter_map(|(&x, (l, u))| Some((x, (*l)?, (*u)?))).collect();
+        c.xs.iter().zip(c.lo.iter().zip(c.hi)).filter_map(|(&x, (l, u))| Some((x, (*l)?, (*u)?))).collect();
     if band.len() >= 2 {
         let mut d = String::new();
         for (i, (x, _, u)) in band.iter().enumerate() {
@@ -145,23 +164,39 @@ pub fn sensitivity_plot(
         }
         let _ = write!(s, r##"<path d="{d}Z" fill="#e9d9cd" stroke="none"/>"##);
     }
-    let _ = write!(
-        s,
-        r##"<line x1="{left}" y1="{z:.1}" x2="{x2}" y2="{z:.1}" stroke="#5d6670" stroke-width="0.8"/>"##,
-        z = py(0.0),
-        x2 = w - right
-    );
-    if let Some(t) = tipping {
+    for y in ticks(ymin, ymax) {
         let _ = write!(
             s,
-            r##"<line x1="{x:.1}" y1="{top}" x2="{x:.1}" y2="{y2}" stroke="#1f5e66" stroke-width="1" stroke-dasharray="4 3"/><text x="{tx:.1}" y="{ty}" class="hm-label">tipping {t:.2}</text>"##,
-            x = px(t),
+            r##"<line x1="{left}" y1="{yy:.1}" x2="{x2}" y2="{yy:.1}" stroke="{colour}" stroke-width="{sw}"/><text x="{tx:.1}" y="{ty:.1}" text-anchor="end" font-size="11" class="sens-label">{y:.2}</text>"##,
+            yy = py(y),
+            x2 = w - right,
+            colour = if y == 0.0 { "#5d6670" } else { "#e4e0d6" },
+            sw = if y == 0.0 { 0.9 } else { 0.6 },
+            tx = left - 4.0,
+            ty = py(y) + 4.0
+        );
+    }
+    if let Some(d) = c.declared.filter(|d| *d >= xmin && *d <= xmax) {
+        let _ = write!(
+            s,
+            r##"<line x1="{x:.1}" y1="{top}" x2="{x:.1}" y2="{y2}" stroke="#1d232a" stroke-width="1.2"/><text x="{tx:.1}" y="{ty}" font-size="11" class="sens-label">declared</text>"##,
+            x = px(d),
             y2 = h - bottom,
-            tx = px(t) + 3.0,
+            tx = px(d) + 3.0,
             ty = top + 10.0
         );
     }
-    let pts: Vec<(f64, f64)> = xs.iter().zip(est).filter_map(|(&x, e)| Some((px(x), py((*e)?)))).collect();
+    if let Some(t) = c.tipping {
+        let _ = write!(
+            s,
+            r##"<line x1="{x:.1}" y1="{top}" x2="{x:.1}" y2="{y2}" stroke="#1f5e66" stroke-width="1" stroke-dasharray="4 3"/><text x="{tx:.1}" y="{ty}" font-size="11" class="sens-label">tipping {t:.2}</text>"##,
+            x = px(t),
+            y2 = h - bottom,
+            tx = px(t) + 3.0,
+            ty = top + 24.0
+        );
+    }
+    let pts: Vec<(f64, f64)> = c.xs.iter().zip(c.est).filter_map(|(&x, e)| Some((px(x), py((*e)?)))).collect();
     if pts.len() >= 2 {
         let d: Vec<String> = pts.iter().map(|(x, y)| format!("{x:.1},{y:.1}")).collect();
         let _ = write!(s, r##"<polyline points="{}" fill="none" stroke="#a84824" stroke-width="1.6"/>"##, d.join(" "));
@@ -169,27 +204,25 @@ pub fn sensitivity_plot(
     for (x, y) in &pts {
         let _ = write!(s, r##"<circle cx="{x:.1}" cy="{y:.1}" r="2.6" fill="#a84824"/>"##);
     }
-    for &x in xs {
+    for &x in c.xs {
         let _ = write!(
             s,
-            r#"<text x="{:.1}" y="{:.1}" text-anchor="middle" class="hm-label">{x:.1}</text>"#,
+            r#"<text x="{:.1}" y="{:.1}" text-anchor="middle" font-size="11" class="sens-label">{x:.1}</text>"#,
             px(x),
-            h - bottom + 14.0
-        );
-    }
-    for y in [ymin + pad, 0.0, ymax - pad] {
-        let _ = write!(
-            s,
-            r#"<text x="{:.1}" y="{:.1}" text-anchor="end" class="hm-label">{y:.2}</text>"#,
-            left - 4.0,
-            py(y) + 3.0
+            h - bottom + 15.0
         );
     }
     let _ = write!(
         s,
-        r#"<text x="{:.1}" y="{:.1}" text-anchor="middle" class="hm-label">assumed reliability</text>"#,
+        r#"<text x="{:.1}" y="{:.1}" text-anchor="middle" font-size="11" class="sens-label">assumed reliability of {}</text>"#,
         (left + w - right) / 2.0,
-        h - 2.0
+        h - 6.0,
+        escape(c.construct)
+    );
+    let _ = write!(
+        s,
+        r#"<text transform="translate(13 {:.1}) rotate(-90)" text-anchor="middle" font-size="11" class="sens-label">coefficient (unstandardized)</text>"#,
+        (top + h - bottom) / 2.0
     );
     s.push_str("</svg>");
     s
@@ -209,17 +242,29 @@ mod tests {
     }
 
     #[test]
-    fn sensitivity_plot_has_band_line_and_tipping() {
+    fn sensitivity_plot_has_band_line_tipping_declared_and_titles() {
         let xs = [0.5, 0.75, 1.0];
-        let svg = sensitivity_plot(
-            &xs,
-            &[Some(0.0), Some(0.1), Some(0.2)],
-            &[Some(-0.1), Some(0.0), Some(0.1)],
-            &[Some(0.1), Some(0.2), Some(0.3)],
-            Some(0.75),
-        );
+        let svg = sensitivity_plot(&SensitivityCurve {
+            construct: "fare",
+            xs: &xs,
+            est: &[Some(0.0), Some(0.1), Some(0.2)],
+            lo: &[Some(-0.1), Some(0.0), Some(0.1)],
+            hi: &[Some(0.1), Some(0.2), Some(0.3)],
+            tipping: Some(0.75),
+            declared: Some(0.5),
+        });
         assert_eq!(svg.matches("<circle").count(), 3);
         assert!(svg.contains("<path d=\"M") && svg.contains("tipping 0.75") && svg.contains("<polyline"));
+        assert!(svg.contains(">declared</text>") && svg.contains("assumed reliability of fare"));
+        assert!(svg.contains("coefficient (unstandardized)"));
+        assert!(svg.matches("text-anchor=\"end\"").count() >= 4, "at least four y ticks");
+        assert!(!svg.contains("font-size=\"10"), "type at least 11 px");
+    }
+
+    #[test]
+    fn ticks_are_round() {
+        assert_eq!(ticks(-0.12, 0.31), vec![-0.1, 0.0, 0.1, 0.2, 0.3]);
+        assert_eq!(ticks(0.0, 1.0), vec![0.0, 0.2, 0.4, 0.6, 0.8, 1.0]);
     }
 
     #[test]

@@ -78,29 +78,18 @@ impl SpecFile {
             }
         };
         let unknown = schema::unknown_keys(&positions);
-        if !unknown.is_empty() {
-            // Type-check what remains without the unknown keys; if that fails too, the unknown
-            // keys are the report (their removal may be what broke the rest).
-            let stripped = serde_yaml::from_str::<serde_yaml::Value>(&source).ok().and_then(|mut v| {
-                for f in &unknown {
-                    remove_path(&mut v, &f.path);
-                }
-                serde_yaml::from_value::<Spec>(v).ok()
-            });
-            return match stripped {
-                Some(spec) => Ok(SpecFile::finish(path, source, positions, spec, unknown)),
-                None => Err(diagnose(path, &source, &positions, unknown)),
-            };
+        if unknown.is_empty()
+            && let Ok(spec) = serde_yaml::from_str::<Spec>(&source)
+        {
+            return Ok(SpecFile::finish(path, source, positions, spec, Vec::new()));
         }
-        match serde_yaml::from_str::<Spec>(&source) {
-            Ok(spec) => Ok(SpecFile::finish(path, source, positions, spec, Vec::new())),
-            Err(e) => {
-                let position = e.location().map(|l| Position { line: l.line(), column: l.column() });
-                let message = strip_location(&e.to_string());
-                let mut r = Report::default();
-                r.push(Diagnostic::error(message).at(path, &source, position, 1));
-                Err(r)
-            }
+        // Unknown keys and type errors: each is set aside and the rest type-checked again, so
+        // one misspelled value does not hide the problems after it.
+        let (spec, findings) = type_check_all(&source, &positions, unknown);
+        match spec {
+            Some(spec) => Ok(SpecFile::finish(path, source, positions, spec, findings)),
+            None if findings.is_empty() => Err(first_type_error(path, &source)),
+            None => Err(diagnose(path, &source, &positions, findings)),
         }
     }
 
@@ -164,6 +153,102 @@ fn load_truth(written: &Path, path: &Path) -> Result<TruthModel, SpecProblem> {
     Ok(TruthModel { hash, truth })
 }
 
+/// Most type errors set aside before the rest is given up on.
+const MAX_TYPE_ERRORS: usize = 50;
+
+/// Type-checks `source` without its unknown keys, then, error by error, with each value that
+/// fails to type-check (named by the key path that starts serde_yaml's message) set aside:
+/// removed, or, where the spec needs the key, replaced by the first placeholder of another
+/// type that lets the check move past it. Returns the spec that remains (if one does) and
+/// every unknown key and type error found. Validation of the placeholders is not reported
+/// (`check` drops findings under a set-aside path).
+fn type_check_all(source: &str, positions: &Positions, unknown: Vec<Finding>) -> (Option<Spec>, Vec<Finding>) {
+    use serde_yaml::Value;
+    let Ok(mut value) = serde_yaml::from_str::<Value>(source) else { return (None, unknown) };
+    for f in &unknown {
+        remove_path(&mut value, &f.path);
+    }
+    let mut findings = unknown;
+    let attempt = |value: &Value| -> Result<Spec, (Option<String>, String)> {
+        // Re-serialising lets serde_yaml name the failing value's path in its message.
+        let text = serde_yaml::to_string(value).map_err(|e| (None, e.to_string()))?;
+        serde_yaml::from_str::<Spec>(&text).map_err(|e| {
+            let message = strip_location(&e.to_string());
+            let at = message.split_once(": ").map(|(p, _)| p.to_string()).filter(|p| positions.value(p).is_some());
+            (at, message)
+        })
+    };
+    let placeholders = [
+        Value::String(String::new()),
+        Value::Number(0.into()),
+        Value::Bool(false),
+        Value::Sequence(Vec::new()),
+        Value::Mapping(serde_yaml::Mapping::new()),
+    ];
+    let mut current = attempt(&value);
+    for _ in 0..MAX_TYPE_ERRORS {
+        let (at, message) = match current {
+            Ok(spec) => return (Some(spec), findings),
+            Err(e) => e,
+        };
+        // A missing key after something was set aside is that removal's doing, not the user's.
+        let set_aside = !findings.is_empty();
+        if set_aside && message.contains("missing field") {
+            break;
+        }
+        let Some(at) = at else {
+            findings.push(Finding::value(SpecProblem::Type { message }, ""));
+            break;
+        };
+        findings.push(Finding::value(SpecProblem::Type { message }, at.clone()));
+        // The first replacement after which the error is elsewhere, and not a missing key
+        // that only the removal caused.
+        let parent = at.rsplit_once('.').map_or("", |(p, _)| p).to_string();
+        let moved = |r: &Result<Spec, (Option<String>, String)>| match r {
+            Ok(_) => true,
+            Err((p, m)) => {
+                let missing_here = m.contains("missing field") && p.as_deref().unwrap_or("") == parent;
+                p.as_deref() != Some(at.as_str()) && !missing_here
+            }
+        };
+        let mut next = None;
+        let mut removed = value.clone();
+        remove_path(&mut removed, &at);
+        let candidate = attempt(&removed);
+        if moved(&candidate) {
+            next = Some((removed, candidate));
+        } else {
+            for p in &placeholders {
+                let mut replaced = value.clone();
+                set_path(&mut replaced, &at, p.clone());
+                let candidate = attempt(&replaced);
+                if moved(&candidate) {
+                    next = Some((replaced, candidate));
+                    break;
+                }
+            }
+        }
+        match next {
+            Some((v, r)) => {
+                value = v;
+                current = r;
+            }
+            None => break,
+        }
+    }
+    (None, findings)
+}
+
+/// serde_yaml's first error, positioned where serde_yaml puts it.
+fn first_type_error(path: &Path, source: &str) -> Report {
+    let mut r = Report::default();
+    if let Err(e) = serde_yaml::from_str::<Spec>(source) {
+        let position = e.location().map(|l| Position { line: l.line(), column: l.column() });
+        r.push(Diagnostic::error(strip_location(&e.to_string())).at(path, source, position, 1));
+    }
+    r
+}
+
 fn diagnose(path: &Path, source: &str, positions: &Positions, findings: Vec<Finding>) -> Report {
     let mut report = Report::default();
     for f in findings {
@@ -186,8 +271,27 @@ fn diagnose(path: &Path, source: &str, positions: &Positions, findings: Vec<Find
 
 /// Removes the mapping entry at a `positions` path such as `data.waves[0].idd`.
 fn remove_path(value: &mut serde_yaml::Value, path: &str) {
+    if let Some((map, last)) = parent_mapping(value, path) {
+        map.remove(last);
+    }
+}
+
+/// Replaces the mapping entry at a `positions` path.
+fn set_path(value: &mut serde_yaml::Value, path: &str, with: serde_yaml::Value) {
+    if let Some((map, last)) = parent_mapping(value, path)
+        && let Some(slot) = map.get_mut(last)
+    {
+        *slot = with;
+    }
+}
+
+/// The mapping that holds the last key of `path`, and that key.
+fn parent_mapping<'a, 'p>(
+    value: &'a mut serde_yaml::Value,
+    path: &'p str,
+) -> Option<(&'a mut serde_yaml::Mapping, &'p str)> {
     let mut segments: Vec<&str> = path.split('.').collect();
-    let Some(last) = segments.pop() else { return };
+    let last = segments.pop()?;
     let mut node = value;
     for seg in segments {
         // `name[3]` is element 3 of `name`; anything else is a plain key (names may hold `[`).
@@ -199,18 +303,13 @@ fn remove_path(value: &mut serde_yaml::Value, path: &str) {
             Some((k, i)) => (k, Some(i)),
             None => (seg, None),
         };
-        let Some(next) = node.get_mut(key) else { return };
+        let next = node.get_mut(key)?;
         node = match index {
-            Some(k) => match next.get_mut(k) {
-                Some(n) => n,
-                None => return,
-            },
+            Some(k) => next.get_mut(k)?,
             None => next,
         };
     }
-    if let Some(map) = node.as_mapping_mut() {
-        map.remove(last);
-    }
+    Some((node.as_mapping_mut()?, last))
 }
 
 /// Removes `.` and folds `name/..` without touching the file system, so messages show

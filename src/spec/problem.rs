@@ -114,6 +114,22 @@ pub enum SpecProblem {
     UnusualAlpha { what: String, value: f64 },
     #[error("construct `{construct}` has {} and no `reliability`, so it is not identified as a latent variable", crate::spec::diagnostic::plural(*count, "item"))]
     TooFewItems { construct: String, count: usize },
+    #[error("`{}` column `{column}`: {} ({examples})", path.display(), if *count == 1 { "1 value is not a number".to_string() } else { format!("{count} values are not numbers") })]
+    DataNotNumber { path: PathBuf, column: String, count: usize, examples: String },
+    #[error("`{}`: {} not have the header's {expected} fields ({examples})", path.display(), if *count == 1 { "1 row does".to_string() } else { format!("{count} rows do") })]
+    DataFieldCount { path: PathBuf, count: usize, expected: usize, examples: String },
+    #[error("`{}` cannot be read to its end: {reason}", path.display())]
+    DataUnreadable { path: PathBuf, reason: String },
+    #[error("item `{item}` has {} outside its reverse range [{lo}, {hi}] ({examples})", crate::spec::diagnostic::plural(*count, "value"))]
+    DataOutsideReverse { item: String, lo: f64, hi: f64, count: usize, examples: String },
+    #[error("item `{item}` is constant ({value} in every row with a value), so it carries no information")]
+    DataConstant { item: String, value: f64 },
+    #[error("item `{item}` has no values at all")]
+    DataEmpty { item: String },
+    #[error("item `{item}` is listed as ordinal but has non-integer value {value}")]
+    DataOrdinalNonInteger { item: String, value: f64 },
+    #[error("item `{item}` is listed as ordinal but has more than {max} distinct values")]
+    DataOrdinalLevels { item: String, max: usize },
 }
 
 impl SpecProblem {
@@ -147,6 +163,21 @@ impl SpecProblem {
             MatrixTooFewCases { .. } | MatrixTooManyCases { .. } => Some("check `n` against the publication: it is the number of respondents".into()),
             BelowMinItems { .. } => Some("add items to the construct, or lower `purify.min_items` (at least 3)".into()),
             TooMany { .. } => Some("the bound keeps a run within memory and a working day; split the work or lower the count".into()),
+            DataNotNumber { .. } => {
+                Some("fix the values, leave the cells empty, or list their code under `data.missing_codes`".into())
+            }
+            DataFieldCount { .. } => {
+                Some("check the separators and quotes on those lines; a field with a comma must be in double quotes".into())
+            }
+            DataOutsideReverse { .. } => {
+                Some("check the `[lowest, highest]` range under `data.reverse`, or declare the codes as missing".into())
+            }
+            DataConstant { .. } | DataEmpty { .. } => {
+                Some("remove the item from its construct; a constant answer cannot indicate anything".into())
+            }
+            DataOrdinalNonInteger { .. } | DataOrdinalLevels { .. } => {
+                Some("remove the item from `data.ordinal`, so it is read as continuous".into())
+            }
             ItemInTwoConstructs { .. } => {
                 Some("an item can indicate only one declared construct; purification looks for cross-loadings".into())
             }

@@ -132,11 +132,15 @@ impl Step for DiscoverStep {
     fn describe(&self, artifact: &Artifact) -> String {
         let Artifact::Discover(d) = artifact else { return String::new() };
         let sizes: Vec<String> = d.clusters.iter().map(|c| c.len().to_string()).collect();
+        let unclustered = crate::spec::diagnostic::plural(d.unclustered.len(), "item");
+        if d.clusters.is_empty() {
+            // Not "0 pure clusters (sizes )" (issue 20).
+            return format!("no pure cluster found, {unclustered} unclustered");
+        }
         format!(
-            "{} (sizes {}), {} unclustered",
+            "{} (sizes {}), {unclustered} unclustered",
             crate::spec::diagnostic::plural(d.clusters.len(), "pure cluster"),
             sizes.join(", "),
-            crate::spec::diagnostic::plural(d.unclustered.len(), "item")
         )
     }
 }
