@@ -34,18 +34,21 @@ pub fn check(path: &Path) -> Checked {
     let sources = source_columns(&spec);
     let mut findings = spec.early.clone();
     // A value that failed to type-check was set aside (removed or replaced by a placeholder);
-    // what validation says about that placeholder is not the user's problem.
-    let aside: Vec<String> = spec
+    // what validation says about that placeholder, or about the mapping that holds it (a
+    // construct whose `items` were set aside "has no items"), is not the user's problem.
+    let aside: Vec<String> =
+        spec.early.iter().filter(|f| matches!(f.problem, SpecProblem::Type { .. })).map(|f| f.path.clone()).collect();
+    let removed: Vec<String> = spec
         .early
         .iter()
-        .filter(|f| matches!(f.problem, SpecProblem::Type { .. } | SpecProblem::UnknownKey { .. }))
+        .filter(|f| matches!(f.problem, SpecProblem::UnknownKey { .. }))
         .map(|f| f.path.clone())
         .collect();
-    findings.extend(
-        validate(&spec.spec, &sources)
-            .into_iter()
-            .filter(|f| !aside.iter().any(|a| f.path == *a || f.path.starts_with(&format!("{a}.")))),
-    );
+    let under = |path: &str, a: &str| path == a || path.starts_with(&format!("{a}."));
+    let holds = |path: &str, a: &str| a.rsplit_once('.').is_some_and(|(parent, _)| parent == path);
+    findings.extend(validate(&spec.spec, &sources).into_iter().filter(|f| {
+        !removed.iter().any(|a| under(&f.path, a)) && !aside.iter().any(|a| under(&f.path, a) || holds(&f.path, a))
+    }));
     let report = spec.diagnose(findings);
     Checked { spec: Some(spec), report, sources }
 }

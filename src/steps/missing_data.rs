@@ -131,7 +131,9 @@ pub fn mcar(load: &LoadOutput, table: &Table) -> Result<Option<McarRecord>, Step
         return Ok(None);
     }
     let patterns = Patterns::new(&views).map_err(stats("the missing-data patterns"))?;
-    let skip = |note: String| Ok(Some(McarRecord { stat: None, df: None, p: None, patterns: patterns.len(), note: Some(note) }));
+    let skip = |note: String| {
+        Ok(Some(McarRecord { stat: None, df: None, p: None, patterns: patterns.len(), note: Some(note) }))
+    };
     if views.len() > MCAR_MAX_ITEMS {
         return skip(format!("not run: more than {MCAR_MAX_ITEMS} items"));
     }
@@ -161,7 +163,12 @@ pub struct FimlEstimate {
 /// `missing: fiml` on the table: EM for all-continuous items, else multiple imputation with
 /// the correlations pooled by Rubin's rules. `columns` are the estimator's columns (ordinal
 /// codes, continuous values; nothing masked).
-pub fn fiml(load: &LoadOutput, table: &Table, columns: &[Column<'_>], fit: OrdinalFit) -> Result<FimlEstimate, StepError> {
+pub fn fiml(
+    load: &LoadOutput,
+    table: &Table,
+    columns: &[Column<'_>],
+    fit: OrdinalFit,
+) -> Result<FimlEstimate, StepError> {
     let kinds = load.item_kinds();
     let p = table.items.len();
     if kinds.iter().all(|k| *k == ItemKind::Continuous) {
@@ -211,9 +218,7 @@ pub fn fiml(load: &LoadOutput, table: &Table, columns: &[Column<'_>], fit: Ordin
     // Response-scale covariance: each item's variance averaged over the completed sets.
     let sets = completed_sets(columns, &imputed);
     let variance: Vec<f64> = (0..p)
-        .map(|k| {
-            sets.iter().map(|set| sample_variance(&numbers(&set[k], load, k))).sum::<f64>() / sets.len() as f64
-        })
+        .map(|k| sets.iter().map(|set| sample_variance(&numbers(&set[k], load, k))).sum::<f64>() / sets.len() as f64)
         .collect();
     let cont: Vec<usize> = (0..p).filter(|&k| kinds[k] == ItemKind::Continuous).collect();
     let moments = (!cont.is_empty()).then(|| {
@@ -300,19 +305,21 @@ pub fn completed_sets(columns: &[Column<'_>], imputed: &ImputedValues) -> Vec<Ve
                         Column::Continuous(v) => Column::Continuous(
                             v.iter().map(|&x| if x.is_nan() { *fill.next().unwrap_or(&f64::NAN) } else { x }).collect(),
                         ),
-                        Column::Ordinal { codes, levels } => Column::Ordinal {
-                            codes: codes
-                                .iter()
-                                .map(|&c| {
-                                    if c == MISSING_CODE {
-                                        fill.next().map_or(MISSING_CODE, |&v| v as u8)
-                                    } else {
-                                        c
-                                    }
-                                })
-                                .collect(),
-                            levels: *levels,
-                        },
+                        Column::Ordinal { codes, levels } => {
+                            Column::Ordinal {
+                                codes: codes
+                                    .iter()
+                                    .map(|&c| {
+                                        if c == MISSING_CODE {
+                                            fill.next().map_or(MISSING_CODE, |&v| v as u8)
+                                        } else {
+                                            c
+                                        }
+                                    })
+                                    .collect(),
+                                levels: *levels,
+                            }
+                        }
                     }
                 })
                 .collect()
