@@ -261,3 +261,16 @@ fn a_coarse_single_indicator_between_constructs_is_flagged() {
         )
         .stderr_contains("at spec.yaml:10:");
 }
+
+#[test]
+fn estimation_choices_without_meaning_are_positioned() {
+    let spec = SMALL_SPEC.to_string() + "  measure: {estimation: {method: dwls, standard_errors: information}}\n";
+    with_spec(&spec)
+        .run(["check", "spec.yaml"])
+        .failure(1)
+        .stderr_contains("error: `standard_errors: information` has no meaning for `method: dwls`")
+        .stderr_contains("at spec.yaml:13:57")
+        .stderr_contains("use `standard_errors: sandwich` (or `auto`)");
+    let spec = SMALL_SPEC.to_string() + "  measure: {estimation: {method: dwls, standard_errors: sandwiches}}\n";
+    with_spec(&spec).run(["check", "spec.yaml"]).failure(1).stderr_contains("sandwiches");
+}

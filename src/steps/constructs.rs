@@ -1,14 +1,23 @@
 //! Building and fitting the latent-variable model of named constructs: what `measure`,
 //! `structure` and `sensitivity`'s refits share. Central function: `fit_constructs`, which
-//! resolves item names to covariance rows, fixes single indicators' error variances from their
-//! reliability, and calls `construe_stats::sem`. No numerics of its own beyond that assembly.
+//! resolves item names to matrix rows, fixes single indicators' error variances from their
+//! reliability, and calls `construe_stats::sem` with the estimator `plan` chose (ML with
+//! information or sandwich SEs, or DWLS on the correlations). No numerics of its own beyond
+//! that assembly; the words of the estimation statement (results.json, report) live here.
 
 use nalgebra::DMatrix;
+use serde::{Deserialize, Serialize};
 
 use super::StepError;
-use crate::spec::types::Identification;
+use super::covariance::CovarianceOutput;
+use super::load::{ItemKind, LoadOutput};
+use super::sampling::{Moments, Theory, sampling_covariance};
+use crate::spec::types::{Estimation, EstimationMethod, Identification, StandardErrors};
 use construe_stats::StatsError;
-use construe_stats::sem::{self, FitOptions, SemFit, SemModel};
+use construe_stats::acov::SamplingCovariance;
+use construe_stats::sem::{
+    self, Correction, FitOptions, SemFit, SemModel, StatisticCorrection, Subset, fit_dwls, ml_sandwich,
+};
 
 pub fn identification(i: Identification) -> sem::Identification {
     match i {
@@ -17,24 +26,231 @@ pub fn identification(i: Identification) -> sem::Identification {
     }
 }
 
-/// Fits the CFA of `constructs` on the covariance of the named items; a failing fit is a
-/// `StepError::Stats` with `context` ("the measurement model").
+/// The estimator actually used.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum Method {
+    /// Maximum likelihood on the covariance matrix (Jöreskog 1969).
+    Ml,
+    /// Diagonally weighted least squares on the correlation matrix (Muthén, du Toit & Spisic 1997).
+    Dwls,
+}
+
+/// Where the standard errors came from.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum Errors {
+    /// The inverse expected information (normal theory).
+    Information,
+    /// Sandwich: robust to the items' distribution, from the moments' sampling covariance.
+    Sandwich,
+}
+
+/// `auto` resolved against the data: the estimator, the SEs, and why.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Plan {
+    pub method: Method,
+    pub errors: Errors,
+    pub reason: &'static str,
+}
+
+/// Resolves `analyses.measure.estimation` against the item types of the model and whether
+/// respondent rows exist. `auto`: any ordinal item -> DWLS with sandwich SEs (the only
+/// estimator here whose SEs and statistic hold on polychoric correlations); all items
+/// continuous with rows -> ML with sandwich SEs and the scaled statistic (valid whatever the
+/// items' distribution); a summary matrix -> ML with normal-theory SEs (a matrix carries no
+/// fourth moments, so normal theory is the only estimate of the moments' sampling covariance,
+/// and under it the sandwich equals the information).
+pub fn plan(spec: Estimation, kinds: &[ItemKind], rows: bool) -> Result<Plan, StepError> {
+    let ordinal = kinds.contains(&ItemKind::Ordinal);
+    let unavailable = |what: &'static str, hint: &'static str| StepError::EstimationUnavailable { what, hint };
+    let method = match (spec.method, ordinal, rows) {
+        (EstimationMethod::Dwls, _, false) => {
+            return Err(unavailable("DWLS", "DWLS needs respondent rows; use `method: ml` on a summary matrix"));
+        }
+        (EstimationMethod::Dwls, ..) | (EstimationMethod::Auto, true, true) => Method::Dwls,
+        _ => Method::Ml,
+    };
+    let (errors, reason) = match (method, spec.standard_errors, ordinal, rows) {
+        (Method::Dwls, StandardErrors::Information, ..) => {
+            return Err(unavailable("information-matrix standard errors for DWLS", "use `standard_errors: sandwich`"));
+        }
+        (Method::Dwls, ..) if spec.method == EstimationMethod::Auto => {
+            (Errors::Sandwich, "ordinal items: DWLS on their polychoric and polyserial correlations")
+        }
+        (Method::Dwls, ..) => (Errors::Sandwich, "DWLS as the spec asks"),
+        (Method::Ml, StandardErrors::Sandwich, true, _) => {
+            return Err(unavailable(
+                "sandwich standard errors for ML with ordinal items",
+                "use `method: dwls` (or `auto`), or `standard_errors: information`",
+            ));
+        }
+        (Method::Ml, StandardErrors::Sandwich, false, false) => {
+            return Err(unavailable("sandwich standard errors", "a summary matrix has no respondent rows"));
+        }
+        (Method::Ml, StandardErrors::Information, ..) => (Errors::Information, "normal-theory standard errors as the spec asks"),
+        (Method::Ml, _, false, true) => (Errors::Sandwich, "continuous items: ML with standard errors and statistic robust to non-normality"),
+        (Method::Ml, _, true, _) => (Errors::Information, "ML on the response-scale covariances of ordinal items, which have no distribution-free sampling covariance"),
+        (Method::Ml, _, false, false) => (Errors::Information, "a summary matrix carries no fourth moments, so the normal-theory information is the only estimate of the sampling variability"),
+    };
+    Ok(Plan { method, errors, reason })
+}
+
+/// What the models of one step are fitted to: the covariance step's matrices, the plan, and
+/// (for DWLS and sandwich SEs) the moments' sampling covariance over all its items.
+pub struct ModelInput {
+    /// The covariance step's items, in its order (the rows of both matrices and of `acov`).
+    pub items: Vec<String>,
+    pub covariance: DMatrix<f64>,
+    pub correlation: DMatrix<f64>,
+    /// The smallest pairwise n.
+    pub n: usize,
+    pub plan: Plan,
+    pub acov: Option<Box<dyn SamplingCovariance>>,
+}
+
+impl ModelInput {
+    /// Plans the estimation for the items the constructs use and builds the sampling covariance
+    /// the plan needs (`steps::sampling`).
+    pub fn new(
+        load: &LoadOutput,
+        cov: &CovarianceOutput,
+        spec: Estimation,
+        items: &[String],
+    ) -> Result<ModelInput, StepError> {
+        let kinds: Vec<ItemKind> = items.iter().filter_map(|i| cov.kind.get(i).copied()).collect();
+        let rows = load.table.is_some();
+        let plan = plan(spec, &kinds, rows)?;
+        let acov = match (plan.method, plan.errors) {
+            (Method::Dwls, _) => Some(sampling_covariance(load, cov, Moments::Correlations, Theory::DistributionFree)?),
+            (Method::Ml, Errors::Sandwich) => {
+                Some(sampling_covariance(load, cov, Moments::Covariances, Theory::DistributionFree)?)
+            }
+            (Method::Ml, Errors::Information) => None,
+        };
+        Ok(ModelInput {
+            items: cov.items.clone(),
+            covariance: cov.covariance_matrix(),
+            correlation: cov.correlation_matrix(),
+            n: cov.min_n(),
+            plan,
+            acov,
+        })
+    }
+}
+
+/// How one model was estimated: for results.json (`estimation`) and the report's sentence.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct EstimationRecord {
+    pub method: Method,
+    pub standard_errors: Errors,
+    pub statistic: StatisticCorrection,
+    /// The sample size the fit used (the smallest pairwise n).
+    pub n: usize,
+    /// Why this estimator (how `auto` was resolved, or the spec's choice).
+    pub reason: String,
+    /// The naive statistic and its correction (absent for normal-theory ML).
+    pub correction: Option<Correction>,
+    /// One sentence a reviewer can quote.
+    pub statement: String,
+}
+
+/// A number with thousands separators (1,184).
+fn grouped(n: usize) -> String {
+    let digits = n.to_string();
+    let mut out = String::new();
+    for (i, c) in digits.chars().enumerate() {
+        if i > 0 && (digits.len() - i) % 3 == 0 {
+            out.push(',');
+        }
+        out.push(c);
+    }
+    out
+}
+
+impl EstimationRecord {
+    /// The record of a fit of `what` ("measurement model", "structural model").
+    pub fn new(what: &str, plan: &Plan, cov: &CovarianceOutput, n: usize, correction: Option<Correction>) -> Self {
+        let statistic = correction.as_ref().map_or(StatisticCorrection::None, |c| c.kind);
+        let moments = if plan.method == Method::Dwls {
+            let methods: std::collections::BTreeSet<&str> = cov
+                .method
+                .values()
+                .map(|m| match m {
+                    super::covariance::PairMethod::Polychoric => "polychoric",
+                    super::covariance::PairMethod::Polyserial => "polyserial",
+                    _ => "Pearson",
+                })
+                .collect();
+            let list: Vec<&str> = ["polychoric", "polyserial", "Pearson"].into_iter().filter(|m| methods.contains(m)).collect();
+            let joined = match list.as_slice() {
+                [] => "the".to_string(),
+                [one] => (*one).to_string(),
+                [init @ .., last] => format!("{} and {last}", init.join(", ")),
+            };
+            format!("{joined} correlations")
+        } else {
+            "the item covariances".to_string()
+        };
+        let (estimator, errors) = match (plan.method, plan.errors) {
+            (Method::Dwls, _) => ("diagonally weighted least squares", "robust (sandwich)"),
+            (Method::Ml, Errors::Sandwich) => ("maximum likelihood", "robust (sandwich, distribution-free)"),
+            (Method::Ml, Errors::Information) => ("maximum likelihood", "from the expected information (normal theory)"),
+        };
+        let test = match statistic {
+            StatisticCorrection::ScaledShifted => {
+                "chi-square mean-and-variance adjusted (scaled and shifted, Asparouhov & Muthén 2010); RMSEA, CFI and TLI from the adjusted statistic (Brosseau-Liard, Savalei & Li 2012; Brosseau-Liard & Savalei 2014; Savalei 2018)"
+            }
+            StatisticCorrection::Scaled => {
+                "chi-square scaled (Satorra & Bentler 1994); RMSEA, CFI and TLI from the scaled statistic (Brosseau-Liard, Savalei & Li 2012; Brosseau-Liard & Savalei 2014)"
+            }
+            StatisticCorrection::None => "chi-square the normal-theory likelihood ratio; RMSEA, CFI and TLI from it",
+        };
+        let statement = format!(
+            "{} estimated by {estimator} on {moments} (n = {} respondents); standard errors {errors}; {test}.",
+            capitalised(what),
+            grouped(n)
+        );
+        EstimationRecord {
+            method: plan.method,
+            standard_errors: plan.errors,
+            statistic,
+            n,
+            reason: plan.reason.to_string(),
+            correction,
+            statement,
+        }
+    }
+}
+
+fn capitalised(s: &str) -> String {
+    let mut c = s.chars();
+    c.next().map(|f| f.to_uppercase().chain(c).collect()).unwrap_or_default()
+}
+
+/// Fits the model of `constructs` (with latent `paths`) by the input's plan; a failing fit is a
+/// `StepError::Stats` with `context` ("the measurement model"). Returns the fit (robust SEs
+/// and corrected indices where the plan asks), the observed items in model order, and the
+/// statistic's correction.
 pub fn fit_constructs(
     constructs: &[(String, Vec<String>, Option<f64>)],
-    all_items: &[String],
-    covariance: &DMatrix<f64>,
-    n: usize,
+    input: &ModelInput,
     ident: Identification,
     paths: &[(usize, usize)],
     context: &'static str,
-) -> Result<(SemFit, Vec<String>), StepError> {
+) -> Result<(SemFit, Vec<String>, Option<Correction>), StepError> {
+    let all_items = &input.items;
     let observed: Vec<String> = constructs.iter().flat_map(|(_, items, _)| items.iter().cloned()).collect();
     let index: Vec<usize> = observed
         .iter()
         .map(|i| all_items.iter().position(|a| a == i).ok_or_else(|| StepError::ItemNotInMatrix { item: i.clone() }))
         .collect::<Result<_, _>>()?;
     let stats = |source: StatsError| StepError::Stats { context: context.into(), source };
-    let s = DMatrix::from_fn(index.len(), index.len(), |r, c| covariance[(index[r], index[c])]);
+    let full = match input.plan.method {
+        Method::Dwls => &input.correlation,
+        Method::Ml => &input.covariance,
+    };
+    let s = DMatrix::from_fn(index.len(), index.len(), |r, c| full[(index[r], index[c])]);
     let mut offset = 0;
     let groups: Vec<Vec<usize>> = constructs
         .iter()
@@ -61,8 +277,24 @@ pub fn fit_constructs(
         }
     }
     let model = model.with_names(observed.clone(), names).map_err(stats)?;
-    let fit = model.fit(&s, n, &FitOptions::default()).map_err(stats)?;
-    Ok((fit, observed))
+    let n = input.n;
+    let acov = match &input.acov {
+        Some(v) => Some(Subset::new(v.as_ref(), index.clone()).map_err(stats)?),
+        None => None,
+    };
+    let (fit, correction) = match (input.plan.method, input.plan.errors, &acov) {
+        (Method::Dwls, _, Some(v)) => {
+            let robust = fit_dwls(&model, &s, v, &FitOptions::default()).map_err(stats)?;
+            (robust.fit, Some(robust.correction))
+        }
+        (Method::Ml, Errors::Sandwich, Some(v)) => {
+            let ml = model.fit(&s, n, &FitOptions::default()).map_err(stats)?;
+            let robust = ml_sandwich(&ml, &s, v).map_err(stats)?;
+            (robust.fit, Some(robust.correction))
+        }
+        _ => (model.fit(&s, n, &FitOptions::default()).map_err(stats)?, None),
+    };
+    Ok((fit, observed, correction))
 }
 
 #[cfg(test)]
@@ -73,14 +305,47 @@ mod tests {
     // or construct.
     #[test]
     fn model_problems_name_the_item_or_construct() {
-        let items: Vec<String> = ["a", "b", "c"].map(String::from).to_vec();
-        let s = DMatrix::<f64>::identity(3, 3);
+        let input = ModelInput {
+            items: ["a", "b", "c"].map(String::from).to_vec(),
+            covariance: DMatrix::<f64>::identity(3, 3),
+            correlation: DMatrix::<f64>::identity(3, 3),
+            n: 100,
+            plan: plan(Estimation::default(), &[ItemKind::Continuous; 3], false).unwrap(),
+            acov: None,
+        };
         let missing = vec![("f".to_string(), vec!["a".to_string(), "b".to_string(), "q".to_string()], None)];
-        let e = fit_constructs(&missing, &items, &s, 100, Identification::UnitVariance, &[], "the model").unwrap_err();
+        let e = fit_constructs(&missing, &input, Identification::UnitVariance, &[], "the model").unwrap_err();
         assert!(matches!(&e, StepError::ItemNotInMatrix { item } if item == "q"), "{e:?}");
         let single = vec![("g".to_string(), vec!["c".to_string()], None)];
-        let e = fit_constructs(&single, &items, &s, 100, Identification::UnitVariance, &[], "the model").unwrap_err();
+        let e = fit_constructs(&single, &input, Identification::UnitVariance, &[], "the model").unwrap_err();
         assert!(matches!(&e, StepError::NoReliability { construct } if construct == "g"), "{e:?}");
         assert_eq!(e.to_string(), "construct `g` has one item and no reliability");
+    }
+
+    // How `auto` resolves, and the combinations that have no meaning.
+    #[test]
+    fn auto_picks_the_estimator_from_the_item_types() {
+        use ItemKind::{Continuous, Ordinal};
+        let auto = Estimation::default();
+        let p = plan(auto, &[Continuous, Ordinal], true).unwrap();
+        assert_eq!((p.method, p.errors), (Method::Dwls, Errors::Sandwich));
+        let p = plan(auto, &[Continuous, Continuous], true).unwrap();
+        assert_eq!((p.method, p.errors), (Method::Ml, Errors::Sandwich));
+        let p = plan(auto, &[Continuous, Continuous], false).unwrap();
+        assert_eq!((p.method, p.errors), (Method::Ml, Errors::Information));
+        let ml = Estimation { method: EstimationMethod::Ml, standard_errors: StandardErrors::Auto };
+        assert_eq!(plan(ml, &[Ordinal], true).unwrap().errors, Errors::Information);
+        let ml_sandwich = Estimation { standard_errors: StandardErrors::Sandwich, ..ml };
+        assert!(matches!(plan(ml_sandwich, &[Ordinal], true), Err(StepError::EstimationUnavailable { .. })));
+        let dwls = Estimation { method: EstimationMethod::Dwls, standard_errors: StandardErrors::Auto };
+        assert_eq!(plan(dwls, &[Continuous], true).unwrap().method, Method::Dwls);
+        assert!(plan(dwls, &[Continuous], false).is_err());
+    }
+
+    #[test]
+    fn thousands_are_grouped() {
+        assert_eq!(grouped(1184), "1,184");
+        assert_eq!(grouped(999), "999");
+        assert_eq!(grouped(1_000_000), "1,000,000");
     }
 }

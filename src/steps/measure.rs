@@ -1,14 +1,17 @@
 //! `measure`: the maximum-likelihood CFA of the (purified) constructs, with single indicators'
 //! error variances fixed from their stated reliability, fit indices beside the unpurified
-//! model's, and reliability per construct. Central type: `MeasureOutput` (also what the
-//! structure search reads: the latent covariance and its asymptotic covariance).
+//! model's, and reliability per construct. The estimator follows `estimation` (by default
+//! from the item types: DWLS with sandwich SEs for ordinal items, ML with sandwich SEs for
+//! continuous rows, normal-theory ML for a summary matrix; see `constructs::plan`).
+//! Central type: `MeasureOutput` (also what the structure search reads: the latent covariance
+//! and its asymptotic covariance, robust where the SEs are).
 
 use indexmap::IndexMap;
 use nalgebra::DMatrix;
 use serde::{Deserialize, Serialize};
 use serde_json::{Value, json};
 
-use super::constructs::fit_constructs;
+use super::constructs::{EstimationRecord, ModelInput, fit_constructs};
 use super::{Artifact, Inputs, Step, StepError, StepKind};
 use crate::spec::SpecFile;
 use crate::spec::types::{Identification, MeasureSpec};
@@ -16,7 +19,9 @@ use construe_stats::reliability::{cronbach_alpha, mcdonald_omega};
 use construe_stats::sem::{FitIndices, Matrix, ParameterKind, SemFit};
 
 /// Bump when the fit changes for the same covariances, purification and parameters.
-pub const VERSION: u32 = 2;
+/// v3: estimation chosen from the item types (DWLS / sandwich SEs, corrected statistics);
+/// reads `load` for the moments' sampling covariance; `estimation` record added.
+pub const VERSION: u32 = 3;
 
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct Estimate {
@@ -77,6 +82,8 @@ pub struct MeasureOutput {
     pub latent_covariance: LatentCovariance,
     pub reliability: IndexMap<String, Reliability>,
     pub heywood: Vec<HeywoodRecord>,
+    /// How the model was estimated, with the one-sentence statement for the report.
+    pub estimation: EstimationRecord,
     /// The declared (unpurified) model's fit, when purification dropped items.
     pub unpurified: Option<UnpurifiedFit>,
 }
@@ -151,38 +158,46 @@ impl Step for MeasureStep {
     }
 
     fn params(&self) -> Value {
-        json!({"identification": self.params.identification, "constructs": self.declared})
+        json!({"identification": self.params.identification, "estimation": self.params.estimation, "constructs": self.declared})
     }
 
     fn inputs(&self) -> Vec<StepKind> {
-        if self.purified { vec![StepKind::Covariance, StepKind::Purify] } else { vec![StepKind::Covariance] }
+        if self.purified {
+            vec![StepKind::Load, StepKind::Covariance, StepKind::Purify]
+        } else {
+            vec![StepKind::Load, StepKind::Covariance]
+        }
     }
 
     fn run(&self, inputs: &Inputs<'_>) -> Result<Artifact, StepError> {
         let cov = inputs.covariance()?;
         let kept = if self.purified { Some(inputs.purify()?.kept()) } else { None };
         let constructs = self.constructs(kept);
-        let n = cov.min_n();
-        let s = cov.covariance_matrix();
-        let (fit, observed) =
-            fit_constructs(&constructs, &cov.items, &s, n, self.params.identification, &[], "the measurement model")?;
+        // One plan for the purified and the declared model: from the declared items.
+        let declared_items: Vec<String> = self.declared.iter().flat_map(|c| c.items.iter().cloned()).collect();
+        let input = ModelInput::new(inputs.load()?, cov, self.params.estimation, &declared_items)?;
+        let n = input.n;
+        let (fit, observed, correction) =
+            fit_constructs(&constructs, &input, self.params.identification, &[], "the measurement model")?;
         let unpurified = if self.purified && constructs.iter().zip(&self.declared).any(|(c, d)| c.1 != d.items) {
             let declared = self.constructs(None);
-            fit_constructs(&declared, &cov.items, &s, n, self.params.identification, &[], "the declared model")
+            fit_constructs(&declared, &input, self.params.identification, &[], "the declared model")
                 .ok()
-                .map(|(f, _)| UnpurifiedFit { converged: f.converged, fit: f.indices.clone() })
+                .map(|(f, _, _)| UnpurifiedFit { converged: f.converged, fit: f.indices.clone() })
         } else {
             None
         };
+        let estimation = EstimationRecord::new("measurement model", &input.plan, cov, n, correction);
         Ok(Artifact::Measure(Box::new(summarise(
             &fit,
             &constructs,
             &observed,
-            &s,
+            &input.covariance,
             &cov.items,
             n,
             self.params.identification,
             unpurified,
+            estimation,
         ))))
     }
 
@@ -210,6 +225,7 @@ pub fn summarise(
     n: usize,
     ident: Identification,
     unpurified: Option<UnpurifiedFit>,
+    estimation: EstimationRecord,
 ) -> MeasureOutput {
     let names: Vec<String> = constructs.iter().map(|c| c.0.clone()).collect();
     let mut loadings: IndexMap<String, IndexMap<String, Estimate>> =
@@ -279,6 +295,7 @@ pub fn summarise(
         },
         reliability,
         heywood,
+        estimation,
         unpurified,
     }
 }

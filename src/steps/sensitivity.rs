@@ -23,8 +23,8 @@ use construe_stats::search::EdgeKind;
 
 /// Bump when sensitivity results change for the same inputs and parameters.
 /// v4: conclusions stored as typed `Statement`s (the artifact's bytes changed; results.json
-/// did not).
-pub const VERSION: u32 = 4;
+/// did not). v5: refits use the measurement model's estimator (robust SEs, `load` an input).
+pub const VERSION: u32 = 5;
 
 /// A statement about the structure that a refit either repeats or contradicts. Compared as a
 /// value; `Display` gives its words (results.json and the report show those).
@@ -231,7 +231,8 @@ impl Step for SensitivityStep {
     }
 
     fn inputs(&self) -> Vec<StepKind> {
-        let mut v = vec![StepKind::Covariance];
+        // `load` for the moments' sampling covariance the refits' robust SEs need.
+        let mut v = vec![StepKind::Load, StepKind::Covariance];
         if self.purified {
             v.push(StepKind::Purify);
         }

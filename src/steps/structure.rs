@@ -7,10 +7,10 @@ use nalgebra::DMatrix;
 use serde::{Deserialize, Serialize};
 use serde_json::{Value, json};
 
-use super::constructs::fit_constructs;
+use super::constructs::{EstimationRecord, ModelInput, fit_constructs};
 use super::{Artifact, Inputs, Step, StepError, StepKind};
 use crate::spec::SpecFile;
-use crate::spec::types::{CiTest as CiTestKind, Knowledge as KnowledgeSpec, StructureSpec};
+use crate::spec::types::{CiTest as CiTestKind, Estimation, Knowledge as KnowledgeSpec, StructureSpec};
 use construe_stats::bvn::Z_975;
 use construe_stats::search::{
     CiTest, ColliderRule, EdgeKind, FisherZ, Knowledge, KnowledgeError, PcOptions, Reason, WaldPartial, enumerate_dags,
@@ -20,7 +20,9 @@ use construe_stats::sem::{FitIndices, Matrix, ParameterKind};
 
 /// Bump when search or fit results change for the same measurement model and parameters.
 /// v3: edge kinds stored as `EdgeKind` (the artifact's bytes changed; results.json did not).
-pub const VERSION: u32 = 3;
+/// v4: the measurement model's estimator (DWLS / sandwich SEs) for the structural fits; the
+/// Wald tests read measure's robust latent covariance; `estimation` record added.
+pub const VERSION: u32 = 4;
 
 /// Class members fitted at most (the rest are counted, not fitted).
 const MAX_MEMBERS: usize = 8;
@@ -78,6 +80,8 @@ pub struct StructureOutput {
     /// Members of the equivalence class consistent with the knowledge (at most the cap).
     pub class_size: usize,
     pub class_complete: bool,
+    /// How the structural models were estimated (`None` when the class had no member).
+    pub estimation: Option<EstimationRecord>,
 }
 
 #[derive(Clone)]
@@ -85,12 +89,15 @@ pub struct StructureStep {
     params: StructureSpec,
     knowledge: KnowledgeSpec,
     reliabilities: Vec<(String, Option<f64>)>,
+    /// The measurement model's estimation choice, which the structural fits follow.
+    estimation: Estimation,
 }
 
 impl StructureStep {
     pub fn from_spec(file: &SpecFile, params: &StructureSpec) -> StructureStep {
         let reliabilities = file.spec.constructs.iter().map(|(n, c)| (n.clone(), c.reliability)).collect();
-        StructureStep { params: params.clone(), knowledge: file.spec.knowledge.clone(), reliabilities }
+        let estimation = file.spec.analyses.measure.as_ref().map(|m| m.estimation).unwrap_or_default();
+        StructureStep { params: params.clone(), knowledge: file.spec.knowledge.clone(), reliabilities, estimation }
     }
 
     /// The same step with `construct`'s reliability replaced (sensitivity).
@@ -160,11 +167,11 @@ impl Step for StructureStep {
     }
 
     fn params(&self) -> Value {
-        json!({"alpha": self.params.alpha, "test": self.params.test, "knowledge": self.knowledge, "reliabilities": self.reliabilities})
+        json!({"alpha": self.params.alpha, "test": self.params.test, "knowledge": self.knowledge, "reliabilities": self.reliabilities, "estimation": self.estimation})
     }
 
     fn inputs(&self) -> Vec<StepKind> {
-        vec![StepKind::Covariance, StepKind::Measure]
+        vec![StepKind::Load, StepKind::Covariance, StepKind::Measure]
     }
 
     fn run(&self, inputs: &Inputs<'_>) -> Result<Artifact, StepError> {
@@ -212,20 +219,18 @@ impl Step for StructureStep {
                 (n.clone(), items.clone(), self.reliabilities.iter().find(|(c, _)| c == n).and_then(|(_, r)| *r))
             })
             .collect();
-        let s = cov.covariance_matrix();
+        let items: Vec<String> = constructs.iter().flat_map(|(_, items, _)| items.iter().cloned()).collect();
+        let input = ModelInput::new(inputs.load()?, cov, self.estimation, &items)?;
+        let mut estimation = None;
         let mut members = Vec::new();
         for dag in &class.dags {
             let paths: Vec<(usize, usize)> =
                 dag.edges().iter().filter(|e| e.is_directed()).map(|e| (e.from, e.to)).collect();
-            let (fit, _) = fit_constructs(
-                &constructs,
-                &cov.items,
-                &s,
-                measure.n,
-                measure.identification,
-                &paths,
-                "the structural model",
-            )?;
+            let (fit, _, correction) =
+                fit_constructs(&constructs, &input, measure.identification, &paths, "the structural model")?;
+            if estimation.is_none() {
+                estimation = Some(EstimationRecord::new("structural model", &input.plan, cov, input.n, correction));
+            }
             let z = Z_975;
             let effects = fit
                 .parameters
@@ -270,6 +275,7 @@ impl Step for StructureStep {
             class_size: class.dags.len(),
             class_complete: class.complete,
             members,
+            estimation,
         })))
     }
 

@@ -316,11 +316,11 @@ pub fn fit_dwls(
         let mut accepted = None;
         for _ in 0..40 {
             let trial: Vec<f64> = values.iter().zip(d.iter()).map(|(x, d)| x + alpha * d).collect();
-            if let Some(next) = dwls_point(model, &layout, &trial, r, &elements, &w) {
-                if merit(&next) <= here + 1e-13 * here.max(1.0) {
-                    accepted = Some((trial, next));
-                    break;
-                }
+            if let Some(next) = dwls_point(model, &layout, &trial, r, &elements, &w)
+                && merit(&next) <= here + 1e-13 * here.max(1.0)
+            {
+                accepted = Some((trial, next));
+                break;
             }
             alpha *= 0.5;
         }
