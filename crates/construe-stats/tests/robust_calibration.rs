@@ -8,7 +8,10 @@
 //!   Z - X and Z - Y dependences found given the other.
 //!
 //! Cells: continuous normal items (DWLS on Pearson correlations and ML with sandwich SEs and
-//! the scaled statistic), continuous skewed items (ML, scaled statistic).
+//! the scaled statistic), continuous skewed items (ML, scaled statistic), and DWLS on the
+//! polychoric correlations (two-step, Olsson 1979) of 5-point symmetric, 5-point skewed (about
+//! 80% of answers in the top two categories) and binary 80/20 items, with the correlations'
+//! sampling covariance from respondents' contributions (`acov::Contributions`).
 //! Short versions run always (< 10 s); the long ones (>= 500 replicates) are `#[ignore]`d:
 //! `cargo test --release -p construe-stats --test robust_calibration -- --ignored --nocapture`.
 //! Acceptance bands are from the issue; the short bands are about +-2.5 binomial SDs.
@@ -17,7 +20,9 @@ use nalgebra::DMatrix;
 use rand::Rng;
 use rand_distr::{ChiSquared, Distribution, StandardNormal};
 
-use construe_stats::acov::{Dense, SamplingCovariance, adf_covariances, all_elements};
+use construe_stats::acov::{Contributions, Dense, SamplingCovariance, adf_covariances, all_elements};
+use construe_stats::mixed::{Column, mixed_correlation};
+use construe_stats::polychoric::OrdinalFit;
 use construe_stats::sem::{FitOptions, Identification, Matrix, RobustFit, SemModel, fit_dwls, ml_sandwich};
 use construe_stats::search::{CiTest, WaldPartial};
 use construe_stats::testkit;
@@ -37,6 +42,23 @@ enum Cell {
     MlNormal,
     /// Items with chi-square(3) errors (skewness 1.6), ML with sandwich SEs, scaled statistic.
     MlSkewed,
+    /// Normal responses cut into 5 symmetric categories; DWLS on polychoric correlations.
+    Symmetric5,
+    /// Cut into 5 categories with about 80% of answers in the top two.
+    Skewed5,
+    /// Cut into yes/no at 80/20.
+    Binary,
+}
+
+impl Cell {
+    fn thresholds(self) -> Option<&'static [f64]> {
+        match self {
+            Cell::Symmetric5 => Some(&[-1.5, -0.5, 0.5, 1.5]),
+            Cell::Skewed5 => Some(&[-2.0, -1.5, -0.8, 0.2]),
+            Cell::Binary => Some(&[0.8416]),
+            _ => None,
+        }
+    }
 }
 
 fn groups() -> Vec<Vec<usize>> {
@@ -112,6 +134,18 @@ fn fit(cell: Cell, model: &SemModel, x: &DMatrix<f64>) -> RobustFit {
         Cell::DwlsContinuous => {
             let (r, v) = correlations_with_acov(x);
             fit_dwls(model, &r, &v, &FitOptions::default()).unwrap()
+        }
+        Cell::Symmetric5 | Cell::Skewed5 | Cell::Binary => {
+            let cuts = cell.thresholds().unwrap();
+            let columns: Vec<Column<'static>> = (0..x.ncols())
+                .map(|j| Column::Ordinal {
+                    codes: (0..x.nrows()).map(|r| cuts.iter().filter(|&&c| x[(r, j)] > c).count() as u8).collect(),
+                    levels: cuts.len() + 1,
+                })
+                .collect();
+            let estimate = mixed_correlation(&columns, OrdinalFit::TwoStep).unwrap();
+            let v = Contributions::correlations(&columns, &estimate).unwrap();
+            fit_dwls(model, &estimate.matrix, &v, &FitOptions::default()).unwrap()
         }
         Cell::MlNormal | Cell::MlSkewed => {
             let s = testkit::sample_cov(x);
@@ -202,6 +236,39 @@ fn dwls_continuous_short() {
 #[test]
 fn ml_skewed_short() {
     check_short(&calibrate(Cell::MlSkewed, 1000, 150, 2_000));
+}
+
+#[test]
+fn symmetric_5_point_short() {
+    check_short(&calibrate(Cell::Symmetric5, 1000, 100, 3_000));
+}
+
+#[test]
+fn skewed_5_point_short() {
+    check_short(&calibrate(Cell::Skewed5, 1000, 100, 4_000));
+}
+
+#[test]
+fn binary_short() {
+    check_short(&calibrate(Cell::Binary, 1000, 100, 5_000));
+}
+
+#[test]
+#[ignore]
+fn symmetric_5_point_long() {
+    check_long(&calibrate(Cell::Symmetric5, 1000, 1000, 40_000));
+}
+
+#[test]
+#[ignore]
+fn skewed_5_point_long() {
+    check_long(&calibrate(Cell::Skewed5, 1000, 1000, 50_000));
+}
+
+#[test]
+#[ignore]
+fn binary_long() {
+    check_long(&calibrate(Cell::Binary, 1000, 1000, 60_000));
 }
 
 #[test]
