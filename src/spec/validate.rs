@@ -527,7 +527,10 @@ fn check_estimation(e: &Estimation, rows: bool, out: &mut Vec<Finding>) {
         out.push(Finding::value(SpecProblem::DwlsInformation, format!("{path}.standard_errors")));
     }
     if !rows && e.method == EstimationMethod::Dwls {
-        out.push(Finding::value(SpecProblem::NeedsRows { analysis: "measure (method: dwls)".into() }, format!("{path}.method")));
+        out.push(Finding::value(
+            SpecProblem::NeedsRows { analysis: "measure (method: dwls)".into() },
+            format!("{path}.method"),
+        ));
     }
     if !rows && e.standard_errors == StandardErrors::Sandwich {
         out.push(Finding::value(

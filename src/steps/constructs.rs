@@ -5,6 +5,8 @@
 //! information or sandwich SEs, or DWLS on the correlations). No numerics of its own beyond
 //! that assembly; the words of the estimation statement (results.json, report) live here.
 
+use std::sync::{Arc, Mutex};
+
 use nalgebra::DMatrix;
 use serde::{Deserialize, Serialize};
 
@@ -14,7 +16,7 @@ use super::load::{ItemKind, LoadOutput};
 use super::sampling::{Moments, Theory, sampling_covariance};
 use crate::spec::types::{Estimation, EstimationMethod, Identification, StandardErrors};
 use construe_stats::StatsError;
-use construe_stats::acov::SamplingCovariance;
+use construe_stats::acov::{Dense, Element, SamplingCovariance};
 use construe_stats::sem::{
     self, Correction, FitOptions, SemFit, SemModel, StatisticCorrection, Subset, fit_dwls, ml_sandwich,
 };
@@ -47,11 +49,39 @@ pub enum Errors {
 }
 
 /// `auto` resolved against the data: the estimator, the SEs, and why.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[derive(Debug, Clone, PartialEq, Eq)]
 pub struct Plan {
     pub method: Method,
     pub errors: Errors,
-    pub reason: &'static str,
+    pub reason: String,
+}
+
+impl Plan {
+    /// The plan a fitted measurement model used (`structure` follows `measure`).
+    pub fn of(record: &EstimationRecord) -> Plan {
+        Plan { method: record.method, errors: record.standard_errors, reason: record.reason.clone() }
+    }
+}
+
+/// The moments' sampling covariance, built once and shared by the refits of one step run over
+/// the same `load` and `covariance` artifacts (sensitivity refits measure and structure for
+/// every reliability; rebuilding the contributions each time dominated its time).
+#[derive(Default)]
+pub struct SharedAcov(Mutex<Vec<Held>>);
+
+/// One sampling covariance held for a plan, over the moments of the items `index` (rows of
+/// the covariance step's matrix).
+struct Held {
+    method: Method,
+    errors: Errors,
+    index: Vec<usize>,
+    acov: Arc<dyn SamplingCovariance>,
+}
+
+impl std::fmt::Debug for SharedAcov {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str("SharedAcov")
+    }
 }
 
 /// Resolves `analyses.measure.estimation` against the item types of the model and whether
@@ -88,12 +118,22 @@ pub fn plan(spec: Estimation, kinds: &[ItemKind], rows: bool) -> Result<Plan, St
         (Method::Ml, StandardErrors::Sandwich, false, false) => {
             return Err(unavailable("sandwich standard errors", "a summary matrix has no respondent rows"));
         }
-        (Method::Ml, StandardErrors::Information, ..) => (Errors::Information, "normal-theory standard errors as the spec asks"),
-        (Method::Ml, _, false, true) => (Errors::Sandwich, "continuous items: ML with standard errors and statistic robust to non-normality"),
-        (Method::Ml, _, true, _) => (Errors::Information, "ML on the response-scale covariances of ordinal items, which have no distribution-free sampling covariance"),
-        (Method::Ml, _, false, false) => (Errors::Information, "a summary matrix carries no fourth moments, so the normal-theory information is the only estimate of the sampling variability"),
+        (Method::Ml, StandardErrors::Information, ..) => {
+            (Errors::Information, "normal-theory standard errors as the spec asks")
+        }
+        (Method::Ml, _, false, true) => {
+            (Errors::Sandwich, "continuous items: ML with standard errors and statistic robust to non-normality")
+        }
+        (Method::Ml, _, true, _) => (
+            Errors::Information,
+            "ML on the response-scale covariances of ordinal items, which have no distribution-free sampling covariance",
+        ),
+        (Method::Ml, _, false, false) => (
+            Errors::Information,
+            "a summary matrix carries no fourth moments, so the normal-theory information is the only estimate of the sampling variability",
+        ),
     };
-    Ok(Plan { method, errors, reason })
+    Ok(Plan { method, errors, reason: reason.to_string() })
 }
 
 /// What the models of one step are fitted to: the covariance step's matrices, the plan, and
@@ -106,27 +146,78 @@ pub struct ModelInput {
     /// The smallest pairwise n.
     pub n: usize,
     pub plan: Plan,
-    pub acov: Option<Box<dyn SamplingCovariance>>,
+    pub acov: Option<Arc<dyn SamplingCovariance>>,
 }
 
 impl ModelInput {
-    /// Plans the estimation for the items the constructs use and builds the sampling covariance
-    /// the plan needs (`steps::sampling`).
+    /// Plans the estimation for `items` (the declared constructs' items) and builds the
+    /// sampling covariance the plan needs (`steps::sampling`).
     pub fn new(
         load: &LoadOutput,
         cov: &CovarianceOutput,
         spec: Estimation,
         items: &[String],
+        shared: Option<&SharedAcov>,
     ) -> Result<ModelInput, StepError> {
         let kinds: Vec<ItemKind> = items.iter().filter_map(|i| cov.kind.get(i).copied()).collect();
-        let rows = load.table.is_some();
-        let plan = plan(spec, &kinds, rows)?;
-        let acov = match (plan.method, plan.errors) {
-            (Method::Dwls, _) => Some(sampling_covariance(load, cov, Moments::Correlations, Theory::DistributionFree)?),
-            (Method::Ml, Errors::Sandwich) => {
-                Some(sampling_covariance(load, cov, Moments::Covariances, Theory::DistributionFree)?)
-            }
+        let plan = plan(spec, &kinds, load.table.is_some())?;
+        Self::with_plan(load, cov, plan, items, shared)
+    }
+
+    /// The input for a given plan (`structure` takes `measure`'s) and the models' `items`. The
+    /// sampling covariance of those items' moments is formed once as a dense block (every fit
+    /// needs that block for its statistic's correction anyway, and a contributions-backed
+    /// covariance recomputes its scores on every request); from `shared` when it already holds
+    /// one covering the items.
+    pub fn with_plan(
+        load: &LoadOutput,
+        cov: &CovarianceOutput,
+        plan: Plan,
+        items: &[String],
+        shared: Option<&SharedAcov>,
+    ) -> Result<ModelInput, StepError> {
+        let moments = match (plan.method, plan.errors) {
+            (Method::Dwls, _) => Some(Moments::Correlations),
+            (Method::Ml, Errors::Sandwich) => Some(Moments::Covariances),
             (Method::Ml, Errors::Information) => None,
+        };
+        let mut index: Vec<usize> = items.iter().filter_map(|i| cov.items.iter().position(|a| a == i)).collect();
+        index.sort_unstable();
+        index.dedup();
+        let build = |m: Moments| -> Result<Arc<dyn SamplingCovariance>, StepError> {
+            let v = sampling_covariance(load, cov, m, Theory::DistributionFree)?;
+            let correlation = m == Moments::Correlations;
+            let elements: Vec<Element> = index
+                .iter()
+                .enumerate()
+                .flat_map(|(a, &j)| index[a + usize::from(correlation)..].iter().map(move |&l| (j, l)))
+                .collect();
+            let stats = |source| StepError::Stats { context: "the moments' sampling covariance".into(), source };
+            let block = v.block(&elements).map_err(stats)?;
+            Ok(Arc::new(Dense::new(v.n_items(), v.n_obs(), correlation, &elements, block).map_err(stats)?))
+        };
+        let acov = match (moments, shared) {
+            (None, _) => None,
+            (Some(m), None) => Some(build(m)?),
+            (Some(m), Some(shared)) => {
+                let mut held = shared.0.lock().unwrap_or_else(std::sync::PoisonError::into_inner);
+                let covers = |h: &Held| {
+                    (h.method, h.errors) == (plan.method, plan.errors) && index.iter().all(|i| h.index.contains(i))
+                };
+                match held.iter().find(|h| covers(h)) {
+                    Some(h) => Some(h.acov.clone()),
+                    None => {
+                        let acov = build(m)?;
+                        held.push(Held {
+                            method: plan.method,
+                            errors: plan.errors,
+                            index: index.clone(),
+                            acov: acov.clone(),
+                        });
+                        Some(acov)
+                    }
+                }
+            }
         };
         Ok(ModelInput {
             items: cov.items.clone(),
@@ -182,7 +273,8 @@ impl EstimationRecord {
                     _ => "Pearson",
                 })
                 .collect();
-            let list: Vec<&str> = ["polychoric", "polyserial", "Pearson"].into_iter().filter(|m| methods.contains(m)).collect();
+            let list: Vec<&str> =
+                ["polychoric", "polyserial", "Pearson"].into_iter().filter(|m| methods.contains(m)).collect();
             let joined = match list.as_slice() {
                 [] => "the".to_string(),
                 [one] => (*one).to_string(),
@@ -195,7 +287,9 @@ impl EstimationRecord {
         let (estimator, errors) = match (plan.method, plan.errors) {
             (Method::Dwls, _) => ("diagonally weighted least squares", "robust (sandwich)"),
             (Method::Ml, Errors::Sandwich) => ("maximum likelihood", "robust (sandwich, distribution-free)"),
-            (Method::Ml, Errors::Information) => ("maximum likelihood", "from the expected information (normal theory)"),
+            (Method::Ml, Errors::Information) => {
+                ("maximum likelihood", "from the expected information (normal theory)")
+            }
         };
         let test = match statistic {
             StatisticCorrection::ScaledShifted => {
@@ -216,7 +310,7 @@ impl EstimationRecord {
             standard_errors: plan.errors,
             statistic,
             n,
-            reason: plan.reason.to_string(),
+            reason: plan.reason.clone(),
             correction,
             statement,
         }

@@ -11,7 +11,9 @@ use nalgebra::DMatrix;
 use serde::{Deserialize, Serialize};
 use serde_json::{Value, json};
 
-use super::constructs::{EstimationRecord, ModelInput, fit_constructs};
+use std::sync::Arc;
+
+use super::constructs::{EstimationRecord, ModelInput, SharedAcov, fit_constructs};
 use super::{Artifact, Inputs, Step, StepError, StepKind};
 use crate::spec::SpecFile;
 use crate::spec::types::{Identification, MeasureSpec};
@@ -107,6 +109,8 @@ pub struct MeasureStep {
     params: MeasureSpec,
     declared: Vec<ConstructModel>,
     purified: bool,
+    /// The moments' sampling covariance shared by sensitivity's refits (never in the key).
+    shared: Option<Arc<SharedAcov>>,
 }
 
 impl MeasureStep {
@@ -117,7 +121,7 @@ impl MeasureStep {
             .iter()
             .map(|(n, c)| ConstructModel { name: n.clone(), items: c.items.clone(), reliability: c.reliability })
             .collect();
-        MeasureStep { params: params.clone(), declared, purified: file.spec.analyses.purify.is_some() }
+        MeasureStep { params: params.clone(), declared, purified: file.spec.analyses.purify.is_some(), shared: None }
     }
 }
 
@@ -129,6 +133,12 @@ impl MeasureStep {
             c.reliability = Some(reliability);
         }
         step
+    }
+
+    /// The same step drawing the moments' sampling covariance from `shared` (refits over the
+    /// same `load` and `covariance`).
+    pub fn sharing(&self, shared: Arc<SharedAcov>) -> MeasureStep {
+        MeasureStep { shared: Some(shared), ..self.clone() }
     }
 }
 
@@ -175,7 +185,8 @@ impl Step for MeasureStep {
         let constructs = self.constructs(kept);
         // One plan for the purified and the declared model: from the declared items.
         let declared_items: Vec<String> = self.declared.iter().flat_map(|c| c.items.iter().cloned()).collect();
-        let input = ModelInput::new(inputs.load()?, cov, self.params.estimation, &declared_items)?;
+        let input =
+            ModelInput::new(inputs.load()?, cov, self.params.estimation, &declared_items, self.shared.as_deref())?;
         let n = input.n;
         let (fit, observed, correction) =
             fit_constructs(&constructs, &input, self.params.identification, &[], "the measurement model")?;

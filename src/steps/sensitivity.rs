@@ -13,6 +13,9 @@ use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 use serde_json::{Value, json};
 
+use std::sync::Arc;
+
+use super::constructs::SharedAcov;
 use super::measure::MeasureStep;
 use super::structure::{StructureOutput, StructureStep};
 use super::{Artifact, Inputs, Step, StepError, StepKind};
@@ -165,9 +168,10 @@ impl SensitivityStep {
         inputs: &Inputs<'_>,
         reliabilities: &[(String, f64)],
         alpha: Option<f64>,
+        shared: &Arc<SharedAcov>,
     ) -> Result<StructureOutput, StepError> {
-        let mut measure = self.measure.clone();
-        let mut structure = self.structure.clone();
+        let mut measure = self.measure.sharing(shared.clone());
+        let mut structure = self.structure.sharing(shared.clone());
         for (c, r) in reliabilities {
             measure = measure.with_reliability(c, *r);
             structure = structure.with_reliability(c, *r);
@@ -246,6 +250,8 @@ impl Step for SensitivityStep {
             _ => return Err(StepError::MissingInput { step: StepKind::Sensitivity, needs: StepKind::Structure }),
         };
         let baseline = statements(&base);
+        // Every refit reads the same `load` and `covariance`: one sampling covariance for all.
+        let shared = Arc::new(SharedAcov::default());
         let mut failed = 0;
         let failures = std::sync::Mutex::new(Vec::<String>::new());
         let note = |label: String, r: Result<StructureOutput, StepError>| -> Option<StructureOutput> {
@@ -275,7 +281,9 @@ impl Step for SensitivityStep {
             grid.dedup();
             let fits: Vec<Option<StructureOutput>> = grid
                 .par_iter()
-                .map(|&r| note(format!("{construct} = {r}"), self.refit(inputs, &[(construct.clone(), r)], None)))
+                .map(|&r| {
+                    note(format!("{construct} = {r}"), self.refit(inputs, &[(construct.clone(), r)], None, &shared))
+                })
                 .collect();
             failed += fits.iter().filter(|f| f.is_none()).count();
             let verdicts: Vec<Option<Vec<Statement>>> = fits.iter().map(|f| f.as_ref().map(statements)).collect();
@@ -319,7 +327,9 @@ impl Step for SensitivityStep {
                 .params
                 .alpha
                 .par_iter()
-                .map(|&a| note(format!("alpha = {a}"), self.refit(inputs, &[], Some(a))).map(|s| statements(&s)))
+                .map(|&a| {
+                    note(format!("alpha = {a}"), self.refit(inputs, &[], Some(a), &shared)).map(|s| statements(&s))
+                })
                 .collect();
             failed += fits.iter().filter(|f| f.is_none()).count();
             for c in conclusions.iter_mut() {
@@ -356,7 +366,7 @@ impl Step for SensitivityStep {
                             d + 1,
                             rs.iter().map(|(c, r)| format!("{c} = {r:.3}")).collect::<Vec<_>>().join(", ")
                         ),
-                        self.refit(inputs, &rs, None),
+                        self.refit(inputs, &rs, None, &shared),
                     )
                     .map(|s| statements(&s))
                 })

@@ -7,10 +7,12 @@ use nalgebra::DMatrix;
 use serde::{Deserialize, Serialize};
 use serde_json::{Value, json};
 
-use super::constructs::{EstimationRecord, ModelInput, fit_constructs};
+use std::sync::Arc;
+
+use super::constructs::{EstimationRecord, ModelInput, Plan, SharedAcov, fit_constructs};
 use super::{Artifact, Inputs, Step, StepError, StepKind};
 use crate::spec::SpecFile;
-use crate::spec::types::{CiTest as CiTestKind, Estimation, Knowledge as KnowledgeSpec, StructureSpec};
+use crate::spec::types::{CiTest as CiTestKind, Knowledge as KnowledgeSpec, StructureSpec};
 use construe_stats::bvn::Z_975;
 use construe_stats::search::{
     CiTest, ColliderRule, EdgeKind, FisherZ, Knowledge, KnowledgeError, PcOptions, Reason, WaldPartial, enumerate_dags,
@@ -89,15 +91,14 @@ pub struct StructureStep {
     params: StructureSpec,
     knowledge: KnowledgeSpec,
     reliabilities: Vec<(String, Option<f64>)>,
-    /// The measurement model's estimation choice, which the structural fits follow.
-    estimation: Estimation,
+    /// The moments' sampling covariance shared by sensitivity's refits (never in the key).
+    shared: Option<Arc<SharedAcov>>,
 }
 
 impl StructureStep {
     pub fn from_spec(file: &SpecFile, params: &StructureSpec) -> StructureStep {
         let reliabilities = file.spec.constructs.iter().map(|(n, c)| (n.clone(), c.reliability)).collect();
-        let estimation = file.spec.analyses.measure.as_ref().map(|m| m.estimation).unwrap_or_default();
-        StructureStep { params: params.clone(), knowledge: file.spec.knowledge.clone(), reliabilities, estimation }
+        StructureStep { params: params.clone(), knowledge: file.spec.knowledge.clone(), reliabilities, shared: None }
     }
 
     /// The same step with `construct`'s reliability replaced (sensitivity).
@@ -109,6 +110,11 @@ impl StructureStep {
             }
         }
         step
+    }
+
+    /// The same step drawing the moments' sampling covariance from `shared`.
+    pub fn sharing(&self, shared: Arc<SharedAcov>) -> StructureStep {
+        StructureStep { shared: Some(shared), ..self.clone() }
     }
 
     /// The same step with another significance level (sensitivity to alpha).
@@ -167,7 +173,7 @@ impl Step for StructureStep {
     }
 
     fn params(&self) -> Value {
-        json!({"alpha": self.params.alpha, "test": self.params.test, "knowledge": self.knowledge, "reliabilities": self.reliabilities, "estimation": self.estimation})
+        json!({"alpha": self.params.alpha, "test": self.params.test, "knowledge": self.knowledge, "reliabilities": self.reliabilities})
     }
 
     fn inputs(&self) -> Vec<StepKind> {
@@ -219,8 +225,10 @@ impl Step for StructureStep {
                 (n.clone(), items.clone(), self.reliabilities.iter().find(|(c, _)| c == n).and_then(|(_, r)| *r))
             })
             .collect();
+        // The structural fits follow the measurement model's estimator (its key covers the choice).
         let items: Vec<String> = constructs.iter().flat_map(|(_, items, _)| items.iter().cloned()).collect();
-        let input = ModelInput::new(inputs.load()?, cov, self.estimation, &items)?;
+        let plan = Plan::of(&measure.estimation);
+        let input = ModelInput::with_plan(inputs.load()?, cov, plan, &items, self.shared.as_deref())?;
         let mut estimation = None;
         let mut members = Vec::new();
         for dag in &class.dags {
