@@ -94,7 +94,9 @@ fn transit_demo_recovers_the_planted_model() {
         assert_eq!(e["standard_errors"], "sandwich");
         assert_eq!(e["statistic"], "scaled_shifted");
         let statement = e["statement"].as_str().unwrap();
-        assert!(statement.contains("diagonally weighted least squares on polychoric, polyserial and Pearson correlations"));
+        assert!(
+            statement.contains("diagonally weighted least squares on polychoric, polyserial and Pearson correlations")
+        );
         assert!(statement.contains("standard errors robust (sandwich)"));
         assert!(case.read("reports/transit-rider-panel/v1/report.md").contains("Asparouhov"));
     }

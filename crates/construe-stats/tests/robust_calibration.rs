@@ -23,8 +23,8 @@ use rand_distr::{ChiSquared, Distribution, StandardNormal};
 use construe_stats::acov::{Contributions, Dense, SamplingCovariance, adf_covariances, all_elements};
 use construe_stats::mixed::{Column, mixed_correlation};
 use construe_stats::polychoric::OrdinalFit;
-use construe_stats::sem::{FitOptions, Identification, Matrix, RobustFit, SemModel, fit_dwls, ml_sandwich};
 use construe_stats::search::{CiTest, WaldPartial};
+use construe_stats::sem::{FitOptions, Identification, Matrix, RobustFit, SemModel, fit_dwls, ml_sandwich};
 use construe_stats::testkit;
 
 const LOADINGS: [f64; 9] = [0.8, 0.7, 0.6, 0.75, 0.65, 0.55, 0.8, 0.6, 0.7];
@@ -172,7 +172,17 @@ fn replicate(cell: Cell, n: usize, seed: u64, cfa: &SemModel, sem: &SemModel, tr
     let moments = measured.fit.latent_moments();
     let wald = WaldPartial::new(moments.covariance.clone(), moments.covariance_acov.clone()).unwrap();
     out.false_edge = wald.test(1, 2, &[0]).unwrap().p < 0.05;
-    out.found_true = [(0, 1, 2), (0, 2, 1)].iter().filter(|&&(a, b, c)| wald.test(a, b, &[c]).unwrap().p < 0.05).count();
+    out.found_true =
+        [(0, 1, 2), (0, 2, 1)].iter().filter(|&&(a, b, c)| wald.test(a, b, &[c]).unwrap().p < 0.05).count();
+    if out.found_true < 2 {
+        let tests: Vec<_> = [(0, 1, 2), (0, 2, 1)].iter().map(|&(a, b, c)| wald.test(a, b, &[c]).unwrap()).collect();
+        println!(
+            "seed {seed}: a true dependence missed: {tests:?}; converged {}, {} Heywood cases, latent correlation {:?}",
+            measured.fit.converged,
+            measured.fit.heywood.len(),
+            moments.correlation.as_slice()
+        );
+    }
     let structural = fit(cell, sem, &x);
     for e in &structural.fit.parameters {
         let Some(t) = e.free else { continue };
@@ -221,11 +231,16 @@ fn check_short(rates: &Rates) {
     assert!(rates.power == 1.0, "{rates:?}");
 }
 
+// Power: the true dependences (partial correlations 0.53 and 0.42) are found in every
+// replicate except, for binary 80/20 items, 2 of 2,000 tests (seeds 60204, 60781: the sample's
+// latent Z - Y correlation came out 0.30 and 0.41 against 0.5, and the partial given X at 1.2
+// and 1.9 robust SEs). A normal-theory SE 10-45% too small (issue 15) would call those
+// significant; the correct SE does not, so the long bound is 0.99, not 1.
 fn check_long(rates: &Rates) {
     assert!((0.03..=0.08).contains(&rates.reject_cfa), "{rates:?}");
     assert!(rates.coverage >= 0.93, "{rates:?}");
     assert!((0.03..=0.07).contains(&rates.false_edge), "{rates:?}");
-    assert!(rates.power == 1.0, "{rates:?}");
+    assert!(rates.power >= 0.99, "{rates:?}");
 }
 
 #[test]
