@@ -11,7 +11,7 @@ use nalgebra::DMatrix;
 use serde::{Deserialize, Serialize};
 
 use super::StepError;
-use super::covariance::CovarianceOutput;
+use super::covariance::{CovarianceOutput, PairMethod};
 use super::load::{ItemKind, LoadOutput};
 use super::sampling::{Moments, Theory, sampling_covariance};
 use crate::spec::types::{Estimation, EstimationMethod, Identification, StandardErrors};
@@ -261,15 +261,15 @@ fn grouped(n: usize) -> String {
 
 impl EstimationRecord {
     /// The record of a fit of `what` ("measurement model", "structural model").
-    pub fn new(what: &str, plan: &Plan, cov: &CovarianceOutput, n: usize, correction: Option<Correction>) -> Self {
+    /// `methods`: the estimator of each item pair of the covariance step.
+    pub fn new(what: &str, plan: &Plan, methods: &[PairMethod], n: usize, correction: Option<Correction>) -> Self {
         let statistic = correction.as_ref().map_or(StatisticCorrection::None, |c| c.kind);
         let moments = if plan.method == Method::Dwls {
-            let methods: std::collections::BTreeSet<&str> = cov
-                .method
-                .values()
+            let methods: std::collections::BTreeSet<&str> = methods
+                .iter()
                 .map(|m| match m {
-                    super::covariance::PairMethod::Polychoric => "polychoric",
-                    super::covariance::PairMethod::Polyserial => "polyserial",
+                    PairMethod::Polychoric => "polychoric",
+                    PairMethod::Polyserial => "polyserial",
                     _ => "Pearson",
                 })
                 .collect();
@@ -315,6 +315,11 @@ impl EstimationRecord {
             statement,
         }
     }
+}
+
+/// The estimator of each item pair of the covariance step (for the statement's words).
+pub fn pair_methods(cov: &CovarianceOutput) -> Vec<PairMethod> {
+    cov.method.values().copied().collect()
 }
 
 fn capitalised(s: &str) -> String {
@@ -434,6 +439,48 @@ mod tests {
         let dwls = Estimation { method: EstimationMethod::Dwls, standard_errors: StandardErrors::Auto };
         assert_eq!(plan(dwls, &[Continuous], true).unwrap().method, Method::Dwls);
         assert!(plan(dwls, &[Continuous], false).is_err());
+    }
+
+    // The sentence a reviewer quotes names the estimator, the moments, n, the SEs and the
+    // statistic's correction with its source.
+    #[test]
+    fn statements_name_estimator_moments_n_and_correction() {
+        use ItemKind::{Continuous, Ordinal};
+        let dwls = plan(Estimation::default(), &[Ordinal, Continuous], true).unwrap();
+        let correction = Correction {
+            kind: StatisticCorrection::ScaledShifted,
+            naive: 10.0,
+            trace: 8.0,
+            trace_squared: Some(9.0),
+            scale: 1.0,
+            shift: 0.0,
+            baseline_naive: 100.0,
+            baseline_trace: 10.0,
+        };
+        let r = EstimationRecord::new(
+            "measurement model",
+            &dwls,
+            &[PairMethod::Polychoric, PairMethod::Polyserial],
+            1184,
+            Some(correction),
+        );
+        assert_eq!(
+            r.statement,
+            "Measurement model estimated by diagonally weighted least squares on polychoric and polyserial \
+             correlations (n = 1,184 respondents); standard errors robust (sandwich); chi-square \
+             mean-and-variance adjusted (scaled and shifted, Asparouhov & Muthén 2010); RMSEA, CFI and TLI \
+             from the adjusted statistic (Brosseau-Liard, Savalei & Li 2012; Brosseau-Liard & Savalei 2014; \
+             Savalei 2018)."
+        );
+        let ml = plan(Estimation::default(), &[Continuous], false).unwrap();
+        let r = EstimationRecord::new("structural model", &ml, &[PairMethod::Given], 305, None);
+        assert_eq!(
+            r.statement,
+            "Structural model estimated by maximum likelihood on the item covariances (n = 305 respondents); \
+             standard errors from the expected information (normal theory); chi-square the normal-theory \
+             likelihood ratio; RMSEA, CFI and TLI from it."
+        );
+        assert_eq!(r.statistic, StatisticCorrection::None);
     }
 
     #[test]

@@ -13,7 +13,7 @@ use serde_json::{Value, json};
 
 use std::sync::Arc;
 
-use super::constructs::{EstimationRecord, ModelInput, SharedAcov, fit_constructs};
+use super::constructs::{EstimationRecord, ModelInput, SharedAcov, fit_constructs, pair_methods};
 use super::{Artifact, Inputs, Step, StepError, StepKind};
 use crate::spec::SpecFile;
 use crate::spec::types::{Identification, MeasureSpec};
@@ -198,7 +198,7 @@ impl Step for MeasureStep {
         } else {
             None
         };
-        let estimation = EstimationRecord::new("measurement model", &input.plan, cov, n, correction);
+        let estimation = EstimationRecord::new("measurement model", &input.plan, &pair_methods(cov), n, correction);
         Ok(Artifact::Measure(Box::new(summarise(
             &fit,
             &constructs,

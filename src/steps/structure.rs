@@ -9,7 +9,7 @@ use serde_json::{Value, json};
 
 use std::sync::Arc;
 
-use super::constructs::{EstimationRecord, ModelInput, Plan, SharedAcov, fit_constructs};
+use super::constructs::{EstimationRecord, ModelInput, Plan, SharedAcov, fit_constructs, pair_methods};
 use super::{Artifact, Inputs, Step, StepError, StepKind};
 use crate::spec::SpecFile;
 use crate::spec::types::{CiTest as CiTestKind, Knowledge as KnowledgeSpec, StructureSpec};
@@ -237,7 +237,13 @@ impl Step for StructureStep {
             let (fit, _, correction) =
                 fit_constructs(&constructs, &input, measure.identification, &paths, "the structural model")?;
             if estimation.is_none() {
-                estimation = Some(EstimationRecord::new("structural model", &input.plan, cov, input.n, correction));
+                estimation = Some(EstimationRecord::new(
+                    "structural model",
+                    &input.plan,
+                    &pair_methods(cov),
+                    input.n,
+                    correction,
+                ));
             }
             let z = Z_975;
             let effects = fit
