@@ -19,6 +19,7 @@ use construe_stats::StatsError;
 use construe_stats::acov::{Dense, Element, SamplingCovariance};
 use construe_stats::sem::{
     self, Correction, FitOptions, SemFit, SemModel, StatisticCorrection, Subset, fit_dwls, ml_sandwich,
+    robust::FULL_BLOCK_MAX,
 };
 
 pub fn identification(i: Identification) -> sem::Identification {
@@ -167,8 +168,9 @@ impl ModelInput {
     /// The input for a given plan (`structure` takes `measure`'s) and the models' `items`. The
     /// sampling covariance of those items' moments is formed once as a dense block (every fit
     /// needs that block for its statistic's correction anyway, and a contributions-backed
-    /// covariance recomputes its scores on every request); from `shared` when it already holds
-    /// one covering the items.
+    /// covariance recomputes its scores on every request), except for DWLS above
+    /// `sem::robust::FULL_BLOCK_MAX` correlations, where the fit never asks for the block;
+    /// from `shared` when it already holds one covering the items.
     pub fn with_plan(
         load: &LoadOutput,
         cov: &CovarianceOutput,
@@ -187,6 +189,11 @@ impl ModelInput {
         let build = |m: Moments| -> Result<Arc<dyn SamplingCovariance>, StepError> {
             let v = sampling_covariance(load, cov, m, Theory::DistributionFree)?;
             let correlation = m == Moments::Correlations;
+            if correlation && index.len() * index.len().saturating_sub(1) / 2 > FULL_BLOCK_MAX {
+                // Too many correlations for the full block: the fit asks for V's diagonal
+                // and sandwiches only, computed from the contributions on demand.
+                return Ok(Arc::from(v));
+            }
             let elements: Vec<Element> = index
                 .iter()
                 .enumerate()

@@ -126,6 +126,18 @@ impl SamplingCovariance for Subset<'_> {
     fn sandwich(&self, elements: &[Element], a: &DMatrix<f64>) -> Result<DMatrix<f64>, StatsError> {
         self.inner.sandwich(&self.map(elements)?, a)
     }
+
+    fn rows(&self) -> Option<usize> {
+        self.inner.rows()
+    }
+
+    fn contributions(
+        &self,
+        elements: &[Element],
+        rows: std::ops::Range<usize>,
+    ) -> Result<Option<DMatrix<f64>>, StatsError> {
+        self.inner.contributions(&self.map(elements)?, rows)
+    }
 }
 
 /// Fit indices from a corrected statistic T* = max(a T + b, 0) on `df` (a = 1/c, b = 0 for the
@@ -238,6 +250,50 @@ pub fn fit_dwls(
     v: &dyn SamplingCovariance,
     options: &FitOptions,
 ) -> Result<RobustFit, StatsError> {
+    fit_dwls_with(model, r, v, options, FULL_BLOCK_MAX)
+}
+
+/// Most correlations (k = p(p - 1)/2 of the model's items) for which `fit_dwls` forms the full
+/// k x k block of V to compute tr((UV)^2) and the scaled-and-shifted statistic: 2,556 is 72
+/// items (a 52 MB block; from respondents' contributions n k^2 operations). Above it the fit
+/// uses only V's diagonal and the sandwich, and corrects the statistic by scaling
+/// (`StatisticCorrection::Scaled`, T df / tr(UV): the mean-adjusted form of Satorra & Bentler
+/// 1994 for the DWLS discrepancy), which the report then names.
+pub const FULL_BLOCK_MAX: usize = 2_556;
+
+/// The sampling variances of `elements`: from respondents' contributions in row chunks where
+/// the covariance has rows (V's diagonal without its off-diagonal), else one element at a time.
+pub fn sampling_variances(v: &dyn SamplingCovariance, elements: &[Element]) -> Result<DVector<f64>, StatsError> {
+    let mut out = DVector::zeros(elements.len());
+    if let Some(rows) = v.rows() {
+        let chunk = 4096;
+        let mut start = 0;
+        while start < rows {
+            let end = (start + chunk).min(rows);
+            let Some(c) = v.contributions(elements, start..end)? else { break };
+            for (e, x) in out.iter_mut().enumerate() {
+                *x += c.column(e).norm_squared();
+            }
+            start = end;
+        }
+        if start >= rows {
+            return Ok(out);
+        }
+    }
+    for (e, &el) in elements.iter().enumerate() {
+        out[e] = v.block(&[el])?[(0, 0)];
+    }
+    Ok(out)
+}
+
+/// `fit_dwls` with the full-block limit given (tests use it to exercise both paths).
+pub fn fit_dwls_with(
+    model: &SemModel,
+    r: &DMatrix<f64>,
+    v: &dyn SamplingCovariance,
+    options: &FitOptions,
+    full_block_max: usize,
+) -> Result<RobustFit, StatsError> {
     let p = model.p();
     if r.nrows() != p || r.ncols() != p {
         return Err(StatsError::SizeMismatch {
@@ -262,8 +318,12 @@ pub fn fit_dwls(
         return Err(StatsError::NotIdentified { free: q, moments: k + p });
     }
     let df = k + p - q;
-    let vfull = v.block(&elements)?;
-    let w = DVector::from_fn(k, |e, _| 1.0 / vfull[(e, e)]);
+    // The full block of V only where tr((UV)^2) is affordable (see `FULL_BLOCK_MAX`).
+    let vfull = if k <= full_block_max { Some(v.block(&elements)?) } else { None };
+    let w = match &vfull {
+        Some(b) => DVector::from_fn(k, |e, _| 1.0 / b[(e, e)]),
+        None => sampling_variances(v, &elements)?.map(|x| 1.0 / x),
+    };
     if w.iter().any(|x| !x.is_finite() || *x <= 0.0) {
         return Err(StatsError::Singular { what: "sampling variances of the correlations".into() });
     }
@@ -333,18 +393,30 @@ pub fn fit_dwls(
     let pmat = inverse.view((0, 0), (q, q)).into_owned();
     let middle = v.sandwich(&elements, &wd)?;
     let acov = &pmat * &middle * &pmat;
-    // U V = W V - W Delta P Delta'W V.
-    let wv = DMatrix::from_fn(k, k, |a, b| w[a] * vfull[(a, b)]);
-    let uv = &wv - (&wd * &pmat) * (wd.transpose() * &vfull);
-    let trace = uv.trace();
-    let trace_squared = uv.component_mul(&uv.transpose()).sum();
-    let (scale, shift) = scaled_shifted(df, trace, trace_squared);
+    let (kind, trace, trace_squared, scale, shift) = match &vfull {
+        Some(vfull) => {
+            // U V = W V - W Delta P Delta'W V.
+            let wv = DMatrix::from_fn(k, k, |a, b| w[a] * vfull[(a, b)]);
+            let uv = &wv - (&wd * &pmat) * (wd.transpose() * vfull);
+            let trace = uv.trace();
+            let trace_squared = uv.component_mul(&uv.transpose()).sum();
+            let (scale, shift) = scaled_shifted(df, trace, trace_squared);
+            (StatisticCorrection::ScaledShifted, trace, Some(trace_squared), scale, shift)
+        }
+        None => {
+            // tr(UV) = tr(WV) - tr(P Delta'W V W Delta) with tr(WV) = k (w = 1 / v_ee): the
+            // diagonal of V and the sandwich suffice; the scaled statistic T df / tr(UV).
+            let trace = k as f64 - (&pmat * &middle).trace();
+            let scale = if df == 0 || trace <= 0.0 { 1.0 } else { df as f64 / trace };
+            (StatisticCorrection::Scaled, trace, None, scale, 0.0)
+        }
+    };
     let baseline_naive: f64 = elements.iter().zip(w.iter()).map(|(&(j, l), w)| w * r[(j, l)].powi(2)).sum();
     let correction = Correction {
-        kind: StatisticCorrection::ScaledShifted,
+        kind,
         naive: point.f,
         trace,
-        trace_squared: Some(trace_squared),
+        trace_squared,
         scale,
         shift,
         baseline_naive,

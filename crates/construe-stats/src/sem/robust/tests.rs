@@ -75,6 +75,26 @@ fn dwls_cfa_matches_the_reference() {
     check_fit(&c, &rf);
 }
 
+// Above the full-block limit only V's diagonal and the sandwich are used: the same estimates
+// and robust SEs, and the scaled statistic T df / tr(UV) with the reference's tr(UV).
+#[test]
+fn dwls_without_the_full_block_scales_the_statistic() {
+    let c = case("dwls_cfa");
+    let r = matrix(&c["r"]);
+    let v = dense(&c, 6, true);
+    let model = SemModel::cfa(&[vec![0, 1, 2], vec![3, 4, 5]], 6, Identification::UnitLatentVariance).unwrap();
+    let rf = fit_dwls_with(&model, &r, &v, &FitOptions::default(), 0).unwrap();
+    for i in 0..6 {
+        check_entry(&rf, &c, &format!("x{}", i + 1), Matrix::Lambda, i, i / 3);
+    }
+    assert_eq!(rf.correction.kind, StatisticCorrection::Scaled);
+    close("tr(UV)", rf.correction.trace, c["trace"].as_f64().unwrap());
+    let df = c["fit"]["df"].as_f64().unwrap();
+    close("scaled statistic", rf.fit.indices.chisq, c["naive"].as_f64().unwrap() * df / c["trace"].as_f64().unwrap());
+    close("robust RMSEA", rf.fit.indices.rmsea, c["fit"]["rmsea"].as_f64().unwrap());
+    close("robust CFI", rf.fit.indices.cfi, c["fit"]["cfi"].as_f64().unwrap());
+}
+
 // A structural chain with a single indicator of fixed reliability: the constraint on its
 // loading (Theta_77 = 1 - 0.7 fixed, Sigma_77 = 1) against the reference's explicit
 // elimination lambda_7 = sqrt(0.7 / C_33).
