@@ -14,7 +14,7 @@ use super::StepError;
 use super::covariance::{CovarianceOutput, PairMethod};
 use super::load::{ItemKind, LoadOutput};
 use super::sampling::{Moments, Theory, sampling_covariance};
-use crate::spec::types::{Estimation, EstimationMethod, Identification, StandardErrors};
+use crate::spec::types::{Estimation, EstimationMethod, Identification, OrdinalEstimation, StandardErrors};
 use construe_stats::StatsError;
 use construe_stats::acov::{Dense, Element, SamplingCovariance};
 use construe_stats::sem::{
@@ -92,7 +92,9 @@ impl std::fmt::Debug for SharedAcov {
 /// items' distribution); a summary matrix -> ML with normal-theory SEs (a matrix carries no
 /// fourth moments, so normal theory is the only estimate of the moments' sampling covariance,
 /// and under it the sandwich equals the information).
-pub fn plan(spec: Estimation, kinds: &[ItemKind], rows: bool) -> Result<Plan, StepError> {
+/// `data_ordinal`: some item of the data (in the model or not) is ordinal, so the covariances'
+/// distribution-free sampling covariance (`steps::sampling`) does not exist.
+pub fn plan(spec: Estimation, kinds: &[ItemKind], rows: bool, data_ordinal: bool) -> Result<Plan, StepError> {
     let ordinal = kinds.contains(&ItemKind::Ordinal);
     let unavailable = |what: &'static str, hint: &'static str| StepError::EstimationUnavailable { what, hint };
     let method = match (spec.method, ordinal, rows) {
@@ -122,6 +124,16 @@ pub fn plan(spec: Estimation, kinds: &[ItemKind], rows: bool) -> Result<Plan, St
         (Method::Ml, StandardErrors::Information, ..) => {
             (Errors::Information, "normal-theory standard errors as the spec asks")
         }
+        (Method::Ml, StandardErrors::Sandwich, false, true) if data_ordinal => {
+            return Err(unavailable(
+                "sandwich standard errors for ML when the data hold ordinal items",
+                "use `method: dwls`, or `standard_errors: information`",
+            ));
+        }
+        (Method::Ml, _, false, true) if data_ordinal => (
+            Errors::Information,
+            "ML on continuous items among ordinal ones, whose covariances have no distribution-free sampling covariance",
+        ),
         (Method::Ml, _, false, true) => {
             (Errors::Sandwich, "continuous items: ML with standard errors and statistic robust to non-normality")
         }
@@ -161,7 +173,21 @@ impl ModelInput {
         shared: Option<&SharedAcov>,
     ) -> Result<ModelInput, StepError> {
         let kinds: Vec<ItemKind> = items.iter().filter_map(|i| cov.kind.get(i).copied()).collect();
-        let plan = plan(spec, &kinds, load.table.is_some())?;
+        let data_ordinal = cov.kind.values().any(|k| *k == ItemKind::Ordinal);
+        let mut plan = plan(spec, &kinds, load.table.is_some(), data_ordinal)?;
+        if plan.method == Method::Dwls
+            && spec.method == EstimationMethod::Auto
+            && cov.ordinal == OrdinalEstimation::Full
+        {
+            // The joint ordinal estimator leaves no respondent contributions (`steps::sampling`).
+            plan = Plan {
+                method: Method::Ml,
+                errors: Errors::Information,
+                reason: "ordinal correlations estimated jointly with their thresholds (`ordinal: full`) have no \
+                         sampling covariance here, so normal-theory ML on the response-scale covariances"
+                    .into(),
+            };
+        }
         Self::with_plan(load, cov, plan, items, shared)
     }
 
@@ -416,7 +442,7 @@ mod tests {
             covariance: DMatrix::<f64>::identity(3, 3),
             correlation: DMatrix::<f64>::identity(3, 3),
             n: 100,
-            plan: plan(Estimation::default(), &[ItemKind::Continuous; 3], false).unwrap(),
+            plan: plan(Estimation::default(), &[ItemKind::Continuous; 3], false, false).unwrap(),
             acov: None,
         };
         let missing = vec![("f".to_string(), vec!["a".to_string(), "b".to_string(), "q".to_string()], None)];
@@ -433,19 +459,22 @@ mod tests {
     fn auto_picks_the_estimator_from_the_item_types() {
         use ItemKind::{Continuous, Ordinal};
         let auto = Estimation::default();
-        let p = plan(auto, &[Continuous, Ordinal], true).unwrap();
+        let p = plan(auto, &[Continuous, Ordinal], true, true).unwrap();
         assert_eq!((p.method, p.errors), (Method::Dwls, Errors::Sandwich));
-        let p = plan(auto, &[Continuous, Continuous], true).unwrap();
+        let p = plan(auto, &[Continuous, Continuous], true, false).unwrap();
         assert_eq!((p.method, p.errors), (Method::Ml, Errors::Sandwich));
-        let p = plan(auto, &[Continuous, Continuous], false).unwrap();
+        let p = plan(auto, &[Continuous, Continuous], false, false).unwrap();
         assert_eq!((p.method, p.errors), (Method::Ml, Errors::Information));
         let ml = Estimation { method: EstimationMethod::Ml, standard_errors: StandardErrors::Auto };
-        assert_eq!(plan(ml, &[Ordinal], true).unwrap().errors, Errors::Information);
+        assert_eq!(plan(ml, &[Ordinal], true, true).unwrap().errors, Errors::Information);
         let ml_sandwich = Estimation { standard_errors: StandardErrors::Sandwich, ..ml };
-        assert!(matches!(plan(ml_sandwich, &[Ordinal], true), Err(StepError::EstimationUnavailable { .. })));
+        assert!(matches!(plan(ml_sandwich, &[Ordinal], true, true), Err(StepError::EstimationUnavailable { .. })));
         let dwls = Estimation { method: EstimationMethod::Dwls, standard_errors: StandardErrors::Auto };
-        assert_eq!(plan(dwls, &[Continuous], true).unwrap().method, Method::Dwls);
-        assert!(plan(dwls, &[Continuous], false).is_err());
+        assert_eq!(plan(dwls, &[Continuous], true, false).unwrap().method, Method::Dwls);
+        assert!(plan(dwls, &[Continuous], false, false).is_err());
+        // Continuous model items among ordinal data items: no distribution-free covariances.
+        assert_eq!(plan(auto, &[Continuous, Continuous], true, true).unwrap().errors, Errors::Information);
+        assert!(plan(ml_sandwich, &[Continuous], true, true).is_err());
     }
 
     // The sentence a reviewer quotes names the estimator, the moments, n, the SEs and the
@@ -453,7 +482,7 @@ mod tests {
     #[test]
     fn statements_name_estimator_moments_n_and_correction() {
         use ItemKind::{Continuous, Ordinal};
-        let dwls = plan(Estimation::default(), &[Ordinal, Continuous], true).unwrap();
+        let dwls = plan(Estimation::default(), &[Ordinal, Continuous], true, true).unwrap();
         let correction = Correction {
             kind: StatisticCorrection::ScaledShifted,
             naive: 10.0,
@@ -479,7 +508,7 @@ mod tests {
              from the adjusted statistic (Brosseau-Liard, Savalei & Li 2012; Brosseau-Liard & Savalei 2014; \
              Savalei 2018)."
         );
-        let ml = plan(Estimation::default(), &[Continuous], false).unwrap();
+        let ml = plan(Estimation::default(), &[Continuous], false, false).unwrap();
         let r = EstimationRecord::new("structural model", &ml, &[PairMethod::Given], 305, None);
         assert_eq!(
             r.statement,
