@@ -334,3 +334,17 @@ fn every_type_error_is_reported() {
         .stderr_contains("at spec.yaml:11:")
         .stderr_contains("2 errors and 0 warnings");
 }
+
+#[test]
+fn estimation_choices_without_meaning_are_positioned() {
+    let spec = SMALL_SPEC.to_string() + "  measure: {estimation: {method: dwls, standard_errors: information}}\n";
+    with_spec(&spec).run(["check", "spec.yaml"]).failure(1).stderr_contains(
+        "error: `standard_errors: information` has no meaning for `method: dwls`
+  at spec.yaml:12:57
+  12 |   measure: {estimation: {method: dwls, standard_errors: information}}
+     |                                                         ^^^^^^^^^^^
+  hint: weighted least squares has no information matrix of its own; use `standard_errors: sandwich` (or `auto`)",
+    );
+    let spec = SMALL_SPEC.to_string() + "  measure: {estimation: {method: dwls, standard_errors: sandwiches}}\n";
+    with_spec(&spec).run(["check", "spec.yaml"]).failure(1).stderr_contains("sandwiches");
+}

@@ -124,6 +124,21 @@ fn transit_demo_recovers_the_planted_model() {
         .find(|e| e["from"] == "fare_burden" && e["to"] == "intent")
         .unwrap();
     assert!(effect["ci"][1].as_f64().unwrap() < 0.0);
+    // Mostly five-point items: DWLS on the polychoric/polyserial/Pearson correlations with
+    // sandwich SEs and the scaled-and-shifted statistic, said in one sentence (issue 15).
+    for analysis in ["measure", "structure"] {
+        let e = &r[analysis]["estimation"];
+        assert_eq!(e["method"], "dwls", "{analysis}");
+        assert_eq!(e["standard_errors"], "sandwich");
+        assert_eq!(e["statistic"], "scaled_shifted");
+        let statement = e["statement"].as_str().unwrap();
+        assert!(
+            statement.contains("diagonally weighted least squares on polychoric, polyserial and Pearson correlations")
+        );
+        assert!(statement.contains("standard errors robust (sandwich)"));
+        assert!(case.read("reports/transit-rider-panel/v1/report.md").contains("Asparouhov"));
+    }
+    assert!(r["measure"]["estimation"]["statement"].as_str().unwrap().starts_with("Measurement model estimated by"));
 }
 
 /// Bootstrap results do not depend on the thread count (each replicate has its own seeded

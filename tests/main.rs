@@ -10,6 +10,7 @@ mod compact;
 mod coverage;
 mod demo;
 mod diff;
+mod estimation;
 mod faults;
 mod guard;
 mod inputs;

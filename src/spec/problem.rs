@@ -94,6 +94,8 @@ pub enum SpecProblem {
     IdColumnIsItem { column: String },
     #[error("analysis `{analysis}` needs respondent rows, but the data is a summary matrix")]
     NeedsRows { analysis: String },
+    #[error("`standard_errors: information` has no meaning for `method: dwls`")]
+    DwlsInformation,
     #[error("`report.formats` is empty; nothing would be written")]
     NoReportFormats,
     #[error("analysis `{analysis}` needs `{needs}` in the spec")]
@@ -152,6 +154,7 @@ impl SpecProblem {
             }
             NoData => Some("list survey files under `data.waves`, or a published matrix under `data.matrix`".into()),
             NeedsRows { .. } => Some("remove the analysis, or supply the respondent-level waves".into()),
+            DwlsInformation => Some("weighted least squares has no information matrix of its own; use `standard_errors: sandwich` (or `auto`)".into()),
             MissingPrerequisite { .. } => Some("add the analysis it needs under `analyses`".into()),
             ScaleScore { .. } => Some("conditioning on a sum or mean of noisy items does not screen off what they measure; model the construct from its items instead, and drop the score".into()),
             CoarsenedSingleIndicator { .. } => Some("a coarse measure of a construct in the middle of a causal chain cannot screen off what it transmits; add indicators or state a reliability with care".into()),

@@ -16,7 +16,8 @@ pub const ANALYSES: &[&str] = &["covariance", "purify", "discover", "measure", "
 const COVARIANCE: &[&str] = &["missing", "ordinal"];
 const PURIFY: &[&str] = &["test", "alpha", "min_items"];
 const DISCOVER: &[&str] = &["items", "alpha", "test"];
-const MEASURE: &[&str] = &["identification"];
+const MEASURE: &[&str] = &["identification", "estimation"];
+const ESTIMATION: &[&str] = &["method", "standard_errors"];
 const STRUCTURE: &[&str] = &["alpha", "test"];
 const SENSITIVITY: &[&str] = &["reliability", "prior", "draws", "alpha", "seed"];
 const PRIOR: &[&str] = &["beta"];
@@ -56,6 +57,7 @@ fn allowed(path: &str) -> Allowed {
         ["analyses", "purify"] => Only(PURIFY),
         ["analyses", "discover"] => Only(DISCOVER),
         ["analyses", "measure"] => Only(MEASURE),
+        ["analyses", "measure", "estimation"] => Only(ESTIMATION),
         ["analyses", "structure"] => Only(STRUCTURE),
         ["analyses", "sensitivity"] => Only(SENSITIVITY),
         ["analyses", "sensitivity", "reliability" | "prior"] => Any,
@@ -118,7 +120,7 @@ analyses:
   covariance: {missing: pairwise, ordinal: two_step}
   purify: {test: wishart, alpha: 0.01, min_items: 3}
   discover: {items: all, alpha: 0.01, test: delta}
-  measure: {identification: unit_variance}
+  measure: {identification: unit_variance, estimation: {method: auto, standard_errors: auto}}
   structure: {alpha: 0.05, test: wald}
   sensitivity: {reliability: {f: [0.5]}, prior: {f: {beta: [7, 3]}}, draws: 10, alpha: [0.01], seed: 3}
   resample: {replicates: 10, seed: 11}

@@ -388,6 +388,47 @@ pub struct MeasureSpec {
     /// How each construct's scale is set.
     #[serde(default)]
     pub identification: Identification,
+    /// How the measurement (and structural) model is estimated; `structure` follows `measure`.
+    #[serde(default)]
+    pub estimation: Estimation,
+}
+
+/// `analyses.measure.estimation`: the estimator and the kind of standard errors.
+#[derive(Debug, Clone, Copy, Default, Serialize, Deserialize, PartialEq, Eq, JsonSchema)]
+#[serde(deny_unknown_fields)]
+pub struct Estimation {
+    /// The estimator: `auto` (from the item types), `ml` or `dwls`.
+    #[serde(default)]
+    pub method: EstimationMethod,
+    /// The standard errors: `auto`, `information` or `sandwich`.
+    #[serde(default)]
+    pub standard_errors: StandardErrors,
+}
+
+/// The estimator: chosen from the item types (`auto`), or named.
+#[derive(Debug, Clone, Copy, Default, Serialize, Deserialize, PartialEq, Eq, JsonSchema)]
+#[serde(rename_all = "snake_case")]
+pub enum EstimationMethod {
+    /// Any ordinal item: `dwls`; otherwise `ml`.
+    #[default]
+    Auto,
+    /// Maximum likelihood on the covariance matrix.
+    Ml,
+    /// Diagonally weighted least squares on the correlation matrix (needs respondent rows).
+    Dwls,
+}
+
+/// Where the standard errors come from.
+#[derive(Debug, Clone, Copy, Default, Serialize, Deserialize, PartialEq, Eq, JsonSchema)]
+#[serde(rename_all = "snake_case")]
+pub enum StandardErrors {
+    /// `sandwich` whenever respondent rows allow it, else `information`.
+    #[default]
+    Auto,
+    /// The inverse expected information (ML under normality only).
+    Information,
+    /// The robust (sandwich) covariance from the moments' sampling covariance.
+    Sandwich,
 }
 
 /// How each construct's scale is set.

@@ -9,7 +9,10 @@ use std::path::PathBuf;
 use super::diagnostic::suggest;
 use super::positions::{child, element};
 use super::problem::{Finding, SpecProblem};
-use super::types::{Alpha, ItemPool, MIN_ITEMS_FLOOR, OrdinalSpec, Positive, Reliability, Spec, TetradTest};
+use super::types::{
+    Alpha, Estimation, EstimationMethod, ItemPool, MIN_ITEMS_FLOOR, OrdinalSpec, Positive, Reliability, Spec,
+    StandardErrors, TetradTest,
+};
 use crate::data::MatrixProblem;
 
 /// What the caller found when reading a data source's header.
@@ -384,6 +387,9 @@ fn check_analyses(spec: &Spec, available: Option<&Vec<String>>, out: &mut Vec<Fi
             ));
         }
     }
+    if let Some(m) = &a.measure {
+        check_estimation(&m.estimation, rows, out);
+    }
     if let Some(d) = &a.discover {
         alpha("`discover.alpha`", d.alpha, "analyses.discover.alpha", out);
         if d.test == TetradTest::Delta && !rows {
@@ -516,6 +522,27 @@ fn check_analyses(spec: &Spec, available: Option<&Vec<String>>, out: &mut Vec<Fi
 }
 
 /// Pushes a `TooMany` finding at `path` when `value` exceeds `max`; true when it did.
+/// `analyses.measure.estimation`: DWLS has no information-matrix SEs, and DWLS and sandwich
+/// SEs need the moments' sampling covariance, which a summary matrix cannot give.
+fn check_estimation(e: &Estimation, rows: bool, out: &mut Vec<Finding>) {
+    let path = "analyses.measure.estimation";
+    if e.method == EstimationMethod::Dwls && e.standard_errors == StandardErrors::Information {
+        out.push(Finding::value(SpecProblem::DwlsInformation, format!("{path}.standard_errors")));
+    }
+    if !rows && e.method == EstimationMethod::Dwls {
+        out.push(Finding::value(
+            SpecProblem::NeedsRows { analysis: "measure (method: dwls)".into() },
+            format!("{path}.method"),
+        ));
+    }
+    if !rows && e.standard_errors == StandardErrors::Sandwich {
+        out.push(Finding::value(
+            SpecProblem::NeedsRows { analysis: "measure (standard_errors: sandwich)".into() },
+            format!("{path}.standard_errors"),
+        ));
+    }
+}
+
 fn too_many(out: &mut Vec<Finding>, what: &str, value: usize, max: usize, path: impl Into<String>) -> bool {
     if value <= max {
         return false;

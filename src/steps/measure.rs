@@ -1,7 +1,10 @@
 //! `measure`: the maximum-likelihood CFA of the (purified) constructs, with single indicators'
 //! error variances fixed from their stated reliability, fit indices beside the unpurified
-//! model's, and reliability per construct. Central type: `MeasureOutput` (also what the
-//! structure search reads: the latent covariance and its asymptotic covariance).
+//! model's, and reliability per construct. The estimator follows `estimation` (by default
+//! from the item types: DWLS with sandwich SEs for ordinal items, ML with sandwich SEs for
+//! continuous rows, normal-theory ML for a summary matrix; see `constructs::plan`).
+//! Central type: `MeasureOutput` (also what the structure search reads: the latent covariance
+//! and its asymptotic covariance, robust where the SEs are).
 
 use indexmap::IndexMap;
 use nalgebra::DMatrix;
@@ -9,7 +12,9 @@ use schemars::JsonSchema;
 use serde::{Deserialize, Serialize};
 use serde_json::{Value, json};
 
-use super::constructs::fit_constructs;
+use std::sync::Arc;
+
+use super::constructs::{EstimationRecord, ModelInput, SharedAcov, fit_constructs, pair_methods};
 use super::{Artifact, Inputs, Step, StepError, StepKind};
 use crate::spec::SpecFile;
 use crate::spec::types::{Identification, MeasureSpec};
@@ -17,7 +22,9 @@ use construe_stats::reliability::{cronbach_alpha, mcdonald_omega};
 use construe_stats::sem::{FitIndices, Matrix, ParameterKind, SemFit};
 
 /// Bump when the fit changes for the same covariances, purification and parameters.
-pub const VERSION: u32 = 2;
+/// v3: estimation chosen from the item types (DWLS / sandwich SEs, corrected statistics);
+/// reads `load` for the moments' sampling covariance; `estimation` record added.
+pub const VERSION: u32 = 3;
 
 /// A parameter estimate.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
@@ -114,6 +121,8 @@ pub struct MeasureOutput {
     pub reliability: IndexMap<String, Reliability>,
     /// Improper estimates, if any.
     pub heywood: Vec<HeywoodRecord>,
+    /// How the model was estimated, with the one-sentence statement for the report.
+    pub estimation: EstimationRecord,
     /// The declared (unpurified) model's fit, when purification dropped items.
     pub unpurified: Option<UnpurifiedFit>,
 }
@@ -141,6 +150,8 @@ pub struct MeasureStep {
     params: MeasureSpec,
     declared: Vec<ConstructModel>,
     purified: bool,
+    /// The moments' sampling covariance shared by sensitivity's refits (never in the key).
+    shared: Option<Arc<SharedAcov>>,
 }
 
 impl MeasureStep {
@@ -151,7 +162,7 @@ impl MeasureStep {
             .iter()
             .map(|(n, c)| ConstructModel { name: n.clone(), items: c.items.clone(), reliability: c.reliability })
             .collect();
-        MeasureStep { params: params.clone(), declared, purified: file.spec.analyses.purify.is_some() }
+        MeasureStep { params: params.clone(), declared, purified: file.spec.analyses.purify.is_some(), shared: None }
     }
 }
 
@@ -163,6 +174,12 @@ impl MeasureStep {
             c.reliability = Some(reliability);
         }
         step
+    }
+
+    /// The same step drawing the moments' sampling covariance from `shared` (refits over the
+    /// same `load` and `covariance`).
+    pub fn sharing(&self, shared: Arc<SharedAcov>) -> MeasureStep {
+        MeasureStep { shared: Some(shared), ..self.clone() }
     }
 }
 
@@ -192,38 +209,47 @@ impl Step for MeasureStep {
     }
 
     fn params(&self) -> Value {
-        json!({"identification": self.params.identification, "constructs": self.declared})
+        json!({"identification": self.params.identification, "estimation": self.params.estimation, "constructs": self.declared})
     }
 
     fn inputs(&self) -> Vec<StepKind> {
-        if self.purified { vec![StepKind::Covariance, StepKind::Purify] } else { vec![StepKind::Covariance] }
+        if self.purified {
+            vec![StepKind::Load, StepKind::Covariance, StepKind::Purify]
+        } else {
+            vec![StepKind::Load, StepKind::Covariance]
+        }
     }
 
     fn run(&self, inputs: &Inputs<'_>) -> Result<Artifact, StepError> {
         let cov = inputs.covariance()?;
         let kept = if self.purified { Some(inputs.purify()?.kept()) } else { None };
         let constructs = self.constructs(kept);
-        let n = cov.min_n();
-        let s = cov.covariance_matrix();
-        let (fit, observed) =
-            fit_constructs(&constructs, &cov.items, &s, n, self.params.identification, &[], "the measurement model")?;
+        // One plan for the purified and the declared model: from the declared items.
+        let declared_items: Vec<String> = self.declared.iter().flat_map(|c| c.items.iter().cloned()).collect();
+        let input =
+            ModelInput::new(inputs.load()?, cov, self.params.estimation, &declared_items, self.shared.as_deref())?;
+        let n = input.n;
+        let (fit, observed, correction) =
+            fit_constructs(&constructs, &input, self.params.identification, &[], "the measurement model")?;
         let unpurified = if self.purified && constructs.iter().zip(&self.declared).any(|(c, d)| c.1 != d.items) {
             let declared = self.constructs(None);
-            fit_constructs(&declared, &cov.items, &s, n, self.params.identification, &[], "the declared model")
+            fit_constructs(&declared, &input, self.params.identification, &[], "the declared model")
                 .ok()
-                .map(|(f, _)| UnpurifiedFit { converged: f.converged, fit: f.indices.clone() })
+                .map(|(f, _, _)| UnpurifiedFit { converged: f.converged, fit: f.indices.clone() })
         } else {
             None
         };
+        let estimation = EstimationRecord::new("measurement model", &input.plan, &pair_methods(cov), n, correction);
         Ok(Artifact::Measure(Box::new(summarise(
             &fit,
             &constructs,
             &observed,
-            &s,
+            &input.covariance,
             &cov.items,
             n,
             self.params.identification,
             unpurified,
+            estimation,
         ))))
     }
 
@@ -251,6 +277,7 @@ pub fn summarise(
     n: usize,
     ident: Identification,
     unpurified: Option<UnpurifiedFit>,
+    estimation: EstimationRecord,
 ) -> MeasureOutput {
     let names: Vec<String> = constructs.iter().map(|c| c.0.clone()).collect();
     let mut loadings: IndexMap<String, IndexMap<String, Estimate>> =
@@ -320,6 +347,7 @@ pub fn summarise(
         },
         reliability,
         heywood,
+        estimation,
         unpurified,
     }
 }

@@ -86,6 +86,9 @@ pub enum StepError {
     /// A one-item construct with no stated reliability: its error variance cannot be fixed.
     #[error("construct `{construct}` has one item and no reliability")]
     NoReliability { construct: String },
+    /// The estimation the spec asks for cannot be done with these data.
+    #[error("{what} is not available for these data: {hint}")]
+    EstimationUnavailable { what: &'static str, hint: &'static str },
     /// A sampling covariance was asked for under a theory or of moments the data do not
     /// support (`steps::sampling`).
     #[error("{what} is not available: {reason}")]
@@ -98,7 +101,7 @@ pub enum StepError {
 impl StepError {
     /// Whether the user's data (not construe) is at fault: exit code 1 rather than 2.
     pub fn is_input_problem(&self) -> bool {
-        matches!(self, StepError::Data(_))
+        matches!(self, StepError::Data(_) | StepError::EstimationUnavailable { .. })
     }
 }
 

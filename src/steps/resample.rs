@@ -21,7 +21,8 @@ use construe_stats::bootstrap::{percentile_interval, replicate_rng, stratified_r
 use construe_stats::search::EdgeKind;
 
 /// Bump when bootstrap results change for the same inputs and parameters.
-pub const VERSION: u32 = 2;
+/// v3: replicates rerun measure and structure with their robust estimators.
+pub const VERSION: u32 = 3;
 
 /// How often the bootstrap found two constructs adjacent, and in which direction.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]

@@ -14,6 +14,9 @@ use schemars::JsonSchema;
 use serde::{Deserialize, Serialize};
 use serde_json::{Value, json};
 
+use std::sync::Arc;
+
+use super::constructs::SharedAcov;
 use super::measure::MeasureStep;
 use super::structure::{StructureOutput, StructureStep};
 use super::{Artifact, Inputs, Step, StepError, StepKind};
@@ -24,8 +27,8 @@ use construe_stats::search::EdgeKind;
 
 /// Bump when sensitivity results change for the same inputs and parameters.
 /// v4: conclusions stored as typed `Statement`s (the artifact's bytes changed; results.json
-/// did not).
-pub const VERSION: u32 = 4;
+/// did not). v5: refits use the measurement model's estimator (robust SEs, `load` an input).
+pub const VERSION: u32 = 5;
 
 /// A statement about the structure that a refit either repeats or contradicts. Compared as a
 /// value; `Display` gives its words (results.json and the report show those).
@@ -182,9 +185,10 @@ impl SensitivityStep {
         inputs: &Inputs<'_>,
         reliabilities: &[(String, f64)],
         alpha: Option<f64>,
+        shared: &Arc<SharedAcov>,
     ) -> Result<StructureOutput, StepError> {
-        let mut measure = self.measure.clone();
-        let mut structure = self.structure.clone();
+        let mut measure = self.measure.sharing(shared.clone());
+        let mut structure = self.structure.sharing(shared.clone());
         for (c, r) in reliabilities {
             measure = measure.with_reliability(c, *r);
             structure = structure.with_reliability(c, *r);
@@ -248,7 +252,8 @@ impl Step for SensitivityStep {
     }
 
     fn inputs(&self) -> Vec<StepKind> {
-        let mut v = vec![StepKind::Covariance];
+        // `load` for the moments' sampling covariance the refits' robust SEs need.
+        let mut v = vec![StepKind::Load, StepKind::Covariance];
         if self.purified {
             v.push(StepKind::Purify);
         }
@@ -262,6 +267,8 @@ impl Step for SensitivityStep {
             _ => return Err(StepError::MissingInput { step: StepKind::Sensitivity, needs: StepKind::Structure }),
         };
         let baseline = statements(&base);
+        // Every refit reads the same `load` and `covariance`: one sampling covariance for all.
+        let shared = Arc::new(SharedAcov::default());
         let mut failed = 0;
         let failures = std::sync::Mutex::new(Vec::<String>::new());
         let note = |label: String, r: Result<StructureOutput, StepError>| -> Option<StructureOutput> {
@@ -291,7 +298,9 @@ impl Step for SensitivityStep {
             grid.dedup();
             let fits: Vec<Option<StructureOutput>> = grid
                 .par_iter()
-                .map(|&r| note(format!("{construct} = {r}"), self.refit(inputs, &[(construct.clone(), r)], None)))
+                .map(|&r| {
+                    note(format!("{construct} = {r}"), self.refit(inputs, &[(construct.clone(), r)], None, &shared))
+                })
                 .collect();
             failed += fits.iter().filter(|f| f.is_none()).count();
             let verdicts: Vec<Option<Vec<Statement>>> = fits.iter().map(|f| f.as_ref().map(statements)).collect();
@@ -335,7 +344,9 @@ impl Step for SensitivityStep {
                 .params
                 .alpha
                 .par_iter()
-                .map(|&a| note(format!("alpha = {a}"), self.refit(inputs, &[], Some(a))).map(|s| statements(&s)))
+                .map(|&a| {
+                    note(format!("alpha = {a}"), self.refit(inputs, &[], Some(a), &shared)).map(|s| statements(&s))
+                })
                 .collect();
             failed += fits.iter().filter(|f| f.is_none()).count();
             for c in conclusions.iter_mut() {
@@ -372,7 +383,7 @@ impl Step for SensitivityStep {
                             d + 1,
                             rs.iter().map(|(c, r)| format!("{c} = {r:.3}")).collect::<Vec<_>>().join(", ")
                         ),
-                        self.refit(inputs, &rs, None),
+                        self.refit(inputs, &rs, None, &shared),
                     )
                     .map(|s| statements(&s))
                 })

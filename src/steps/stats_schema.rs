@@ -38,6 +38,41 @@ pub enum EdgeKindSchema {
     Directed,
 }
 
+/// How the test statistic was corrected: `none` (the normal-theory likelihood-ratio
+/// statistic), `scaled` (Satorra & Bentler 1994), `scaled_shifted` (mean-and-variance adjusted,
+/// Asparouhov & Muthén 2010).
+#[derive(JsonSchema)]
+#[schemars(rename = "StatisticCorrection", rename_all = "snake_case")]
+#[allow(dead_code)]
+pub enum StatisticCorrectionSchema {
+    None,
+    Scaled,
+    ScaledShifted,
+}
+
+/// The naive statistic and how it became the one the fit indices use.
+#[derive(JsonSchema)]
+#[schemars(rename = "Correction")]
+#[allow(dead_code)]
+pub struct CorrectionSchema {
+    /// Which correction.
+    kind: StatisticCorrectionSchema,
+    /// The uncorrected statistic T.
+    naive: f64,
+    /// tr(U Gamma): the statistic's asymptotic mean under the model.
+    trace: f64,
+    /// tr((U Gamma)^2): half its asymptotic variance (null where not needed).
+    trace_squared: Option<f64>,
+    /// a of corrected = max(a T + b, 0).
+    scale: f64,
+    /// b of corrected = max(a T + b, 0).
+    shift: f64,
+    /// The independence baseline's naive statistic (robust CFI, TLI).
+    baseline_naive: f64,
+    /// tr(U_B Gamma) of the independence baseline.
+    baseline_trace: f64,
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -75,5 +110,27 @@ mod tests {
         let words: Vec<Value> =
             [EdgeKind::Undirected, EdgeKind::Directed].iter().map(|k| serde_json::to_value(k).unwrap()).collect();
         assert_eq!(schema_of::<EdgeKindSchema>()["enum"], Value::Array(words));
+    }
+
+    #[test]
+    fn correction_mirrors_have_the_serialized_fields_and_words() {
+        use construe_stats::sem::robust::{Correction, StatisticCorrection};
+        let kinds = [StatisticCorrection::None, StatisticCorrection::Scaled, StatisticCorrection::ScaledShifted];
+        let words: Vec<Value> = kinds.iter().map(|k| serde_json::to_value(k).unwrap()).collect();
+        assert_eq!(schema_of::<StatisticCorrectionSchema>()["enum"], Value::Array(words));
+        let c = Correction {
+            kind: StatisticCorrection::Scaled,
+            naive: 1.0,
+            trace: 1.0,
+            trace_squared: Some(1.0),
+            scale: 1.0,
+            shift: 0.0,
+            baseline_naive: 1.0,
+            baseline_trace: 1.0,
+        };
+        let written: Vec<String> = serde_json::to_value(&c).unwrap().as_object().unwrap().keys().cloned().collect();
+        let described: Vec<String> =
+            schema_of::<CorrectionSchema>()["properties"].as_object().unwrap().keys().cloned().collect();
+        assert_eq!(written, described);
     }
 }

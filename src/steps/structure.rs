@@ -8,7 +8,9 @@ use schemars::JsonSchema;
 use serde::{Deserialize, Serialize};
 use serde_json::{Value, json};
 
-use super::constructs::fit_constructs;
+use std::sync::Arc;
+
+use super::constructs::{EstimationRecord, ModelInput, Plan, SharedAcov, fit_constructs, pair_methods};
 use super::{Artifact, Inputs, Step, StepError, StepKind};
 use crate::spec::SpecFile;
 use crate::spec::types::{CiTest as CiTestKind, Knowledge as KnowledgeSpec, StructureSpec};
@@ -21,7 +23,9 @@ use construe_stats::sem::{FitIndices, Matrix, ParameterKind};
 
 /// Bump when search or fit results change for the same measurement model and parameters.
 /// v3: edge kinds stored as `EdgeKind` (the artifact's bytes changed; results.json did not).
-pub const VERSION: u32 = 3;
+/// v4: the measurement model's estimator (DWLS / sandwich SEs) for the structural fits; the
+/// Wald tests read measure's robust latent covariance; `estimation` record added.
+pub const VERSION: u32 = 4;
 
 /// Class members fitted at most (the rest are counted, not fitted).
 const MAX_MEMBERS: usize = 8;
@@ -116,6 +120,8 @@ pub struct StructureOutput {
     pub class_size: usize,
     /// Whether every member of the class was enumerated.
     pub class_complete: bool,
+    /// How the structural models were estimated (`None` when the class had no member).
+    pub estimation: Option<EstimationRecord>,
 }
 
 #[derive(Clone)]
@@ -123,12 +129,14 @@ pub struct StructureStep {
     params: StructureSpec,
     knowledge: KnowledgeSpec,
     reliabilities: Vec<(String, Option<f64>)>,
+    /// The moments' sampling covariance shared by sensitivity's refits (never in the key).
+    shared: Option<Arc<SharedAcov>>,
 }
 
 impl StructureStep {
     pub fn from_spec(file: &SpecFile, params: &StructureSpec) -> StructureStep {
         let reliabilities = file.spec.constructs.iter().map(|(n, c)| (n.clone(), c.reliability)).collect();
-        StructureStep { params: params.clone(), knowledge: file.spec.knowledge.clone(), reliabilities }
+        StructureStep { params: params.clone(), knowledge: file.spec.knowledge.clone(), reliabilities, shared: None }
     }
 
     /// The same step with `construct`'s reliability replaced (sensitivity).
@@ -140,6 +148,11 @@ impl StructureStep {
             }
         }
         step
+    }
+
+    /// The same step drawing the moments' sampling covariance from `shared`.
+    pub fn sharing(&self, shared: Arc<SharedAcov>) -> StructureStep {
+        StructureStep { shared: Some(shared), ..self.clone() }
     }
 
     /// The same step with another significance level (sensitivity to alpha).
@@ -202,7 +215,7 @@ impl Step for StructureStep {
     }
 
     fn inputs(&self) -> Vec<StepKind> {
-        vec![StepKind::Covariance, StepKind::Measure]
+        vec![StepKind::Load, StepKind::Covariance, StepKind::Measure]
     }
 
     fn run(&self, inputs: &Inputs<'_>) -> Result<Artifact, StepError> {
@@ -250,20 +263,26 @@ impl Step for StructureStep {
                 (n.clone(), items.clone(), self.reliabilities.iter().find(|(c, _)| c == n).and_then(|(_, r)| *r))
             })
             .collect();
-        let s = cov.covariance_matrix();
+        // The structural fits follow the measurement model's estimator (its key covers the choice).
+        let items: Vec<String> = constructs.iter().flat_map(|(_, items, _)| items.iter().cloned()).collect();
+        let plan = Plan::of(&measure.estimation);
+        let input = ModelInput::with_plan(inputs.load()?, cov, plan, &items, self.shared.as_deref())?;
+        let mut estimation = None;
         let mut members = Vec::new();
         for dag in &class.dags {
             let paths: Vec<(usize, usize)> =
                 dag.edges().iter().filter(|e| e.is_directed()).map(|e| (e.from, e.to)).collect();
-            let (fit, _) = fit_constructs(
-                &constructs,
-                &cov.items,
-                &s,
-                measure.n,
-                measure.identification,
-                &paths,
-                "the structural model",
-            )?;
+            let (fit, _, correction) =
+                fit_constructs(&constructs, &input, measure.identification, &paths, "the structural model")?;
+            if estimation.is_none() {
+                estimation = Some(EstimationRecord::new(
+                    "structural model",
+                    &input.plan,
+                    &pair_methods(cov),
+                    input.n,
+                    correction,
+                ));
+            }
             let z = Z_975;
             let effects = fit
                 .parameters
@@ -308,6 +327,7 @@ impl Step for StructureStep {
             class_size: class.dags.len(),
             class_complete: class.complete,
             members,
+            estimation,
         })))
     }
 

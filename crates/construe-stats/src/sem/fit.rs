@@ -127,7 +127,7 @@ pub struct SemFit {
     pub implied: DMatrix<f64>,
     /// Inadmissible estimates, empty when all are admissible.
     pub heywood: Vec<Heywood>,
-    moments: Implied,
+    pub(super) moments: Implied,
 }
 
 impl SemModel {
@@ -358,7 +358,7 @@ pub fn fit(model: &SemModel, s: &DMatrix<f64>, n: usize, options: &FitOptions) -
 }
 
 /// Free entries plus fixed entries that mean something (non-zero, or a Psi / Theta diagonal).
-fn estimates(
+pub(super) fn estimates(
     model: &SemModel,
     layout: &ParamLayout,
     mm: &ModelMatrices,
@@ -402,7 +402,7 @@ fn estimates(
 /// Inadmissible estimates: free variances <= 0, |standardized loading| > 1, |error
 /// correlation| > 1, and a latent covariance matrix that is not positive definite
 /// (Dillon, Kumar & Mulani 1987 list these as the improper solutions of ML factor analysis).
-fn heywood_cases(parameters: &[ParameterEstimate], imp: &Implied) -> Vec<Heywood> {
+pub(super) fn heywood_cases(parameters: &[ParameterEstimate], imp: &Implied) -> Vec<Heywood> {
     let mut out = Vec::new();
     for e in parameters {
         let entry = Some((e.matrix, e.row, e.col));
