@@ -264,6 +264,16 @@ fn data_cautions(r: &Value, cautions: &mut Vec<String>) {
     if c["smoothed"] == Value::Bool(true) {
         cautions.push("The item correlation matrix was smoothed to be positive definite.".into());
     }
+    // Deletion is valid only when values are missing completely at random.
+    let deletion = c["missing"].as_str().filter(|m| *m != "fiml");
+    if let (Some(m), Some(p)) = (deletion, c["mcar"]["p"].as_f64())
+        && p < 0.05
+    {
+        cautions.push(format!(
+            "Little's test rejects that values are missing completely at random (p {}); {m} deletion can bias every estimate. `covariance: {{missing: fiml}}` is valid when values are missing at random (section 4).",
+            if p < 0.001 { "< 0.001".to_string() } else { format!("= {p:.3}") }
+        ));
+    }
     if r["structure"].is_object() {
         cautions.push("Structural conclusions assume linearity, no unmeasured common causes, faithfulness and pure kept items (section 8); they are exploratory evidence.".into());
     }

@@ -24,8 +24,8 @@ use crate::data::table::Column as DataColumn;
 /// Imputations drawn for ordinal and mixed items.
 pub const IMPUTATIONS: usize = 20;
 /// Gibbs sweeps discarded before the first imputation, and between two.
-pub const BURN_IN: usize = 1_000;
-pub const THIN: usize = 50;
+pub const BURN_IN: usize = 500;
+pub const THIN: usize = 25;
 /// The imputation sampler's seed (fixed: the same data give the same imputations).
 pub const SEED: u64 = 17;
 
