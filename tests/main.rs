@@ -18,5 +18,6 @@ mod report;
 mod robustness;
 mod sensitivity;
 mod simulate;
+mod tetrads;
 mod types;
 mod verify;

@@ -178,11 +178,19 @@ pub struct PurifySpec {
     pub min_items: usize,
 }
 
+/// How `purify` and `discover` test vanishing tetrads of the covariance step's correlation
+/// matrix (the matrix that is fitted).
 #[derive(Debug, Clone, Copy, Default, Serialize, Deserialize, PartialEq, Eq)]
 #[serde(rename_all = "snake_case")]
 pub enum TetradTest {
+    /// `delta` when there are respondents' rows; for a summary matrix, the delta method with
+    /// the normal-theory sampling covariance of the matrix and its n.
     #[default]
+    Auto,
+    /// Normal theory (Wishart 1928): every item must be continuous.
     Wishart,
+    /// The delta method with the distribution-free sampling covariance of the matrix's
+    /// estimates from respondents' contributions (needs rows).
     Delta,
 }
 

@@ -12,6 +12,7 @@ pub mod purify;
 pub mod resample;
 pub mod sensitivity;
 pub mod structure;
+pub mod tetrads;
 
 use std::collections::BTreeMap;
 use std::path::PathBuf;
@@ -86,12 +87,18 @@ pub enum StepError {
     /// Background knowledge names a construct the model does not have.
     #[error("background knowledge names `{construct}`, which is not a construct of the model")]
     UnknownConstruct { construct: String },
+    /// `test: wishart` asked for on data with ordinal items (found by `load`, so not at check).
+    #[error(
+        "`{step}` with `test: wishart` assumes normally distributed answers, but these items are ordinal: {}; drop `test: wishart` (the default, `auto`, tests the polychoric matrix by the delta method with its sampling covariance from the respondents' answers)",
+        .items.join(", ")
+    )]
+    NormalTheoryOnOrdinal { step: StepKind, items: Vec<String> },
 }
 
 impl StepError {
     /// Whether the user's data (not construe) is at fault: exit code 1 rather than 2.
     pub fn is_input_problem(&self) -> bool {
-        matches!(self, StepError::Data(_))
+        matches!(self, StepError::Data(_) | StepError::NormalTheoryOnOrdinal { .. })
     }
 }
 
@@ -171,16 +178,6 @@ impl Artifact {
             Artifact::Structure(a) => serde_json::to_value(a.as_ref()).unwrap_or(Value::Null),
             Artifact::Resample(a) => serde_json::to_value(a.as_ref()).unwrap_or(Value::Null),
             Artifact::Sensitivity(a) => serde_json::to_value(a.as_ref()).unwrap_or(Value::Null),
-        }
-    }
-}
-
-/// The spec's tetrad test as the numerics name it (used by `purify` and `discover`).
-impl From<crate::spec::types::TetradTest> for construe_stats::tetrad::TetradTestKind {
-    fn from(test: crate::spec::types::TetradTest) -> Self {
-        match test {
-            crate::spec::types::TetradTest::Wishart => construe_stats::tetrad::TetradTestKind::Wishart,
-            crate::spec::types::TetradTest::Delta => construe_stats::tetrad::TetradTestKind::Delta,
         }
     }
 }

@@ -7,13 +7,16 @@ use indexmap::IndexMap;
 use serde::{Deserialize, Serialize};
 use serde_json::{Value, json};
 
+use super::tetrads::{TetradMethod, tetrad_tester};
 use super::{Artifact, Inputs, Step, StepError, StepKind};
 use crate::spec::SpecFile;
 use crate::spec::types::{PurifySpec, TetradTest};
-use construe_stats::purify::{PurifyOptions, TetradEvidence, purify};
+use construe_stats::purify::{TetradEvidence, purify_with};
 
 /// Bump when purification results change for the same covariances and parameters.
-pub const VERSION: u32 = 1;
+/// v2: tetrads of the fitted correlation matrix tested with its sampling covariance (`auto`,
+/// the new default, and `delta`); the artifact records which test ran and why.
+pub const VERSION: u32 = 2;
 
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct TetradRecord {
@@ -45,7 +48,10 @@ pub struct ConstructPurity {
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct PurifyOutput {
     pub constructs: IndexMap<String, ConstructPurity>,
+    /// The test the spec asked for (`auto`, `wishart` or `delta`).
     pub test: TetradTest,
+    /// The test that ran, on which matrix, and why.
+    pub method: TetradMethod,
     pub alpha: f64,
     pub min_items: usize,
     pub n: usize,
@@ -109,21 +115,9 @@ impl Step for PurifyStep {
         let index = |name: &String| items.iter().position(|i| i == name).unwrap_or(usize::MAX);
         let groups: Vec<Vec<usize>> =
             self.constructs.iter().map(|(_, list)| list.iter().map(index).collect()).collect();
-        let n = cov.min_n();
-        let data = match self.params.test {
-            TetradTest::Delta => {
-                let table = inputs
-                    .load()?
-                    .table
-                    .as_ref()
-                    .ok_or(StepError::MissingInput { step: StepKind::Purify, needs: StepKind::Load })?;
-                Some(table.complete_rows(&(0..items.len()).collect::<Vec<_>>()))
-            }
-            TetradTest::Wishart => None,
-        };
-        let options =
-            PurifyOptions { test: self.params.test.into(), alpha: self.params.alpha, min_items: self.params.min_items };
-        let result = purify(&cov.correlation_matrix(), n, data.as_ref(), &groups, &options)
+        let (tester, method) = tetrad_tester(StepKind::Purify, inputs.load()?, cov, self.params.test)?;
+        let n = tester.n_obs();
+        let result = purify_with(&tester, &groups, self.params.alpha, self.params.min_items)
             .map_err(|source| StepError::Stats { context: "tetrad purification".into(), source })?;
         let constructs = self
             .constructs
@@ -149,6 +143,7 @@ impl Step for PurifyStep {
         Ok(Artifact::Purify(Box::new(PurifyOutput {
             constructs,
             test: self.params.test,
+            method,
             alpha: self.params.alpha,
             min_items: self.params.min_items,
             n,
