@@ -420,6 +420,18 @@ mod tests {
         assert_impure_dropped(&result);
     }
 
+    // The delta test on a given matrix with its sampling covariance (here Browne's 1984
+    // distribution-free covariance of the sample covariances) finds the same impurities.
+    #[test]
+    fn drops_exactly_the_impure_items_with_a_sampling_covariance() {
+        let (sigma, groups) = model(true);
+        let x = draw_normal(&sigma, 1000, &mut ChaCha8Rng::seed_from_u64(2001));
+        let adf = std::sync::Arc::new(crate::acov::adf_covariances(&x).unwrap());
+        let tester = TetradTester::with_sampling(&sample_cov(&x), adf).unwrap();
+        let result = purify_with(&tester, &groups, 0.01, 3).unwrap();
+        assert_impure_dropped(&result);
+    }
+
     // Under a pure model BH at 0.01 rejects anything with probability at most about 0.01, so
     // with five fixed seeds at least four runs must keep every item.
     #[test]

@@ -141,8 +141,25 @@ enum Source {
     Matrix,
     /// Delta kind: each item's column of complete-case data minus its mean.
     Centred(Vec<Vec<f64>>),
-    /// Sampling kind: the sampling covariance of the matrix's off-diagonal estimates.
-    Sampling(Arc<dyn SamplingCovariance>),
+    /// Sampling kind: the sampling covariance of the matrix's off-diagonal estimates, and for
+    /// up to `DENSE_ITEMS` items that covariance over every off-diagonal element, asked for
+    /// once (a purification or cluster search tests most quads, so every element is used).
+    Sampling { sampling: Arc<dyn SamplingCovariance>, dense: Option<Arc<DMatrix<f64>>> },
+}
+
+/// Up to this many items the Sampling kind asks for the full block of the p (p - 1) / 2
+/// off-diagonal elements once (at most 1,225 elements, 12 MB) instead of one six-element block
+/// per quad; beyond it, blocks are asked for on demand and the full matrix never exists.
+pub const DENSE_ITEMS: usize = 50;
+
+/// Position of element (j, l), j < l, in `off_diagonal(p)`.
+fn off_diagonal_index(p: usize, (j, l): Element) -> usize {
+    j * (2 * p - j - 1) / 2 + (l - j - 1)
+}
+
+/// Every off-diagonal element (j, l), j < l, row-major.
+fn off_diagonal(p: usize) -> Vec<Element> {
+    (0..p).flat_map(|j| (j + 1..p).map(move |l| (j, l))).collect()
 }
 
 impl TetradTester {
@@ -198,6 +215,16 @@ impl TetradTester {
     /// data the smallest pair count; it is used only by `cluster`'s screen of zero
     /// correlations, the variances carry each pair's own n).
     pub fn with_sampling(matrix: &DMatrix<f64>, sampling: Arc<dyn SamplingCovariance>) -> Result<Self, StatsError> {
+        let dense = matrix.nrows() <= DENSE_ITEMS;
+        Self::sampling_tester(matrix, sampling, dense)
+    }
+
+    /// `with_sampling`, with the full off-diagonal block asked for up front (`dense`) or not.
+    fn sampling_tester(
+        matrix: &DMatrix<f64>,
+        sampling: Arc<dyn SamplingCovariance>,
+        dense: bool,
+    ) -> Result<Self, StatsError> {
         check_square(matrix)?;
         check_finite_symmetric(matrix)?;
         if sampling.n_items() != matrix.nrows() {
@@ -209,7 +236,8 @@ impl TetradTester {
         }
         let n_obs = sampling.n_obs();
         check_n(n_obs)?;
-        Ok(Self { kind: TetradTestKind::Sampling, cov: matrix.clone(), n_obs, source: Source::Sampling(sampling) })
+        let dense = if dense { Some(Arc::new(sampling.block(&off_diagonal(matrix.nrows()))?)) } else { None };
+        Ok(Self { kind: TetradTestKind::Sampling, cov: matrix.clone(), n_obs, source: Source::Sampling { sampling, dense } })
     }
 
     /// Builds the tester `kind` asks for: `wishart(cov, n_obs)`, or `delta(data)` (which then
@@ -372,14 +400,22 @@ impl TetradTester {
         let m = tetrads.len();
         let mut omega = DMatrix::zeros(m, m);
         match &self.source {
-            Source::Sampling(sampling) => {
+            Source::Sampling { sampling, dense } => {
                 let mut a = DMatrix::zeros(pairs.len(), m);
                 for (u, g) in grads.iter().enumerate() {
                     for &(e, ge) in g {
                         a[(e, u)] += ge;
                     }
                 }
-                omega = sampling.sandwich(&pairs, &a)?;
+                omega = match dense {
+                    Some(v) => {
+                        let p = self.n_items();
+                        let at: Vec<usize> = pairs.iter().map(|&e| off_diagonal_index(p, e)).collect();
+                        let block = DMatrix::from_fn(at.len(), at.len(), |r, c| v[(at[r], at[c])]);
+                        a.transpose() * block * &a
+                    }
+                    None => sampling.sandwich(&pairs, &a)?,
+                };
             }
             Source::Matrix => {
                 let nu = (self.n_obs - 1) as f64;
@@ -442,7 +478,20 @@ impl TetradTester {
         match &self.source {
             Source::Matrix => Ok(normal_omega(sub, self.n_obs)),
             Source::Centred(centred) => Ok(self.delta_omega(centred, items, sub)),
-            Source::Sampling(sampling) => sampling_omega(sampling.as_ref(), items, sub),
+            Source::Sampling { sampling, dense } => {
+                let elements: [Element; 6] = PAIRS.map(|(a, b)| {
+                    let (x, y) = (items[a], items[b]);
+                    (x.min(y), x.max(y))
+                });
+                let v = match dense {
+                    Some(v) => {
+                        let at = elements.map(|e| off_diagonal_index(self.n_items(), e));
+                        DMatrix::from_fn(6, 6, |r, c| v[(at[r], at[c])])
+                    }
+                    None => sampling.block(&elements)?,
+                };
+                Ok(sampling_omega(&v, sub))
+            }
         }
     }
 
@@ -485,18 +534,9 @@ impl TetradTester {
 }
 
 /// Delta-method covariance of (t1, t2, t3) from the sampling covariance V of the quad's six
-/// off-diagonal estimates: G V G' (Bollen & Ting 1993 with V for Gamma / N), G the 3 x 6
+/// off-diagonal estimates (in `PAIRS` order): G V G' (Bollen & Ting 1993 with V for Gamma / N), G the 3 x 6
 /// gradient of `gradient`.
-fn sampling_omega(
-    sampling: &dyn SamplingCovariance,
-    items: [usize; 4],
-    sub: &Matrix4<f64>,
-) -> Result<[[f64; 3]; 3], StatsError> {
-    let elements: [Element; 6] = PAIRS.map(|(a, b)| {
-        let (x, y) = (items[a], items[b]);
-        (x.min(y), x.max(y))
-    });
-    let v = sampling.block(&elements)?;
+fn sampling_omega(v: &DMatrix<f64>, sub: &Matrix4<f64>) -> [[f64; 3]; 3] {
     let g = [0, 1, 2].map(|w| gradient(sub, w));
     let mut out = [[0.0; 3]; 3];
     for x in 0..3 {
@@ -514,7 +554,7 @@ fn sampling_omega(
             out[y][x] = acc;
         }
     }
-    Ok(out)
+    out
 }
 
 /// Normal-theory delta-method covariance of (t1, t2, t3): G Gamma G' / (N - 1) with
@@ -831,8 +871,8 @@ mod tests {
     }
 
     // The Sampling kind's per-quad path (six-element blocks) and its joint path (one block over
-    // every pair involved, through `sandwich`) agree, and a mismatched or missing sampling
-    // covariance is an error.
+    // every pair involved, through `sandwich`) agree, so do the full block asked for up front
+    // and blocks asked for on demand; a mismatched or missing sampling covariance is an error.
     #[test]
     fn sampling_kind_quad_and_joint_paths_agree() {
         let mut rng = ChaCha8Rng::seed_from_u64(15);
@@ -849,6 +889,22 @@ mod tests {
                 assert!((j.stat - single[w].stat.powi(2)).abs() < 1e-9 * j.stat.max(1e-12));
             }
         }
+        let on_demand = TetradTester::sampling_tester(&sample_cov(&data), adf.clone(), false).unwrap();
+        for q in [[0, 2, 4, 5], [5, 1, 3, 0]] {
+            let (a, b) = (tester.test_quad(q).unwrap(), on_demand.test_quad(q).unwrap());
+            for w in 0..3 {
+                assert!((a[w].se - b[w].se).abs() < 1e-12 * a[w].se);
+            }
+            let (a, b) = (tester.quad_chi2(q).unwrap(), on_demand.quad_chi2(q).unwrap());
+            assert!((a - b).abs() < 1e-10 * a.max(1e-12));
+        }
+        let many: Vec<Tetrad> = [[0, 1, 2, 3], [1, 2, 4, 5], [0, 3, 4, 5]]
+            .iter()
+            .flat_map(|&items| [0, 2].map(|which| Tetrad { items, which }))
+            .collect();
+        let (a, b) = (tester.joint(&many).unwrap(), on_demand.joint(&many).unwrap());
+        assert_eq!(a.df, b.df);
+        assert!((a.stat - b.stat).abs() < 1e-9 * a.stat);
         assert!(TetradTester::with_sampling(&DMatrix::identity(5, 5), adf).is_err());
         assert!(TetradTester::new(TetradTestKind::Sampling, &sigma, 400, Some(&data)).is_err());
     }
