@@ -45,8 +45,8 @@ fn wishart_on_items_the_data_show_ordinal_fails_at_run() {
 
 #[test]
 fn wishart_runs_on_continuous_items() {
-    let spec = SMALL_SPEC.replace("  id_column: rid\n", "  id_column: rid\n  ordinal: none\n")
-        + "  purify: {test: wishart}\n";
+    let spec =
+        SMALL_SPEC.replace("  id_column: rid\n", "  id_column: rid\n  ordinal: none\n") + "  purify: {test: wishart}\n";
     let case = small(&spec);
     case.run(["run", "spec.yaml"]).success();
     let r = results(&case, "small-panel");
@@ -72,7 +72,12 @@ fn the_default_test_is_the_delta_method_on_the_fitted_matrix_and_says_why() {
     }
     let sentence = "Tetrads tested by the delta method (Bollen &amp; Ting 1993) on the polychoric, polyserial and Pearson correlations with their sampling covariance from the respondents’ answers (distribution-free), because some items are ordinal.";
     let html = case.read("reports/small-panel/v1/report.html");
-    assert!(html.contains(&sentence.replace('’', "'")) || html.contains(sentence) || html.contains(&sentence.replace('’', "&#x27;")), "{html}");
+    assert!(
+        html.contains(&sentence.replace('’', "'"))
+            || html.contains(sentence)
+            || html.contains(&sentence.replace('’', "&#x27;")),
+        "{html}"
+    );
     let md = case.read("reports/small-panel/v1/report.md");
     assert!(md.contains("sampling covariance from the respondents"), "{md}");
 }

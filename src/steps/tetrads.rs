@@ -77,8 +77,13 @@ pub fn tetrad_tester(
             "Tetrads tested by Wishart's (1928) normal-theory variance on the {described} at n = {}, as requested; every item is continuous.",
             tester.n_obs()
         );
-        let method =
-            TetradMethod { test: TetradTestRun::Wishart, theory: SamplingTheory::Normal, matrix: described, reason, sentence };
+        let method = TetradMethod {
+            test: TetradTestRun::Wishart,
+            theory: SamplingTheory::Normal,
+            matrix: described,
+            reason,
+            sentence,
+        };
         return Ok((tester, method));
     }
     let theory = if rows || test == TetradTest::Delta { Theory::DistributionFree } else { Theory::Normal };
@@ -113,7 +118,13 @@ pub fn tetrad_tester(
                 "Tetrads tested by the delta method (Bollen & Ting 1993) on the {described} with the normal-theory sampling covariance of its correlations at n = {}, because {reason} to estimate a distribution-free one.",
                 tester.n_obs()
             );
-            TetradMethod { test: TetradTestRun::Delta, theory: SamplingTheory::Normal, matrix: described, reason, sentence }
+            TetradMethod {
+                test: TetradTestRun::Delta,
+                theory: SamplingTheory::Normal,
+                matrix: described,
+                reason,
+                sentence,
+            }
         }
     };
     Ok((tester, method))

@@ -614,24 +614,24 @@ mod calibration {
                     StandardNormal.sample(rng)
                 }
             };
-            let mut y = vec![vec![0.0; n]; p];
+            let mut y = vec![Vec::with_capacity(n); p];
             let mut z = vec![0.0; k];
-            for r in 0..n {
+            for _ in 0..n {
                 for v in z.iter_mut() {
                     *v = shock(rng);
                 }
                 let shared = shock(rng);
-                for i in 0..p {
-                    let f: f64 = (0..k).map(|a| self.lambda[(i, a)] * (0..k).map(|b| chol[(a, b)] * z[b]).sum::<f64>()).sum();
-                    let mut e_var = psi[i];
-                    let mut e = 0.0;
-                    if let Some((a, b, c)) = self.error_pair {
-                        if i == a || i == b {
-                            e += c.sqrt() * shared;
-                            e_var -= c;
-                        }
+                for (i, column) in y.iter_mut().enumerate() {
+                    let f: f64 =
+                        (0..k).map(|a| self.lambda[(i, a)] * (0..k).map(|b| chol[(a, b)] * z[b]).sum::<f64>()).sum();
+                    let (mut e, mut e_var) = (0.0, psi[i]);
+                    if let Some((a, b, c)) = self.error_pair
+                        && (i == a || i == b)
+                    {
+                        e += c.sqrt() * shared;
+                        e_var -= c;
                     }
-                    y[i][r] = f + e + e_var.sqrt() * shock(rng);
+                    column.push(f + e + e_var.sqrt() * shock(rng));
                 }
             }
             match kind.cuts() {
@@ -695,7 +695,15 @@ mod calibration {
 
     /// Over `reps` replicates: the share dropping at least one pure item, and the share
     /// dropping a planted one (for a correlated-error pair, either member).
-    pub(super) fn rates(factors: usize, plant: Plant, kind: ItemType, n: usize, test: Test, reps: usize, seed: u64) -> (f64, f64) {
+    pub(super) fn rates(
+        factors: usize,
+        plant: Plant,
+        kind: ItemType,
+        n: usize,
+        test: Test,
+        reps: usize,
+        seed: u64,
+    ) -> (f64, f64) {
         let design = Design::new(factors, plant);
         let mut rng = ChaCha8Rng::seed_from_u64(seed);
         let (mut false_drop, mut found) = (0usize, 0usize);
