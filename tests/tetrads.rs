@@ -67,10 +67,10 @@ fn the_default_test_is_the_delta_method_on_the_fitted_matrix_and_says_why() {
         assert_eq!(r[step]["test"], "auto");
         assert_eq!(m["test"], "delta", "{step}");
         assert_eq!(m["theory"], "distribution_free");
-        assert_eq!(m["matrix"], "polychoric, polyserial and Pearson correlations");
+        assert_eq!(m["matrix"], "polychoric and polyserial correlations");
         assert_eq!(m["reason"], "some items are ordinal");
     }
-    let sentence = "Tetrads tested by the delta method (Bollen &amp; Ting 1993) on the polychoric, polyserial and Pearson correlations with their sampling covariance from the respondents’ answers (distribution-free), because some items are ordinal.";
+    let sentence = "Tetrads tested by the delta method (Bollen &amp; Ting 1993) on the polychoric and polyserial correlations with their sampling covariance from the respondents’ answers (distribution-free), because some items are ordinal.";
     let html = case.read("reports/small-panel/v1/report.html");
     assert!(
         html.contains(&sentence.replace('’', "'"))
