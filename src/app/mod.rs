@@ -62,6 +62,9 @@ impl AppError {
             AppError::Pipeline(PipelineError::Internal(_)) => {
                 Some("this is a bug in construe; please report it".into())
             }
+            AppError::Pipeline(PipelineError::Step(StepError::SamplingUnavailable { hint, .. })) => {
+                Some((*hint).to_string())
+            }
             AppError::Simulate(e) => e.hint(),
             _ => None,
         }

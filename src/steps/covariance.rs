@@ -26,7 +26,9 @@ use construe_stats::smoothing::{self, smooth_correlation};
 /// cross-products on shifted data (last-digit differences again). v5: item pairs stored as
 /// typed `ItemPair`s (the artifact's bytes changed; results.json did not). (v6 unchanged by the
 /// compact table of load v4: the ordinal codes are borrowed, the figures are bit-identical.)
-pub const VERSION: u32 = 6;
+/// v7: the artifact records the ordinal estimator, the unsmoothed correlations of a smoothed
+/// matrix and which sampling theory later steps can use (`steps::sampling`).
+pub const VERSION: u32 = 7;
 
 /// Two items of the matrix, `first` before `second` in item order: the key of every per-pair
 /// fact. results.json writes it `"first|second"` (scripts read those keys); the exact artifact
@@ -125,6 +127,15 @@ pub struct CovarianceOutput {
     pub smoothing: Option<SmoothingSummary>,
     /// Pairs whose polychoric or polyserial estimate reached the bound |rho| = 0.9999.
     pub at_bound: Vec<ItemPair>,
+    /// The ordinal estimator the correlations came from.
+    pub ordinal: OrdinalEstimation,
+    /// When the matrix was smoothed: the correlations as estimated, before smoothing (the
+    /// estimates the sampling covariance of `steps::sampling` belongs to).
+    pub unsmoothed: Option<Vec<Vec<f64>>>,
+    /// Which sampling covariance of these moments later tests and fits can use, in words.
+    pub sampling: String,
+    /// A caveat on that sampling covariance, when one applies (a smoothed matrix).
+    pub sampling_note: Option<String>,
 }
 
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -227,32 +238,9 @@ impl CovarianceStep {
         if kinds.iter().all(|k| *k == ItemKind::Continuous) {
             return self.product_moment_estimates(table);
         }
-        // Listwise deletion: the rows where every item is present (`None` for pairwise).
-        let complete: Option<Vec<bool>> = match self.missing {
-            Missing::Pairwise => None,
-            Missing::Listwise => {
-                Some((0..table.rows()).map(|r| table.columns.iter().all(|c| !c.is_missing(r))).collect())
-            }
-        };
-        // One item as numbers, NaN outside the complete rows: borrowed where nothing changes.
-        let masked = |k: usize| -> Cow<'_, [f64]> {
-            match &complete {
-                None => table.columns[k].values(),
-                Some(c) => {
-                    let col = &table.columns[k];
-                    Cow::Owned((0..table.rows()).map(|r| if c[r] { col.get(r) } else { f64::NAN }).collect())
-                }
-            }
-        };
-        let columns: Vec<Column> = (0..p)
-            .map(|k| match (&kinds[k], &load.summary.items[k].categories) {
-                (ItemKind::Ordinal, Some(levels)) => Column::Ordinal {
-                    codes: ordinal_codes(&table.columns[k], levels, complete.as_deref()),
-                    levels: levels.len(),
-                },
-                _ => Column::Continuous(masked(k)),
-            })
-            .collect();
+        let complete = complete_rows(table, self.missing);
+        let masked = |k: usize| masked_values(table, k, complete.as_deref());
+        let columns = estimator_columns(load, table, complete.as_deref());
         let fit = match self.ordinal {
             OrdinalEstimation::TwoStep => OrdinalFit::TwoStep,
             OrdinalEstimation::Full => OrdinalFit::Full,
@@ -309,6 +297,39 @@ impl CovarianceStep {
         }
         Ok(e)
     }
+}
+
+/// Listwise deletion: the rows where every item is present (`None` for pairwise).
+pub(crate) fn complete_rows(table: &Table, missing: Missing) -> Option<Vec<bool>> {
+    match missing {
+        Missing::Pairwise => None,
+        Missing::Listwise => Some((0..table.rows()).map(|r| table.columns.iter().all(|c| !c.is_missing(r))).collect()),
+    }
+}
+
+/// Item `k` as numbers, NaN outside the `complete` rows: borrowed where nothing changes.
+pub(crate) fn masked_values<'a>(table: &'a Table, k: usize, complete: Option<&[bool]>) -> Cow<'a, [f64]> {
+    match complete {
+        None => table.columns[k].values(),
+        Some(c) => {
+            let col = &table.columns[k];
+            Cow::Owned((0..table.rows()).map(|r| if c[r] { col.get(r) } else { f64::NAN }).collect())
+        }
+    }
+}
+
+/// The columns the mixed estimator sees: ordinal items as category positions, the others as
+/// numbers, missing outside the `complete` rows (listwise deletion).
+pub(crate) fn estimator_columns<'a>(load: &LoadOutput, table: &'a Table, complete: Option<&[bool]>) -> Vec<Column<'a>> {
+    let kinds = load.item_kinds();
+    (0..table.items.len())
+        .map(|k| match (&kinds[k], &load.summary.items[k].categories) {
+            (ItemKind::Ordinal, Some(levels)) => {
+                Column::Ordinal { codes: ordinal_codes(&table.columns[k], levels, complete), levels: levels.len() }
+            }
+            _ => Column::Continuous(masked_values(table, k, complete)),
+        })
+        .collect()
 }
 
 /// An ordinal item's codes as positions in `categories` (its observed levels, from `load`),
@@ -444,12 +465,14 @@ impl Step for CovarianceStep {
         };
         let mut definiteness = definiteness(&e.correlation, &items);
         let mut smoothing = None;
+        let mut unsmoothed = None;
         if !definiteness.positive_definite && load.matrix.is_none() {
             let s = smooth_correlation(&e.correlation)
                 .map_err(|source| StepError::Stats { context: "smoothing the correlation matrix".into(), source })?;
             if s.changed {
                 let sd: Vec<f64> = (0..items.len()).map(|k| e.covariance[(k, k)].sqrt()).collect();
                 e.covariance = DMatrix::from_fn(items.len(), items.len(), |a, b| s.matrix[(a, b)] * sd[a] * sd[b]);
+                unsmoothed = Some(to_rows(&e.correlation));
                 e.correlation = s.matrix.clone();
                 smoothing = Some(SmoothingSummary {
                     method: "nearest correlation matrix by alternating projections (Higham 2002)".into(),
@@ -462,8 +485,11 @@ impl Step for CovarianceStep {
                 definiteness.min_eigenvalue = s.min_eigenvalue_before;
             }
         }
+        let kinds = load.item_kinds();
+        let sampling = super::sampling::available(load.matrix.is_some(), &kinds, self.ordinal).to_string();
+        let sampling_note = smoothing.as_ref().map(|_| super::sampling::SMOOTHED_NOTE.to_string());
         Ok(Artifact::Covariance(Box::new(CovarianceOutput {
-            kind: items.iter().cloned().zip(load.item_kinds()).collect(),
+            kind: items.iter().cloned().zip(kinds).collect(),
             items,
             method: e.method,
             correlation: to_rows(&e.correlation),
@@ -476,6 +502,10 @@ impl Step for CovarianceStep {
             merges: e.merges,
             smoothing,
             at_bound: e.at_bound,
+            ordinal: self.ordinal,
+            unsmoothed,
+            sampling,
+            sampling_note,
         })))
     }
 

@@ -10,6 +10,7 @@ pub mod load;
 pub mod measure;
 pub mod purify;
 pub mod resample;
+pub mod sampling;
 pub mod sensitivity;
 pub mod structure;
 pub mod tetrads;
@@ -84,6 +85,10 @@ pub enum StepError {
     /// A one-item construct with no stated reliability: its error variance cannot be fixed.
     #[error("construct `{construct}` has one item and no reliability")]
     NoReliability { construct: String },
+    /// A sampling covariance was asked for under a theory or of moments the data do not
+    /// support (`steps::sampling`).
+    #[error("{what} is not available: {reason}")]
+    SamplingUnavailable { what: &'static str, reason: &'static str, hint: &'static str },
     /// Background knowledge names a construct the model does not have.
     #[error("background knowledge names `{construct}`, which is not a construct of the model")]
     UnknownConstruct { construct: String },
