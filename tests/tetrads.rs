@@ -17,18 +17,18 @@ fn results(case: &Case, slug: &str) -> Value {
 
 #[test]
 fn wishart_on_items_declared_ordinal_fails_at_check() {
-    let spec = SMALL_SPEC.replace("  id_column: rid\n", "  id_column: rid\n  ordinal: [a1, b2, zz]\n")
+    let spec = SMALL_SPEC.replace("  id_column: rid\n", "  id_column: rid\n  ordinal: [a1, b2]\n")
         + "  purify: {test: wishart}\n  discover: {items: [a1, a2, a3, x], test: wishart}\n";
     let out = small(&spec).run(["check", "spec.yaml"]);
     out.failure(1);
     let expected = "error: `purify` with `test: wishart` assumes normally distributed answers, but these items are ordinal: a1, b2
-  at spec.yaml:15:19
-  15 |   purify: {test: wishart}
+  at spec.yaml:13:18
+  13 |   purify: {test: wishart}
      |                  ^^^^^^^
   hint: drop `test: wishart` (the default, `auto`, tests the polychoric matrix by the delta method with its sampling covariance from the respondents' answers)
 ";
     assert!(out.stderr.contains(expected), "{}", out.stderr);
-    out.stderr_contains("error: `discover` with `test: wishart` assumes normally distributed answers, but these items are ordinal: a1\n  at spec.yaml:16:");
+    out.stderr_contains("error: `discover` with `test: wishart` assumes normally distributed answers, but these items are ordinal: a1\n  at spec.yaml:14:44");
 }
 
 #[test]
