@@ -17,7 +17,7 @@ use serde::{Deserialize, Serialize};
 use statrs::distribution::{ChiSquared, ContinuousCDF, Normal};
 
 use super::StatsError;
-use super::acov::{Element, SamplingCovariance};
+use super::acov::{Element, SamplingCovariance, check_element};
 
 /// The six off-diagonal pairs of a quad, as positions 0..4 in the quad's item order.
 const PAIRS: [(usize, usize); 6] = [(0, 1), (0, 2), (0, 3), (1, 2), (1, 3), (2, 3)];
@@ -141,16 +141,40 @@ enum Source {
     Matrix,
     /// Delta kind: each item's column of complete-case data minus its mean.
     Centred(Vec<Vec<f64>>),
-    /// Sampling kind: the sampling covariance of the matrix's off-diagonal estimates, and for
-    /// up to `DENSE_ITEMS` items that covariance over every off-diagonal element, asked for
-    /// once (a purification or cluster search tests most quads, so every element is used).
-    Sampling { sampling: Arc<dyn SamplingCovariance>, dense: Option<Arc<DMatrix<f64>>> },
+    /// Sampling kind: the sampling covariance of the matrix's off-diagonal estimates, and what
+    /// is asked of it once because a purification or cluster search tests most quads.
+    Sampling { sampling: Arc<dyn SamplingCovariance>, cache: Cache },
+}
+
+/// What the Sampling kind holds so that a quad's six-element block is a lookup or 21 dot
+/// products rather than a fresh request (a fresh block rebuilds the six elements'
+/// contributions: about 1 ms at 1,000 rows).
+#[derive(Debug, Clone)]
+enum Cache {
+    /// Nothing: blocks asked for on demand.
+    None,
+    /// The sampling covariance of every off-diagonal element (`off_diagonal` order).
+    Dense(Arc<DMatrix<f64>>),
+    /// Every off-diagonal element's per-respondent contributions (rows x elements).
+    Contributions(Arc<DMatrix<f64>>),
+}
+
+/// Which cache `with_sampling` builds.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum Tier {
+    Dense,
+    Contributions,
+    OnDemand,
 }
 
 /// Up to this many items the Sampling kind asks for the full block of the p (p - 1) / 2
-/// off-diagonal elements once (at most 1,225 elements, 12 MB) instead of one six-element block
-/// per quad; beyond it, blocks are asked for on demand and the full matrix never exists.
+/// off-diagonal elements once (at most 1,225 elements, 12 MB).
 pub const DENSE_ITEMS: usize = 50;
+
+/// Beyond `DENSE_ITEMS`, the contributions of every off-diagonal element are fetched once when
+/// they come from rows and rows x elements stays within this many values (128 MB); beyond
+/// that, blocks are asked for on demand and nothing of size k is held.
+pub const CONTRIBUTION_VALUES: usize = 16_000_000;
 
 /// Position of element (j, l), j < l, in `off_diagonal(p)`.
 fn off_diagonal_index(p: usize, (j, l): Element) -> usize {
@@ -214,16 +238,25 @@ impl TetradTester {
     /// sampling covariance (no diagonal) serves. n is `sampling.n_obs()` (for pairwise-present
     /// data the smallest pair count; it is used only by `cluster`'s screen of zero
     /// correlations, the variances carry each pair's own n).
+    /// What is fetched up front: the full off-diagonal block up to `DENSE_ITEMS` items, else the
+    /// contributions of every off-diagonal element within `CONTRIBUTION_VALUES`, else nothing.
     pub fn with_sampling(matrix: &DMatrix<f64>, sampling: Arc<dyn SamplingCovariance>) -> Result<Self, StatsError> {
-        let dense = matrix.nrows() <= DENSE_ITEMS;
-        Self::sampling_tester(matrix, sampling, dense)
+        let p = matrix.nrows();
+        let k = p * p.saturating_sub(1) / 2;
+        let tier = if p <= DENSE_ITEMS {
+            Tier::Dense
+        } else if sampling.rows().is_some_and(|n| n.saturating_mul(k) <= CONTRIBUTION_VALUES) {
+            Tier::Contributions
+        } else {
+            Tier::OnDemand
+        };
+        Self::sampling_tester(matrix, sampling, tier)
     }
 
-    /// `with_sampling`, with the full off-diagonal block asked for up front (`dense`) or not.
     fn sampling_tester(
         matrix: &DMatrix<f64>,
         sampling: Arc<dyn SamplingCovariance>,
-        dense: bool,
+        tier: Tier,
     ) -> Result<Self, StatsError> {
         check_square(matrix)?;
         check_finite_symmetric(matrix)?;
@@ -236,13 +269,64 @@ impl TetradTester {
         }
         let n_obs = sampling.n_obs();
         check_n(n_obs)?;
-        let dense = if dense { Some(Arc::new(sampling.block(&off_diagonal(matrix.nrows()))?)) } else { None };
+        let elements = off_diagonal(matrix.nrows());
+        let cache = match tier {
+            Tier::Dense => Cache::Dense(Arc::new(sampling.block(&elements)?)),
+            Tier::Contributions => match sampling.rows() {
+                Some(rows) => match sampling.contributions(&elements, 0..rows)? {
+                    Some(c) => Cache::Contributions(Arc::new(c)),
+                    None => Cache::None,
+                },
+                None => Cache::None,
+            },
+            Tier::OnDemand => Cache::None,
+        };
         Ok(Self {
             kind: TetradTestKind::Sampling,
             cov: matrix.clone(),
             n_obs,
-            source: Source::Sampling { sampling, dense },
+            source: Source::Sampling { sampling, cache },
         })
+    }
+
+    /// The sampling covariance of `elements` (off-diagonal) for the Sampling kind, from the
+    /// cache when there is one.
+    fn sampling_block(
+        &self,
+        sampling: &dyn SamplingCovariance,
+        cache: &Cache,
+        elements: &[Element],
+    ) -> Result<DMatrix<f64>, StatsError> {
+        let p = self.n_items();
+        let at = || -> Result<Vec<usize>, StatsError> {
+            elements
+                .iter()
+                .map(|&e| {
+                    check_element(p, true, e)?;
+                    Ok(off_diagonal_index(p, e))
+                })
+                .collect()
+        };
+        match cache {
+            Cache::None => sampling.block(elements),
+            Cache::Dense(v) => {
+                let at = at()?;
+                Ok(DMatrix::from_fn(at.len(), at.len(), |r, c| v[(at[r], at[c])]))
+            }
+            Cache::Contributions(c) => {
+                let at = at()?;
+                let m = at.len();
+                let mut out = DMatrix::zeros(m, m);
+                for x in 0..m {
+                    for y in x..m {
+                        let v = c.column(at[x]).dot(&c.column(at[y]));
+                        out[(x, y)] = v;
+                        out[(y, x)] = v;
+                    }
+                }
+                Ok(out)
+            }
+        }
     }
 
     /// Builds the tester `kind` asks for: `wishart(cov, n_obs)`, or `delta(data)` (which then
@@ -405,21 +489,16 @@ impl TetradTester {
         let m = tetrads.len();
         let mut omega = DMatrix::zeros(m, m);
         match &self.source {
-            Source::Sampling { sampling, dense } => {
+            Source::Sampling { sampling, cache } => {
                 let mut a = DMatrix::zeros(pairs.len(), m);
                 for (u, g) in grads.iter().enumerate() {
                     for &(e, ge) in g {
                         a[(e, u)] += ge;
                     }
                 }
-                omega = match dense {
-                    Some(v) => {
-                        let p = self.n_items();
-                        let at: Vec<usize> = pairs.iter().map(|&e| off_diagonal_index(p, e)).collect();
-                        let block = DMatrix::from_fn(at.len(), at.len(), |r, c| v[(at[r], at[c])]);
-                        a.transpose() * block * &a
-                    }
-                    None => sampling.sandwich(&pairs, &a)?,
+                omega = match cache {
+                    Cache::None => sampling.sandwich(&pairs, &a)?,
+                    _ => a.transpose() * self.sampling_block(sampling.as_ref(), cache, &pairs)? * &a,
                 };
             }
             Source::Matrix => {
@@ -483,18 +562,12 @@ impl TetradTester {
         match &self.source {
             Source::Matrix => Ok(normal_omega(sub, self.n_obs)),
             Source::Centred(centred) => Ok(self.delta_omega(centred, items, sub)),
-            Source::Sampling { sampling, dense } => {
+            Source::Sampling { sampling, cache } => {
                 let elements: [Element; 6] = PAIRS.map(|(a, b)| {
                     let (x, y) = (items[a], items[b]);
                     (x.min(y), x.max(y))
                 });
-                let v = match dense {
-                    Some(v) => {
-                        let at = elements.map(|e| off_diagonal_index(self.n_items(), e));
-                        DMatrix::from_fn(6, 6, |r, c| v[(at[r], at[c])])
-                    }
-                    None => sampling.block(&elements)?,
-                };
+                let v = self.sampling_block(sampling.as_ref(), cache, &elements)?;
                 Ok(sampling_omega(&v, sub))
             }
         }
@@ -876,8 +949,9 @@ mod tests {
     }
 
     // The Sampling kind's per-quad path (six-element blocks) and its joint path (one block over
-    // every pair involved, through `sandwich`) agree, so do the full block asked for up front
-    // and blocks asked for on demand; a mismatched or missing sampling covariance is an error.
+    // every pair involved, through `sandwich`) agree, so do the three ways of holding the
+    // sampling covariance (the full block, every element's contributions, blocks on demand);
+    // a mismatched or missing sampling covariance is an error.
     #[test]
     fn sampling_kind_quad_and_joint_paths_agree() {
         let mut rng = ChaCha8Rng::seed_from_u64(15);
@@ -894,22 +968,32 @@ mod tests {
                 assert!((j.stat - single.stat.powi(2)).abs() < 1e-9 * j.stat.max(1e-12));
             }
         }
-        let on_demand = TetradTester::sampling_tester(&sample_cov(&data), adf.clone(), false).unwrap();
-        for q in [[0, 2, 4, 5], [5, 1, 3, 0]] {
-            let (a, b) = (tester.test_quad(q).unwrap(), on_demand.test_quad(q).unwrap());
-            for w in 0..3 {
-                assert!((a[w].se - b[w].se).abs() < 1e-12 * a[w].se);
-            }
-            let (a, b) = (tester.quad_chi2(q).unwrap(), on_demand.quad_chi2(q).unwrap());
-            assert!((a - b).abs() < 1e-10 * a.max(1e-12));
-        }
+        // Browne's covariances again, from contributions (which have rows): all three caches.
+        let columns: Vec<Vec<f64>> = (0..6).map(|j| data.column(j).iter().copied().collect()).collect();
+        let views: Vec<&[f64]> = columns.iter().map(Vec::as_slice).collect();
+        let rows: Arc<dyn SamplingCovariance> = Arc::new(crate::acov::Contributions::covariances(&views).unwrap());
+        let s = sample_cov(&data);
+        let testers = [Tier::Dense, Tier::Contributions, Tier::OnDemand]
+            .map(|tier| TetradTester::sampling_tester(&s, rows.clone(), tier).unwrap());
+        assert!(matches!(&testers[1].source, Source::Sampling { cache: Cache::Contributions(_), .. }));
         let many: Vec<Tetrad> = [[0, 1, 2, 3], [1, 2, 4, 5], [0, 3, 4, 5]]
             .iter()
             .flat_map(|&items| [0, 2].map(|which| Tetrad { items, which }))
             .collect();
-        let (a, b) = (tester.joint(&many).unwrap(), on_demand.joint(&many).unwrap());
-        assert_eq!(a.df, b.df);
-        assert!((a.stat - b.stat).abs() < 1e-9 * a.stat);
+        let base = testers[0].joint(&many).unwrap();
+        for other in &testers[1..] {
+            for q in [[0, 2, 4, 5], [5, 1, 3, 0]] {
+                let (a, b) = (testers[0].test_quad(q).unwrap(), other.test_quad(q).unwrap());
+                for w in 0..3 {
+                    assert!((a[w].se - b[w].se).abs() < 1e-12 * a[w].se);
+                }
+                let (a, b) = (testers[0].quad_chi2(q).unwrap(), other.quad_chi2(q).unwrap());
+                assert!((a - b).abs() < 1e-10 * a.max(1e-12));
+            }
+            let j = other.joint(&many).unwrap();
+            assert_eq!(j.df, base.df);
+            assert!((j.stat - base.stat).abs() < 1e-9 * base.stat);
+        }
         assert!(TetradTester::with_sampling(&DMatrix::identity(5, 5), adf).is_err());
         assert!(TetradTester::new(TetradTestKind::Sampling, &sigma, 400, Some(&data)).is_err());
     }
