@@ -71,7 +71,7 @@ fn the_default_test_is_the_delta_method_on_the_fitted_matrix_and_says_why() {
         assert_eq!(m["reason"], "some items are ordinal");
     }
     // minijinja escapes the apostrophe in HTML as `&#x27;`.
-    let sentence = "Tetrads tested by the delta method (Bollen &amp; Ting 1993) on the polychoric and polyserial correlations with their sampling covariance from the respondents&#x27; answers (distribution-free), because some items are ordinal.";
+    let sentence = "Tetrads tested by the delta method (Bollen and Ting 1993) on the polychoric and polyserial correlations with their sampling covariance from the respondents&#x27; answers (distribution-free), because some items are ordinal.";
     let html = case.read("reports/small-panel/v1/report.html");
     assert!(html.contains(sentence), "{html}");
     let md = case.read("reports/small-panel/v1/report.md");

@@ -2,7 +2,7 @@
 //! the covariance step's correlation matrix (the matrix that is fitted), and the record of
 //! which test ran and why (`TetradMethod`, shown in the report).
 //!
-//! `auto` (the default) and `delta`: the delta method (Bollen & Ting 1993) on that matrix with
+//! `auto` (the default) and `delta`: the delta method (Bollen and Ting 1993) on that matrix with
 //! the sampling covariance of its correlations, distribution-free from the respondents'
 //! contributions (polychoric, polyserial and Pearson pairs alike, pairwise-present data), the
 //! theory that holds for ordinal and non-normal items. `auto` on a summary matrix (no rows):
@@ -101,7 +101,7 @@ pub fn tetrad_tester(
                 "answers need not be normally distributed".to_string()
             };
             let sentence = format!(
-                "Tetrads tested by the delta method (Bollen & Ting 1993) on the {described} with their sampling covariance from the respondents' answers (distribution-free), {}.",
+                "Tetrads tested by the delta method (Bollen and Ting 1993) on the {described} with their sampling covariance from the respondents' answers (distribution-free), {}.",
                 if test == TetradTest::Delta { "as requested".to_string() } else { format!("because {reason}") }
             );
             TetradMethod {
@@ -115,7 +115,7 @@ pub fn tetrad_tester(
         Theory::Normal => {
             let reason = "the input is a summary matrix, which carries no respondents' answers".to_string();
             let sentence = format!(
-                "Tetrads tested by the delta method (Bollen & Ting 1993) on the {described} with the normal-theory sampling covariance of its correlations at n = {}, because {reason} to estimate a distribution-free one.",
+                "Tetrads tested by the delta method (Bollen and Ting 1993) on the {described} with the normal-theory sampling covariance of its correlations at n = {}, because {reason} to estimate a distribution-free one.",
                 tester.n_obs()
             );
             TetradMethod {
