@@ -110,3 +110,16 @@ analyses:
     let html = case.read("reports/published/v1/report.html");
     assert!(html.contains("normal-theory sampling covariance of its correlations at n = 300"), "{html}");
 }
+
+#[test]
+fn wishart_is_judged_on_the_items_it_tests() {
+    // b1 is ordinal, but discover's pool holds only continuous items: allowed, at check and run.
+    let spec = SMALL_SPEC.replace("  id_column: rid\n", "  id_column: rid\n  ordinal: [b1]\n")
+        + "  discover: {items: [a1, a2, a3, b2, x], test: wishart}\n";
+    let case = small(&spec);
+    case.run(["check", "spec.yaml"]).success();
+    case.run(["run", "spec.yaml"]).success();
+    let r = results(&case, "small-panel");
+    assert_eq!(r["discover"]["method"]["test"], "wishart");
+    assert_eq!(r["discover"]["method"]["matrix"], "Pearson correlations");
+}

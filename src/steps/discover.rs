@@ -81,7 +81,7 @@ impl Step for DiscoverStep {
             ItemPool::Items(list) => list.iter().filter_map(|n| items.iter().position(|i| i == n)).collect(),
         };
         let stats_err = |source| StepError::Stats { context: "cluster discovery".into(), source };
-        let (tester, method) = tetrad_tester(StepKind::Discover, inputs.load()?, cov, self.params.test)?;
+        let (tester, method) = tetrad_tester(StepKind::Discover, inputs.load()?, cov, self.params.test, &pool)?;
         let n = tester.n_obs();
         let found = find_clusters(&tester, &pool, &ClusterOptions { alpha: self.params.alpha, min_size: MIN_CLUSTER })
             .map_err(stats_err)?;

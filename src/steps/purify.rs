@@ -115,7 +115,8 @@ impl Step for PurifyStep {
         let index = |name: &String| items.iter().position(|i| i == name).unwrap_or(usize::MAX);
         let groups: Vec<Vec<usize>> =
             self.constructs.iter().map(|(_, list)| list.iter().map(index).collect()).collect();
-        let (tester, method) = tetrad_tester(StepKind::Purify, inputs.load()?, cov, self.params.test)?;
+        let involved: Vec<usize> = groups.iter().flatten().copied().collect();
+        let (tester, method) = tetrad_tester(StepKind::Purify, inputs.load()?, cov, self.params.test, &involved)?;
         let n = tester.n_obs();
         let result = purify_with(&tester, &groups, self.params.alpha, self.params.min_items)
             .map_err(|source| StepError::Stats { context: "tetrad purification".into(), source })?;

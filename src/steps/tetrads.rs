@@ -55,18 +55,26 @@ pub struct TetradMethod {
 }
 
 /// The tester `test` asks for, on `cov`'s correlation matrix, with the record of what ran.
+/// `involved` (indices into `cov.items`) are the items whose tetrads will be tested: their
+/// types decide whether `wishart` is allowed and what `auto`'s reason says.
 pub fn tetrad_tester(
     step: StepKind,
     load: &LoadOutput,
     cov: &CovarianceOutput,
     test: TetradTest,
+    involved: &[usize],
 ) -> Result<(TetradTester, TetradMethod), StepError> {
     let matrix = cov.correlation_matrix();
     let stats = |source| StepError::Stats { context: "tetrad tests".into(), source };
     let rows = load.table.is_some();
-    let ordinal: Vec<String> =
-        cov.kind.iter().filter(|(_, k)| **k == ItemKind::Ordinal).map(|(i, _)| i.clone()).collect();
-    let described = describe_matrix(cov, rows);
+    let ordinal: Vec<String> = cov
+        .items
+        .iter()
+        .enumerate()
+        .filter(|(i, name)| involved.contains(i) && cov.kind.get(*name) == Some(&ItemKind::Ordinal))
+        .map(|(_, name)| name.clone())
+        .collect();
+    let described = describe_matrix(cov, rows, involved);
     if test == TetradTest::Wishart {
         if !ordinal.is_empty() {
             return Err(StepError::NormalTheoryOnOrdinal { step, items: ordinal });
@@ -93,7 +101,7 @@ pub fn tetrad_tester(
         Theory::DistributionFree => {
             let reason = if test == TetradTest::Delta {
                 "requested (`test: delta`)".to_string()
-            } else if ordinal.len() == cov.items.len() {
+            } else if ordinal.len() == involved.len() {
                 "items are ordinal".to_string()
             } else if !ordinal.is_empty() {
                 "some items are ordinal".to_string()
@@ -130,9 +138,18 @@ pub fn tetrad_tester(
     Ok((tester, method))
 }
 
-/// "polychoric correlations", "polychoric, polyserial and Pearson correlations", "summary
-/// correlation matrix"; "(smoothed to be positive definite)" when it was.
-fn describe_matrix(cov: &CovarianceOutput, rows: bool) -> String {
+/// The correlations among the `involved` items: "polychoric correlations", "polychoric,
+/// polyserial and Pearson correlations", "summary correlation matrix"; "(smoothed to be
+/// positive definite)" when it was.
+fn describe_matrix(cov: &CovarianceOutput, rows: bool, involved: &[usize]) -> String {
+    let names: Vec<&String> = involved.iter().filter_map(|&i| cov.items.get(i)).collect();
+    let used: Vec<PairMethod> = cov
+        .method
+        .iter()
+        .filter(|(pair, _)| names.contains(&&pair.first) && names.contains(&&pair.second))
+        .map(|(_, m)| *m)
+        .filter(|m| *m != PairMethod::Given)
+        .collect();
     let mut text = if rows {
         let mut names: Vec<&str> = Vec::new();
         for (method, name) in [
@@ -140,7 +157,7 @@ fn describe_matrix(cov: &CovarianceOutput, rows: bool) -> String {
             (PairMethod::Polyserial, "polyserial"),
             (PairMethod::Pearson, "Pearson"),
         ] {
-            if cov.method.values().any(|m| *m == method) {
+            if used.contains(&method) {
                 names.push(name);
             }
         }
