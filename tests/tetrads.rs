@@ -123,3 +123,16 @@ fn wishart_is_judged_on_the_items_it_tests() {
     assert_eq!(r["discover"]["method"]["test"], "wishart");
     assert_eq!(r["discover"]["method"]["matrix"], "Pearson correlations");
 }
+
+#[test]
+fn the_default_test_after_the_joint_ordinal_estimator_is_refused_with_a_hint() {
+    // `ordinal: full` leaves no respondent contributions for the polychoric correlations.
+    let spec = SMALL_SPEC.replace("covariance: {missing: pairwise}", "covariance: {missing: pairwise, ordinal: full}")
+        + "  purify: {}\n";
+    small(&spec)
+        .run(["run", "spec.yaml"])
+        .failure(1)
+        .stderr_contains("error: a distribution-free sampling covariance is not available")
+        .stderr_contains("hint: set the covariance step's `ordinal: two_step` (the default)")
+        .no_report();
+}

@@ -103,7 +103,10 @@ pub enum StepError {
 impl StepError {
     /// Whether the user's data (not construe) is at fault: exit code 1 rather than 2.
     pub fn is_input_problem(&self) -> bool {
-        matches!(self, StepError::Data(_) | StepError::NormalTheoryOnOrdinal { .. })
+        matches!(
+            self,
+            StepError::Data(_) | StepError::NormalTheoryOnOrdinal { .. } | StepError::SamplingUnavailable { .. }
+        )
     }
 }
 
