@@ -778,21 +778,37 @@ mod calibration {
     // Long power check, 200 replicates per cell:
     // `cargo test -p construe-stats --release purification_power_long -- --ignored --nocapture`.
     // A cross-loading of 0.4 (three factors) and an error covariance of 0.3 (one and three
-    // factors): the share of replicates dropping a planted item, and dropping a pure one.
+    // factors): the share of replicates dropping a planted item, and dropping a pure one. At
+    // n = 2,000 every planted impurity is dropped in at least 80 % of replicates (measured:
+    // 100 % except the error covariance between binary items of a three-factor model, 85.5 %;
+    // at n = 500 binary items leave the impurities mostly undetected: 0-30 %).
     #[test]
     #[ignore]
     fn purification_power_long() {
         let reps = 200;
+        let mut weakest_at_2000: f64 = 1.0;
         for (factors, plant) in [(3, Plant::CrossLoading), (3, Plant::CorrelatedError), (1, Plant::CorrelatedError)] {
             for kind in KINDS {
                 for n in [500, 2000] {
                     let seed = 25_000 + 100 * factors as u64 + n as u64 + kind as u64;
                     let (size, power) = rates(factors, plant, kind, n, Test::Default, reps, seed);
+                    // Wishart's test was the default before; on continuous items it is the
+                    // comparison for power (on ordinal items its size is not held).
+                    let wishart = if kind == ItemType::SkewedContinuous {
+                        let (_, p) = rates(factors, plant, kind, n, Test::Wishart, reps, seed);
+                        format!(", wishart planted dropped {p:.3}")
+                    } else {
+                        String::new()
+                    };
                     println!(
-                        "power factors {factors} {plant:?} {kind:?} n {n}: planted dropped {power:.3}, pure dropped {size:.3}"
+                        "power factors {factors} {plant:?} {kind:?} n {n}: planted dropped {power:.3}, pure dropped {size:.3}{wishart}"
                     );
+                    if n == 2000 {
+                        weakest_at_2000 = weakest_at_2000.min(power);
+                    }
                 }
             }
         }
+        assert!(weakest_at_2000 >= 0.8, "a planted impurity at n = 2,000 was dropped in only {weakest_at_2000}");
     }
 }
