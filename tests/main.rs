@@ -20,5 +20,6 @@ mod robustness;
 mod schemas;
 mod sensitivity;
 mod simulate;
+mod tetrads;
 mod types;
 mod verify;

@@ -127,7 +127,7 @@ mod tests {
         assert_eq!(min_items["minimum"], 3);
         assert_eq!(min_items["maximum"], crate::spec::validate::MAX_MIN_ITEMS);
         assert_eq!(s["$defs"]["PurifySpec"]["properties"]["alpha"]["exclusiveMaximum"], 1.0);
-        assert_eq!(s["$defs"]["TetradTest"]["oneOf"][0]["const"], "wishart");
+        assert_eq!(s["$defs"]["TetradTest"]["oneOf"][0]["const"], "auto");
         // Descriptions come from the doc comments.
         assert!(s["properties"]["title"]["description"].as_str().unwrap().contains("report folder"));
     }

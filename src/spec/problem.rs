@@ -96,6 +96,8 @@ pub enum SpecProblem {
     NeedsRows { analysis: String },
     #[error("`standard_errors: information` has no meaning for `method: dwls`")]
     DwlsInformation,
+    #[error("`{analysis}` with `test: wishart` assumes normally distributed answers, but these items are ordinal: {}", .items.join(", "))]
+    NormalTheoryOnOrdinal { analysis: String, items: Vec<String> },
     #[error("`report.formats` is empty; nothing would be written")]
     NoReportFormats,
     #[error("analysis `{analysis}` needs `{needs}` in the spec")]
@@ -155,6 +157,7 @@ impl SpecProblem {
             NoData => Some("list survey files under `data.waves`, or a published matrix under `data.matrix`".into()),
             NeedsRows { .. } => Some("remove the analysis, or supply the respondent-level waves".into()),
             DwlsInformation => Some("weighted least squares has no information matrix of its own; use `standard_errors: sandwich` (or `auto`)".into()),
+            NormalTheoryOnOrdinal { .. } => Some("drop `test: wishart` (the default, `auto`, tests the polychoric matrix by the delta method with its sampling covariance from the respondents' answers)".into()),
             MissingPrerequisite { .. } => Some("add the analysis it needs under `analyses`".into()),
             ScaleScore { .. } => Some("conditioning on a sum or mean of noisy items does not screen off what they measure; model the construct from its items instead, and drop the score".into()),
             CoarsenedSingleIndicator { .. } => Some("a coarse measure of a construct in the middle of a causal chain cannot screen off what it transmits; add indicators or state a reliability with care".into()),

@@ -299,14 +299,19 @@ pub struct PurifySpec {
 /// The smallest `purify.min_items`: a tetrad needs 4 items, a latent variable 3.
 pub const MIN_ITEMS_FLOOR: usize = 3;
 
-/// The tetrad test.
+/// How `purify` and `discover` test vanishing tetrads of the covariance step's correlation
+/// matrix (the matrix that is fitted).
 #[derive(Debug, Clone, Copy, Default, Serialize, Deserialize, PartialEq, Eq, JsonSchema)]
 #[serde(rename_all = "snake_case")]
 pub enum TetradTest {
-    /// Wishart's test (normal theory; works from the correlation matrix).
+    /// `delta` when there are respondents' rows; for a summary matrix, the delta method with
+    /// the normal-theory sampling covariance of the matrix and its n.
     #[default]
+    Auto,
+    /// Normal theory (Wishart 1928): every item must be continuous.
     Wishart,
-    /// The asymptotically distribution-free delta-method test (needs respondent rows).
+    /// The delta method with the distribution-free sampling covariance of the matrix's
+    /// estimates from respondents' contributions (needs rows).
     Delta,
 }
 

@@ -367,8 +367,27 @@ fn check_analyses(spec: &Spec, available: Option<&Vec<String>>, out: &mut Vec<Fi
             out.push(Finding::value(SpecProblem::UnusualAlpha { what: what.into(), value }, path));
         }
     };
+    // Items the spec itself declares ordinal (under `ordinal: auto` the data decide, at run).
+    let declared_ordinal = |among: &mut dyn Iterator<Item = &String>| -> Vec<String> {
+        match &spec.data.ordinal {
+            OrdinalSpec::Items(list) => {
+                let mut found: Vec<String> = among.filter(|i| list.contains(i)).cloned().collect();
+                found.dedup();
+                found
+            }
+            OrdinalSpec::Auto | OrdinalSpec::None => Vec::new(),
+        }
+    };
+    let construct_items = || spec.constructs.values().flat_map(|c| c.items.iter());
     if let Some(p) = &a.purify {
         alpha("`purify.alpha`", p.alpha, "analyses.purify.alpha", out);
+        let ordinal = declared_ordinal(&mut construct_items());
+        if p.test == TetradTest::Wishart && !ordinal.is_empty() {
+            out.push(Finding::value(
+                SpecProblem::NormalTheoryOnOrdinal { analysis: "purify".into(), items: ordinal },
+                "analyses.purify.test",
+            ));
+        }
         if p.test == TetradTest::Delta && !rows {
             out.push(Finding::value(
                 SpecProblem::NeedsRows { analysis: "purify (test: delta)".into() },
@@ -392,6 +411,16 @@ fn check_analyses(spec: &Spec, available: Option<&Vec<String>>, out: &mut Vec<Fi
     }
     if let Some(d) = &a.discover {
         alpha("`discover.alpha`", d.alpha, "analyses.discover.alpha", out);
+        let ordinal = match &d.items {
+            ItemPool::All => declared_ordinal(&mut construct_items()),
+            ItemPool::Items(pool) => declared_ordinal(&mut pool.iter()),
+        };
+        if d.test == TetradTest::Wishart && !ordinal.is_empty() {
+            out.push(Finding::value(
+                SpecProblem::NormalTheoryOnOrdinal { analysis: "discover".into(), items: ordinal },
+                "analyses.discover.test",
+            ));
+        }
         if d.test == TetradTest::Delta && !rows {
             out.push(Finding::value(
                 SpecProblem::NeedsRows { analysis: "discover (test: delta)".into() },

@@ -6,13 +6,15 @@ use schemars::JsonSchema;
 use serde::{Deserialize, Serialize};
 use serde_json::{Value, json};
 
+use super::tetrads::{TetradMethod, tetrad_tester};
 use super::{Artifact, Inputs, Step, StepError, StepKind};
 use crate::spec::types::{DiscoverSpec, ItemPool, TetradTest};
 use construe_stats::cluster::{ClusterOptions, find_clusters};
-use construe_stats::tetrad::TetradTester;
 
 /// Bump when clusters change for the same covariances and parameters.
-pub const VERSION: u32 = 1;
+/// v2: tetrads of the fitted correlation matrix tested with its sampling covariance (`auto`,
+/// the new default, and `delta`); the artifact records which test ran and why.
+pub const VERSION: u32 = 2;
 
 /// Smallest cluster reported: three items identify a one-factor model.
 const MIN_CLUSTER: usize = 3;
@@ -37,8 +39,10 @@ pub struct DiscoverOutput {
     pub origins: Vec<ClusterOrigin>,
     /// The false discovery rate used.
     pub alpha: f64,
-    /// The tetrad test used.
+    /// The test the spec asked for (`auto`, `wishart` or `delta`).
     pub test: TetradTest,
+    /// The test that ran, on which matrix, and why.
+    pub method: TetradMethod,
     /// The sample size of the tests.
     pub n: usize,
 }
@@ -85,21 +89,9 @@ impl Step for DiscoverStep {
             ItemPool::All => (0..items.len()).collect(),
             ItemPool::Items(list) => list.iter().filter_map(|n| items.iter().position(|i| i == n)).collect(),
         };
-        let n = cov.min_n();
-        let data = match self.params.test {
-            TetradTest::Delta => {
-                let table = inputs
-                    .load()?
-                    .table
-                    .as_ref()
-                    .ok_or(StepError::MissingInput { step: StepKind::Discover, needs: StepKind::Load })?;
-                Some(table.complete_rows(&(0..items.len()).collect::<Vec<_>>()))
-            }
-            TetradTest::Wishart => None,
-        };
         let stats_err = |source| StepError::Stats { context: "cluster discovery".into(), source };
-        let tester = TetradTester::new(self.params.test.into(), &cov.correlation_matrix(), n, data.as_ref())
-            .map_err(stats_err)?;
+        let (tester, method) = tetrad_tester(StepKind::Discover, inputs.load()?, cov, self.params.test, &pool)?;
+        let n = tester.n_obs();
         let found = find_clusters(&tester, &pool, &ClusterOptions { alpha: self.params.alpha, min_size: MIN_CLUSTER })
             .map_err(stats_err)?;
         let names = |idx: &[usize]| idx.iter().map(|&i| items[i].clone()).collect::<Vec<_>>();
@@ -125,6 +117,7 @@ impl Step for DiscoverStep {
             origins,
             alpha: self.params.alpha,
             test: self.params.test,
+            method,
             n,
         })))
     }

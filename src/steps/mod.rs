@@ -15,6 +15,7 @@ pub mod sampling;
 pub mod sensitivity;
 pub mod stats_schema;
 pub mod structure;
+pub mod tetrads;
 
 use std::collections::BTreeMap;
 use std::path::PathBuf;
@@ -96,12 +97,24 @@ pub enum StepError {
     /// Background knowledge names a construct the model does not have.
     #[error("background knowledge names `{construct}`, which is not a construct of the model")]
     UnknownConstruct { construct: String },
+    /// `test: wishart` asked for on data with ordinal items (found by `load`, so not at check).
+    #[error(
+        "`{step}` with `test: wishart` assumes normally distributed answers, but these items are ordinal: {}; drop `test: wishart` (the default, `auto`, tests the polychoric matrix by the delta method with its sampling covariance from the respondents' answers)",
+        .items.join(", ")
+    )]
+    NormalTheoryOnOrdinal { step: StepKind, items: Vec<String> },
 }
 
 impl StepError {
     /// Whether the user's data (not construe) is at fault: exit code 1 rather than 2.
     pub fn is_input_problem(&self) -> bool {
-        matches!(self, StepError::Data(_) | StepError::EstimationUnavailable { .. })
+        matches!(
+            self,
+            StepError::Data(_)
+                | StepError::EstimationUnavailable { .. }
+                | StepError::NormalTheoryOnOrdinal { .. }
+                | StepError::SamplingUnavailable { .. }
+        )
     }
 }
 
@@ -167,16 +180,6 @@ impl Artifact {
             StepKind::Structure => read_exact(bytes).map(|a| Artifact::Structure(Box::new(a))),
             StepKind::Resample => read_exact(bytes).map(|a| Artifact::Resample(Box::new(a))),
             StepKind::Sensitivity => read_exact(bytes).map(|a| Artifact::Sensitivity(Box::new(a))),
-        }
-    }
-}
-
-/// The spec's tetrad test as the numerics name it (used by `purify` and `discover`).
-impl From<crate::spec::types::TetradTest> for construe_stats::tetrad::TetradTestKind {
-    fn from(test: crate::spec::types::TetradTest) -> Self {
-        match test {
-            crate::spec::types::TetradTest::Wishart => construe_stats::tetrad::TetradTestKind::Wishart,
-            crate::spec::types::TetradTest::Delta => construe_stats::tetrad::TetradTestKind::Delta,
         }
     }
 }

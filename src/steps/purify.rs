@@ -8,13 +8,16 @@ use schemars::JsonSchema;
 use serde::{Deserialize, Serialize};
 use serde_json::{Value, json};
 
+use super::tetrads::{TetradMethod, tetrad_tester};
 use super::{Artifact, Inputs, Step, StepError, StepKind};
 use crate::spec::SpecFile;
 use crate::spec::types::{PurifySpec, TetradTest};
-use construe_stats::purify::{PurifyOptions, TetradEvidence, purify};
+use construe_stats::purify::{TetradEvidence, purify_with};
 
 /// Bump when purification results change for the same covariances and parameters.
-pub const VERSION: u32 = 1;
+/// v2: tetrads of the fitted correlation matrix tested with its sampling covariance (`auto`,
+/// the new default, and `delta`); the artifact records which test ran and why.
+pub const VERSION: u32 = 2;
 
 /// One tetrad test.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
@@ -60,8 +63,10 @@ pub struct ConstructPurity {
 pub struct PurifyOutput {
     /// Construct -> its purification.
     pub constructs: IndexMap<String, ConstructPurity>,
-    /// The tetrad test used.
+    /// The test the spec asked for (`auto`, `wishart` or `delta`).
     pub test: TetradTest,
+    /// The test that ran, on which matrix, and why.
+    pub method: TetradMethod,
     /// The false discovery rate used.
     pub alpha: f64,
     /// The fewest items a construct kept.
@@ -128,21 +133,10 @@ impl Step for PurifyStep {
         let index = |name: &String| items.iter().position(|i| i == name).unwrap_or(usize::MAX);
         let groups: Vec<Vec<usize>> =
             self.constructs.iter().map(|(_, list)| list.iter().map(index).collect()).collect();
-        let n = cov.min_n();
-        let data = match self.params.test {
-            TetradTest::Delta => {
-                let table = inputs
-                    .load()?
-                    .table
-                    .as_ref()
-                    .ok_or(StepError::MissingInput { step: StepKind::Purify, needs: StepKind::Load })?;
-                Some(table.complete_rows(&(0..items.len()).collect::<Vec<_>>()))
-            }
-            TetradTest::Wishart => None,
-        };
-        let options =
-            PurifyOptions { test: self.params.test.into(), alpha: self.params.alpha, min_items: self.params.min_items };
-        let result = purify(&cov.correlation_matrix(), n, data.as_ref(), &groups, &options)
+        let involved: Vec<usize> = groups.iter().flatten().copied().collect();
+        let (tester, method) = tetrad_tester(StepKind::Purify, inputs.load()?, cov, self.params.test, &involved)?;
+        let n = tester.n_obs();
+        let result = purify_with(&tester, &groups, self.params.alpha, self.params.min_items)
             .map_err(|source| StepError::Stats { context: "tetrad purification".into(), source })?;
         let constructs = self
             .constructs
@@ -168,6 +162,7 @@ impl Step for PurifyStep {
         Ok(Artifact::Purify(Box::new(PurifyOutput {
             constructs,
             test: self.params.test,
+            method,
             alpha: self.params.alpha,
             min_items: self.params.min_items,
             n,

@@ -321,7 +321,9 @@ mod tests {
         sigma[(5, 4)] += 0.25;
         let x = draw_normal(&sigma, 2000, &mut rng);
         let tester = if delta {
-            TetradTester::delta(&x).unwrap()
+            // The delta test on the matrix with its distribution-free sampling covariance.
+            let adf = std::sync::Arc::new(crate::acov::adf_covariances(&x).unwrap());
+            TetradTester::with_sampling(&sample_cov(&x), adf).unwrap()
         } else {
             TetradTester::wishart(&sample_cov(&x), 2000).unwrap()
         };

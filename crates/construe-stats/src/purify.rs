@@ -420,6 +420,18 @@ mod tests {
         assert_impure_dropped(&result);
     }
 
+    // The delta test on a given matrix with its sampling covariance (here Browne's 1984
+    // distribution-free covariance of the sample covariances) finds the same impurities.
+    #[test]
+    fn drops_exactly_the_impure_items_with_a_sampling_covariance() {
+        let (sigma, groups) = model(true);
+        let x = draw_normal(&sigma, 1000, &mut ChaCha8Rng::seed_from_u64(2001));
+        let adf = std::sync::Arc::new(crate::acov::adf_covariances(&x).unwrap());
+        let tester = TetradTester::with_sampling(&sample_cov(&x), adf).unwrap();
+        let result = purify_with(&tester, &groups, 0.01, 3).unwrap();
+        assert_impure_dropped(&result);
+    }
+
     // Under a pure model BH at 0.01 rejects anything with probability at most about 0.01, so
     // with five fixed seeds at least four runs must keep every item.
     #[test]
@@ -468,5 +480,335 @@ mod tests {
         let mut seen = Vec::new();
         for_each_combination(&[3, 5, 7, 9], 3, |c| seen.push(c.to_vec()));
         assert_eq!(seen, vec![vec![3, 5, 7], vec![3, 5, 9], vec![3, 7, 9], vec![5, 7, 9]]);
+    }
+}
+
+/// Size and power of purification with the default test (the delta method on the fitted
+/// correlation matrix with its distribution-free sampling covariance) on pure and impure
+/// models with continuous, 5-point and binary items (issue 15's acceptance: at alpha 0.01 a
+/// pure item is dropped in at most 2 % of replicates). The Wishart test on the same matrix is
+/// run beside it, for contrast: it assumes normal rows and fails on ordinal items.
+#[cfg(test)]
+mod calibration {
+    use std::sync::Arc;
+
+    use nalgebra::DMatrix;
+    use rand::SeedableRng;
+    use rand_chacha::ChaCha8Rng;
+    use rand_distr::{ChiSquared, Distribution, StandardNormal};
+
+    use super::purify_with;
+    use crate::acov::{Contributions, SamplingCovariance};
+    use crate::mixed::{Column, MixedCorrelation, mixed_correlation};
+    use crate::polychoric::OrdinalFit;
+    use crate::tetrad::TetradTester;
+
+    /// How the item responses arise from the standardized latent response y* (variance 1).
+    #[derive(Debug, Clone, Copy, PartialEq)]
+    pub(super) enum ItemType {
+        /// y* itself, with skewed (centred chi-square(3)) factors and errors.
+        SkewedContinuous,
+        /// Five categories, cuts symmetric about 0 (about 7, 24, 38, 24, 7 %).
+        FiveSymmetric,
+        /// Five categories, most answers in the top two (about 2, 6, 16, 38, 38 %).
+        FiveSkewed,
+        /// Two categories, 80 % in the upper one.
+        Binary,
+    }
+
+    impl ItemType {
+        fn cuts(self) -> Option<&'static [f64]> {
+            match self {
+                ItemType::SkewedContinuous => None,
+                ItemType::FiveSymmetric => Some(&[-1.5, -0.7, 0.7, 1.5]),
+                ItemType::FiveSkewed => Some(&[-2.0, -1.4, -0.7, 0.3]),
+                ItemType::Binary => Some(&[-0.841_621_233_572_914_3]),
+            }
+        }
+    }
+
+    /// What is planted in the model.
+    #[derive(Debug, Clone, Copy, PartialEq)]
+    pub(super) enum Plant {
+        Pure,
+        /// The last item of the first group also loads 0.4 on the second factor.
+        CrossLoading,
+        /// The errors of the first group's last two items covary by 0.3 (on the standardized
+        /// item scale).
+        CorrelatedError,
+    }
+
+    /// A factor model on standardized latent responses: loadings (p x k), factor correlations,
+    /// one extra error covariance, the declared groups.
+    pub(super) struct Design {
+        lambda: DMatrix<f64>,
+        phi: DMatrix<f64>,
+        error_pair: Option<(usize, usize, f64)>,
+        pub(super) groups: Vec<Vec<usize>>,
+        /// The planted items (an impurity to find), empty for a pure model.
+        pub(super) planted: Vec<usize>,
+    }
+
+    impl Design {
+        /// `factors` 1 (six items) or 3 (five items each, correlations 0.4, 0.3, 0.5).
+        pub(super) fn new(factors: usize, plant: Plant) -> Design {
+            let (loadings, phi): (Vec<Vec<f64>>, DMatrix<f64>) = if factors == 1 {
+                (vec![vec![0.8, 0.7, 0.6, 0.75, 0.65, 0.55]], DMatrix::identity(1, 1))
+            } else {
+                (
+                    vec![
+                        vec![0.8, 0.7, 0.75, 0.65, 0.7],
+                        vec![0.7, 0.8, 0.6, 0.75, 0.7],
+                        vec![0.7, 0.75, 0.8, 0.65, 0.7],
+                    ],
+                    DMatrix::from_row_slice(3, 3, &[1.0, 0.4, 0.3, 0.4, 1.0, 0.5, 0.3, 0.5, 1.0]),
+                )
+            };
+            let p: usize = loadings.iter().map(Vec::len).sum();
+            let mut lambda = DMatrix::zeros(p, factors);
+            let mut groups = Vec::new();
+            let mut at = 0;
+            for (f, ls) in loadings.iter().enumerate() {
+                groups.push((at..at + ls.len()).collect::<Vec<_>>());
+                for &l in ls {
+                    lambda[(at, f)] = l;
+                    at += 1;
+                }
+            }
+            let last = groups[0].len() - 1;
+            let (mut planted, mut error_pair) = (Vec::new(), None);
+            match plant {
+                Plant::Pure => {}
+                Plant::CrossLoading => {
+                    assert!(factors > 1, "a cross-loading needs a second factor");
+                    lambda[(last, 0)] = 0.6;
+                    lambda[(last, 1)] = 0.4;
+                    planted.push(last);
+                }
+                Plant::CorrelatedError => {
+                    error_pair = Some((last - 1, last, 0.3));
+                    planted.extend([last - 1, last]);
+                }
+            }
+            Design { lambda, phi, error_pair, groups, planted }
+        }
+
+        /// n rows of latent responses y* with unit variances, mapped to `kind` items. The
+        /// factors are phi^(1/2) z and the errors psi^(1/2) e with z, e standard normal, or for
+        /// `SkewedContinuous` standardized chi-square(3) variables (skewness 1.63).
+        pub(super) fn draw(&self, kind: ItemType, n: usize, rng: &mut ChaCha8Rng) -> Vec<Column<'static>> {
+            let (p, k) = self.lambda.shape();
+            let chol = self.phi.clone().cholesky().expect("factor correlations are positive definite").l();
+            let common = &self.lambda * &self.phi * self.lambda.transpose();
+            let psi: Vec<f64> = (0..p).map(|i| 1.0 - common[(i, i)]).collect();
+            assert!(psi.iter().all(|&v| v > 0.05), "error variances {psi:?}");
+            let chi = ChiSquared::new(3.0).unwrap();
+            let shock = |rng: &mut ChaCha8Rng| -> f64 {
+                if kind == ItemType::SkewedContinuous {
+                    (chi.sample(rng) - 3.0) / 6f64.sqrt()
+                } else {
+                    StandardNormal.sample(rng)
+                }
+            };
+            let mut y = vec![Vec::with_capacity(n); p];
+            let mut z = vec![0.0; k];
+            for _ in 0..n {
+                for v in z.iter_mut() {
+                    *v = shock(rng);
+                }
+                let shared = shock(rng);
+                for (i, column) in y.iter_mut().enumerate() {
+                    let f: f64 =
+                        (0..k).map(|a| self.lambda[(i, a)] * (0..k).map(|b| chol[(a, b)] * z[b]).sum::<f64>()).sum();
+                    let (mut e, mut e_var) = (0.0, psi[i]);
+                    if let Some((a, b, c)) = self.error_pair
+                        && (i == a || i == b)
+                    {
+                        e += c.sqrt() * shared;
+                        e_var -= c;
+                    }
+                    column.push(f + e + e_var.sqrt() * shock(rng));
+                }
+            }
+            match kind.cuts() {
+                None => y.into_iter().map(|v| Column::Continuous(v.into())).collect(),
+                Some(cuts) => y
+                    .into_iter()
+                    .map(|v| {
+                        let codes: Vec<u8> = v.iter().map(|&x| cuts.iter().filter(|&&c| x > c).count() as u8).collect();
+                        Column::Ordinal { codes: codes.into(), levels: cuts.len() + 1 }
+                    })
+                    .collect(),
+            }
+        }
+    }
+
+    /// The sampling covariance of the fitted matrix's correlations, distribution-free, from the
+    /// respondents' contributions (what the covariance step provides for the default test).
+    fn sampling(columns: &[Column<'_>], fitted: &MixedCorrelation) -> Arc<dyn SamplingCovariance> {
+        Arc::new(Contributions::correlations(columns, fitted).unwrap())
+    }
+
+    /// Which test a cell runs.
+    #[derive(Debug, Clone, Copy, PartialEq)]
+    pub(super) enum Test {
+        /// The default: delta method on the fitted matrix with its distribution-free sampling
+        /// covariance.
+        Default,
+        /// Wishart's normal-theory test on the same matrix with its n.
+        Wishart,
+    }
+
+    /// One replicate: the items purification drops.
+    pub(super) fn dropped(design: &Design, kind: ItemType, n: usize, test: Test, rng: &mut ChaCha8Rng) -> Vec<usize> {
+        let columns = design.draw(kind, n, rng);
+        let fitted = mixed_correlation(&columns, OrdinalFit::TwoStep).unwrap();
+        let tester = match test {
+            Test::Default => TetradTester::with_sampling(&fitted.matrix, sampling(&columns, &fitted)).unwrap(),
+            Test::Wishart => TetradTester::wishart(&fitted.matrix, n).unwrap(),
+        };
+        let result = purify_with(&tester, &design.groups, 0.01, 3).unwrap();
+        result.groups.iter().flat_map(|g| g.dropped.iter().map(|d| d.item)).collect()
+    }
+
+    /// Over `reps` replicates: the share dropping at least one pure item, and the share
+    /// dropping a planted one (for a correlated-error pair, either member).
+    pub(super) fn rates(
+        factors: usize,
+        plant: Plant,
+        kind: ItemType,
+        n: usize,
+        test: Test,
+        reps: usize,
+        seed: u64,
+    ) -> (f64, f64) {
+        let design = Design::new(factors, plant);
+        let mut rng = ChaCha8Rng::seed_from_u64(seed);
+        let (mut false_drop, mut found) = (0usize, 0usize);
+        for _ in 0..reps {
+            let out = dropped(&design, kind, n, test, &mut rng);
+            false_drop += usize::from(out.iter().any(|i| !design.planted.contains(i)));
+            found += usize::from(out.iter().any(|i| design.planted.contains(i)));
+        }
+        (false_drop as f64 / reps as f64, found as f64 / reps as f64)
+    }
+
+    // Short size check on skewed continuous items (simulation check, REFERENCES.md): three
+    // pure factors, n = 500, 30 replicates. At alpha 0.01 with BH the default test drops a
+    // pure item in at most 2 of 30 runs (expected rate at most ~1-2 %).
+    #[test]
+    fn default_purification_keeps_pure_skewed_continuous_items() {
+        let (size, _) = rates(3, Plant::Pure, ItemType::SkewedContinuous, 500, Test::Default, 30, 1501);
+        assert!(size <= 2.0 / 30.0, "pure item dropped in {size} of runs");
+    }
+
+    // Short power check: the planted cross-loading (0.4) on skewed continuous items at n = 500
+    // is dropped in at least 8 of 10 runs.
+    #[test]
+    fn default_purification_drops_a_cross_loading_on_skewed_items() {
+        let (_, power) = rates(3, Plant::CrossLoading, ItemType::SkewedContinuous, 500, Test::Default, 10, 1502);
+        assert!(power >= 0.8, "planted item dropped in {power} of runs");
+    }
+
+    // Short size checks on ordinal items (simulation check): three pure factors, n = 500,
+    // 50 replicates each of binary (80/20) and skewed 5-point items. The default test drops a
+    // pure item in at most 3 of 50 runs (expected rate about 1 %); Wishart's test on the same binary matrices drops one in
+    // at least 12 of 20 (the next test), so a test that ignored the polychoric estimates' own
+    // sampling variability would fail here.
+    #[test]
+    fn default_purification_keeps_pure_binary_items() {
+        let (size, _) = rates(3, Plant::Pure, ItemType::Binary, 500, Test::Default, 50, 1503);
+        assert!(size <= 0.06, "pure binary item dropped in {size} of runs");
+    }
+
+    #[test]
+    fn default_purification_keeps_pure_skewed_five_point_items() {
+        let (size, _) = rates(3, Plant::Pure, ItemType::FiveSkewed, 500, Test::Default, 50, 1504);
+        assert!(size <= 0.06, "pure 5-point item dropped in {size} of runs");
+    }
+
+    // Short power check on ordinal items: the planted cross-loading (0.4) on symmetric 5-point
+    // items at n = 500 is dropped in at least 8 of 10 runs.
+    #[test]
+    fn default_purification_drops_a_cross_loading_on_five_point_items() {
+        let (_, power) = rates(3, Plant::CrossLoading, ItemType::FiveSymmetric, 500, Test::Default, 10, 1505);
+        assert!(power >= 0.8, "planted item dropped in {power} of runs");
+    }
+
+    // The harness can fail: Wishart's normal-theory test on the polychoric matrix of binary
+    // items (80/20), three pure factors, n = 500, drops a pure item in most runs (issue 15
+    // measured 100 % at n = 2,000), at least 12 of 20 here.
+    #[test]
+    fn wishart_on_binary_items_drops_pure_items() {
+        let (size, _) = rates(3, Plant::Pure, ItemType::Binary, 500, Test::Wishart, 20, 1503);
+        assert!(size >= 0.6, "Wishart dropped a pure binary item in only {size} of runs");
+    }
+
+    const KINDS: [ItemType; 4] =
+        [ItemType::SkewedContinuous, ItemType::FiveSymmetric, ItemType::FiveSkewed, ItemType::Binary];
+
+    // Long size calibration (issue 15 acceptance), 1,000 replicates per cell (the true rate is
+    // near 1 %, so at 200 replicates a cell's count of 5 or more, 2.5 %, happens by chance in
+    // about one cell in fifteen):
+    // `cargo test -p construe-stats --release purification_size_long -- --ignored --nocapture`.
+    // Pure one- and three-factor models, every item type, n = 500 and 2,000: the default test
+    // drops a pure item in at most 2 % of replicates; Wishart's rate on the same matrices
+    // (200 replicates) is printed beside it.
+    #[test]
+    #[ignore]
+    fn purification_size_long() {
+        let (reps, wishart_reps) = (1000, 200);
+        let mut worst: f64 = 0.0;
+        for factors in [1, 3] {
+            for kind in KINDS {
+                for n in [500, 2000] {
+                    let seed = 15_000 + 100 * factors as u64 + n as u64 + kind as u64;
+                    let (size, _) = rates(factors, Plant::Pure, kind, n, Test::Default, reps, seed);
+                    let (wishart, _) = rates(factors, Plant::Pure, kind, n, Test::Wishart, wishart_reps, seed);
+                    println!(
+                        "size  factors {factors} {kind:?} n {n}: default {size:.3} ({reps} replicates), wishart {wishart:.3} ({wishart_reps})"
+                    );
+                    worst = worst.max(size);
+                }
+            }
+        }
+        assert!(worst <= 0.02, "a pure item was dropped in {worst} of replicates");
+    }
+
+    // Long power check, 200 replicates per cell:
+    // `cargo test -p construe-stats --release purification_power_long -- --ignored --nocapture`.
+    // A cross-loading of 0.4 (three factors) and an error covariance of 0.3 (one and three
+    // factors): the share of replicates dropping a planted item, and dropping a pure one. At
+    // n = 2,000 every planted impurity is dropped in at least 80 % of replicates (measured:
+    // 100 % except the error covariance between binary items of a three-factor model, 85.5 %;
+    // at n = 500 binary items leave the impurities mostly undetected: 0-30 %).
+    #[test]
+    #[ignore]
+    fn purification_power_long() {
+        let reps = 200;
+        let mut weakest_at_2000: f64 = 1.0;
+        for (factors, plant) in [(3, Plant::CrossLoading), (3, Plant::CorrelatedError), (1, Plant::CorrelatedError)] {
+            for kind in KINDS {
+                for n in [500, 2000] {
+                    let seed = 25_000 + 100 * factors as u64 + n as u64 + kind as u64;
+                    let (size, power) = rates(factors, plant, kind, n, Test::Default, reps, seed);
+                    // Wishart's test was the default before; on continuous items it is the
+                    // comparison for power (on ordinal items its size is not held).
+                    let wishart = if kind == ItemType::SkewedContinuous {
+                        let (_, p) = rates(factors, plant, kind, n, Test::Wishart, reps, seed);
+                        format!(", wishart planted dropped {p:.3}")
+                    } else {
+                        String::new()
+                    };
+                    println!(
+                        "power factors {factors} {plant:?} {kind:?} n {n}: planted dropped {power:.3}, pure dropped {size:.3}{wishart}"
+                    );
+                    if n == 2000 {
+                        weakest_at_2000 = weakest_at_2000.min(power);
+                    }
+                }
+            }
+        }
+        assert!(weakest_at_2000 >= 0.8, "a planted impurity at n = 2,000 was dropped in only {weakest_at_2000}");
     }
 }

@@ -1,18 +1,23 @@
 //! Tetrad differences of a covariance matrix and their sampling tests (Spearman 1904;
 //! Wishart 1928; Bollen & Ting 1993). Central type: `TetradTester`, which holds a covariance
-//! matrix, its sample size and, for the distribution-free test, the centred complete-case data.
+//! (or correlation) matrix, its sample size and what its sampling theory needs: nothing more
+//! for the Wishart test, the centred complete-case data for the raw-data delta test, or the
+//! sampling covariance of the matrix's own estimates (`acov::SamplingCovariance`) for the delta
+//! test on exactly the matrix that is fitted (polychoric, polyserial or Pearson).
 //! Labelling for items (i, j, k, l), fixed everywhere: t1 = s_ij s_kl - s_ik s_jl,
 //! t2 = s_ij s_kl - s_il s_jk, t3 = s_ik s_jl - s_il s_jk (= t2 - t1, so two are independent).
 //! This module only measures and tests tetrads; it never decides which items are pure
 //! (that is `purify` and `cluster`).
 
 use std::collections::BTreeMap;
+use std::sync::Arc;
 
 use nalgebra::{DMatrix, Matrix4};
 use serde::{Deserialize, Serialize};
 use statrs::distribution::{ChiSquared, ContinuousCDF, Normal};
 
 use super::StatsError;
+use super::acov::{Element, SamplingCovariance, check_element};
 
 /// The six off-diagonal pairs of a quad, as positions 0..4 in the quad's item order.
 const PAIRS: [(usize, usize); 6] = [(0, 1), (0, 2), (0, 3), (1, 2), (1, 3), (2, 3)];
@@ -34,8 +39,15 @@ pub enum TetradTestKind {
     /// Multivariate-normal theory: Wishart's (1928) exact variance for a single tetrad, the
     /// normal-theory asymptotic covariance of the sample covariances for joint tests.
     Wishart,
-    /// Distribution-free delta method from fourth-order sample moments (Bollen & Ting 1993).
+    /// Distribution-free delta method from fourth-order sample moments of the raw scores
+    /// (Bollen & Ting 1993), on their own Pearson covariance matrix.
     Delta,
+    /// Delta method on a given matrix with a given sampling covariance of its off-diagonal
+    /// estimates (`acov::SamplingCovariance`): Bollen & Ting's (1993) variance g' V g with V
+    /// whatever the matrix's estimator calls for (distribution-free from respondents'
+    /// contributions for polychoric, polyserial and non-normal Pearson correlations, or normal
+    /// theory for a summary matrix).
+    Sampling,
 }
 
 /// One tetrad difference: four item indices (in this order) and which of the three (0, 1, 2
@@ -119,8 +131,59 @@ pub struct TetradTester {
     kind: TetradTestKind,
     cov: DMatrix<f64>,
     n_obs: usize,
-    /// Delta test only: each item's column of complete-case data minus its mean.
-    centred: Option<Vec<Vec<f64>>>,
+    source: Source,
+}
+
+/// What the tester's sampling theory draws on besides the matrix.
+#[derive(Debug, Clone)]
+enum Source {
+    /// Wishart kind: the matrix and n only.
+    Matrix,
+    /// Delta kind: each item's column of complete-case data minus its mean.
+    Centred(Vec<Vec<f64>>),
+    /// Sampling kind: the sampling covariance of the matrix's off-diagonal estimates, and what
+    /// is asked of it once because a purification or cluster search tests most quads.
+    Sampling { sampling: Arc<dyn SamplingCovariance>, cache: Cache },
+}
+
+/// What the Sampling kind holds so that a quad's six-element block is a lookup or 21 dot
+/// products rather than a fresh request (a fresh block rebuilds the six elements'
+/// contributions: about 1 ms at 1,000 rows).
+#[derive(Debug, Clone)]
+enum Cache {
+    /// Nothing: blocks asked for on demand.
+    None,
+    /// The sampling covariance of every off-diagonal element (`off_diagonal` order).
+    Dense(Arc<DMatrix<f64>>),
+    /// Every off-diagonal element's per-respondent contributions (rows x elements).
+    Contributions(Arc<DMatrix<f64>>),
+}
+
+/// Which cache `with_sampling` builds.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum Tier {
+    Dense,
+    Contributions,
+    OnDemand,
+}
+
+/// Up to this many items the Sampling kind asks for the full block of the p (p - 1) / 2
+/// off-diagonal elements once (at most 1,225 elements, 12 MB).
+pub const DENSE_ITEMS: usize = 50;
+
+/// Beyond `DENSE_ITEMS`, the contributions of every off-diagonal element are fetched once when
+/// they come from rows and rows x elements stays within this many values (128 MB); beyond
+/// that, blocks are asked for on demand and nothing of size k is held.
+pub const CONTRIBUTION_VALUES: usize = 16_000_000;
+
+/// Position of element (j, l), j < l, in `off_diagonal(p)`.
+fn off_diagonal_index(p: usize, (j, l): Element) -> usize {
+    j * (2 * p - j - 1) / 2 + (l - j - 1)
+}
+
+/// Every off-diagonal element (j, l), j < l, row-major.
+fn off_diagonal(p: usize) -> Vec<Element> {
+    (0..p).flat_map(|j| (j + 1..p).map(move |l| (j, l))).collect()
 }
 
 impl TetradTester {
@@ -132,7 +195,7 @@ impl TetradTester {
         check_square(cov)?;
         check_n(n_obs)?;
         check_finite_symmetric(cov)?;
-        Ok(Self { kind: TetradTestKind::Wishart, cov: cov.clone(), n_obs, centred: None })
+        Ok(Self { kind: TetradTestKind::Wishart, cov: cov.clone(), n_obs, source: Source::Matrix })
     }
 
     /// Distribution-free tests (Bollen & Ting 1993) from an n x p matrix of complete rows
@@ -165,7 +228,105 @@ impl TetradTester {
                 cov[(b, a)] = s;
             }
         }
-        Ok(Self { kind: TetradTestKind::Delta, cov, n_obs, centred: Some(centred) })
+        Ok(Self { kind: TetradTestKind::Delta, cov, n_obs, source: Source::Centred(centred) })
+    }
+
+    /// Delta-method tests on `matrix` (a correlation or covariance matrix: the one that is
+    /// fitted) with `sampling`, the sampling covariance of its estimates (Bollen & Ting 1993 with
+    /// V in place of Gamma / N): var(t) = g' V g over the tetrad's correlations, g the gradient
+    /// of t = r_p r_q - r_r r_t. Only off-diagonal elements enter, so a correlation matrix's
+    /// sampling covariance (no diagonal) serves. n is `sampling.n_obs()` (for pairwise-present
+    /// data the smallest pair count; it is used only by `cluster`'s screen of zero
+    /// correlations, the variances carry each pair's own n).
+    /// What is fetched up front: the full off-diagonal block up to `DENSE_ITEMS` items, else the
+    /// contributions of every off-diagonal element within `CONTRIBUTION_VALUES`, else nothing.
+    pub fn with_sampling(matrix: &DMatrix<f64>, sampling: Arc<dyn SamplingCovariance>) -> Result<Self, StatsError> {
+        let p = matrix.nrows();
+        let k = p * p.saturating_sub(1) / 2;
+        let tier = if p <= DENSE_ITEMS {
+            Tier::Dense
+        } else if sampling.rows().is_some_and(|n| n.saturating_mul(k) <= CONTRIBUTION_VALUES) {
+            Tier::Contributions
+        } else {
+            Tier::OnDemand
+        };
+        Self::sampling_tester(matrix, sampling, tier)
+    }
+
+    fn sampling_tester(
+        matrix: &DMatrix<f64>,
+        sampling: Arc<dyn SamplingCovariance>,
+        tier: Tier,
+    ) -> Result<Self, StatsError> {
+        check_square(matrix)?;
+        check_finite_symmetric(matrix)?;
+        if sampling.n_items() != matrix.nrows() {
+            return Err(StatsError::SizeMismatch {
+                what: "sampling covariance items",
+                expected: matrix.nrows(),
+                found: sampling.n_items(),
+            });
+        }
+        let n_obs = sampling.n_obs();
+        check_n(n_obs)?;
+        let elements = off_diagonal(matrix.nrows());
+        let cache = match tier {
+            Tier::Dense => Cache::Dense(Arc::new(sampling.block(&elements)?)),
+            Tier::Contributions => match sampling.rows() {
+                Some(rows) => match sampling.contributions(&elements, 0..rows)? {
+                    Some(c) => Cache::Contributions(Arc::new(c)),
+                    None => Cache::None,
+                },
+                None => Cache::None,
+            },
+            Tier::OnDemand => Cache::None,
+        };
+        Ok(Self {
+            kind: TetradTestKind::Sampling,
+            cov: matrix.clone(),
+            n_obs,
+            source: Source::Sampling { sampling, cache },
+        })
+    }
+
+    /// The sampling covariance of `elements` (off-diagonal) for the Sampling kind, from the
+    /// cache when there is one.
+    fn sampling_block(
+        &self,
+        sampling: &dyn SamplingCovariance,
+        cache: &Cache,
+        elements: &[Element],
+    ) -> Result<DMatrix<f64>, StatsError> {
+        let p = self.n_items();
+        let at = || -> Result<Vec<usize>, StatsError> {
+            elements
+                .iter()
+                .map(|&e| {
+                    check_element(p, true, e)?;
+                    Ok(off_diagonal_index(p, e))
+                })
+                .collect()
+        };
+        match cache {
+            Cache::None => sampling.block(elements),
+            Cache::Dense(v) => {
+                let at = at()?;
+                Ok(DMatrix::from_fn(at.len(), at.len(), |r, c| v[(at[r], at[c])]))
+            }
+            Cache::Contributions(c) => {
+                let at = at()?;
+                let m = at.len();
+                let mut out = DMatrix::zeros(m, m);
+                for x in 0..m {
+                    for y in x..m {
+                        let v = c.column(at[x]).dot(&c.column(at[y]));
+                        out[(x, y)] = v;
+                        out[(y, x)] = v;
+                    }
+                }
+                Ok(out)
+            }
+        }
     }
 
     /// Builds the tester `kind` asks for: `wishart(cov, n_obs)`, or `delta(data)` (which then
@@ -191,6 +352,9 @@ impl TetradTester {
                 }
                 Self::delta(data)
             }
+            TetradTestKind::Sampling => Err(StatsError::InvalidInput(
+                "the delta test on a fitted matrix needs its sampling covariance (TetradTester::with_sampling)".into(),
+            )),
         }
     }
 
@@ -225,7 +389,8 @@ impl TetradTester {
     /// sqrt(g' Gamma g / N) with g the gradient of the tetrad with respect to the covariances
     /// and Gamma_{ab,cd} = m_abcd - m_ab m_cd estimated from fourth-order moments about the
     /// sample means, divisor N (Bollen & Ting 1993, eqs. for the asymptotic variance; Browne
-    /// 1984 for Gamma). p-values are two-sided standard normal.
+    /// 1984 for Gamma); Sampling kind, sqrt(g' V g) with V the supplied sampling covariance of
+    /// the quad's six correlations. p-values are two-sided standard normal.
     pub fn test_quad(&self, items: [usize; 4]) -> Result<[TetradTest; 3], StatsError> {
         check_items(self.n_items(), items)?;
         let sub = submatrix(&self.cov, items);
@@ -235,8 +400,8 @@ impl TetradTester {
                 let det = sub.determinant();
                 [0, 1, 2].map(|w| wishart_var_sub(&sub, det, w, self.n_obs))
             }
-            TetradTestKind::Delta => {
-                let omega = self.delta_omega(items, &sub);
+            TetradTestKind::Delta | TetradTestKind::Sampling => {
+                let omega = self.quad_omega(items, &sub)?;
                 [omega[0][0], omega[1][1], omega[2][2]]
             }
         };
@@ -255,7 +420,8 @@ impl TetradTester {
     /// from the two independent ones (t1, t2) and their asymptotic covariance Omega
     /// (Bollen & Ting 1993): chi2 = t' Omega^-1 t, p = exp(-chi2 / 2). Omega is the
     /// normal-theory delta-method covariance for the Wishart kind (Gamma_{ab,cd} =
-    /// s_ac s_bd + s_ad s_bc, divided by N - 1) and the fourth-moment one for the Delta kind.
+    /// s_ac s_bd + s_ad s_bc, divided by N - 1), the fourth-moment one for the Delta kind and
+    /// G V G' with the supplied sampling covariance V for the Sampling kind.
     /// The statistic does not depend on the order of the four items (t1, t2, t3 span the same
     /// plane under every relabelling). A singular Omega falls back to the larger-variance
     /// tetrad alone (a df-1 statistic mapped to the df-2 scale by equal p-value).
@@ -265,7 +431,7 @@ impl TetradTester {
         let t = differences(&sub);
         let omega = match self.kind {
             TetradTestKind::Wishart => normal_omega(&sub, self.n_obs),
-            TetradTestKind::Delta => self.delta_omega(items, &sub),
+            TetradTestKind::Delta | TetradTestKind::Sampling => self.quad_omega(items, &sub)?,
         };
         let (a, b, c) = (omega[0][0], omega[0][1], omega[1][1]);
         let det = a * c - b * b;
@@ -284,7 +450,9 @@ impl TetradTester {
     /// Omega = G Gamma G' / N_k, chi2 = t' Omega^+ t (Moore-Penrose inverse), df = rank(Omega),
     /// so redundant sets (for instance all three tetrads of one quad, t3 = t2 - t1) are handled
     /// by their rank. Gamma is normal-theory (s_ac s_bd + s_ad s_bc, N_k = N - 1) for the
-    /// Wishart kind and distribution-free (m_abcd - m_ab m_cd, N_k = N) for the Delta kind.
+    /// Wishart kind and distribution-free (m_abcd - m_ab m_cd, N_k = N) for the Delta kind;
+    /// for the Sampling kind Omega = G V G' with V the supplied sampling covariance of all the
+    /// correlations involved (one block, asked for once).
     /// Eigenvalues below 1e-10 times the largest count as zero.
     pub fn joint(&self, tetrads: &[Tetrad]) -> Result<JointTetradTest, StatsError> {
         if tetrads.is_empty() {
@@ -320,8 +488,20 @@ impl TetradTester {
         };
         let m = tetrads.len();
         let mut omega = DMatrix::zeros(m, m);
-        match &self.centred {
-            None => {
+        match &self.source {
+            Source::Sampling { sampling, cache } => {
+                let mut a = DMatrix::zeros(pairs.len(), m);
+                for (u, g) in grads.iter().enumerate() {
+                    for &(e, ge) in g {
+                        a[(e, u)] += ge;
+                    }
+                }
+                omega = match cache {
+                    Cache::None => sampling.sandwich(&pairs, &a)?,
+                    _ => a.transpose() * self.sampling_block(sampling.as_ref(), cache, &pairs)? * &a,
+                };
+            }
+            Source::Matrix => {
                 let nu = (self.n_obs - 1) as f64;
                 let s = &self.cov;
                 let gamma = |e: usize, f: usize| {
@@ -341,7 +521,7 @@ impl TetradTester {
                     }
                 }
             }
-            Some(centred) => {
+            Source::Centred(centred) => {
                 let n = self.n_obs;
                 let means: Vec<f64> = pairs.iter().map(|&(a, b)| dot(&centred[a], &centred[b]) / n as f64).collect();
                 // q[r][u]: influence of row r on tetrad u, sum_e g_ue (z_ra z_rb - m_ab).
@@ -377,13 +557,26 @@ impl TetradTester {
         Ok(JointTetradTest { tetrads: tetrads.to_vec(), diffs, stat, df, p })
     }
 
+    /// 3 x 3 sampling covariance of (t1, t2, t3) of a quad for the two delta-method kinds.
+    fn quad_omega(&self, items: [usize; 4], sub: &Matrix4<f64>) -> Result<[[f64; 3]; 3], StatsError> {
+        match &self.source {
+            Source::Matrix => Ok(normal_omega(sub, self.n_obs)),
+            Source::Centred(centred) => Ok(self.delta_omega(centred, items, sub)),
+            Source::Sampling { sampling, cache } => {
+                let elements: [Element; 6] = PAIRS.map(|(a, b)| {
+                    let (x, y) = (items[a], items[b]);
+                    (x.min(y), x.max(y))
+                });
+                let v = self.sampling_block(sampling.as_ref(), cache, &elements)?;
+                Ok(sampling_omega(&v, sub))
+            }
+        }
+    }
+
     /// 3 x 3 fourth-moment covariance of (t1, t2, t3) of a quad, divided by N (Bollen & Ting
     /// 1993): Omega = (1/N^2) sum_r q_r q_r', q_r = G (z_ra z_rb - m_ab)_{pairs}. Equal to
     /// G Gamma G' / N with Gamma_{ab,cd} = m_abcd - m_ab m_cd.
-    fn delta_omega(&self, items: [usize; 4], sub: &Matrix4<f64>) -> [[f64; 3]; 3] {
-        let Some(centred) = &self.centred else {
-            return normal_omega(sub, self.n_obs);
-        };
+    fn delta_omega(&self, centred: &[Vec<f64>], items: [usize; 4], sub: &Matrix4<f64>) -> [[f64; 3]; 3] {
         let n = self.n_obs;
         let cols = items.map(|i| centred[i].as_slice());
         let mut means = [0.0; 6];
@@ -416,6 +609,30 @@ impl TetradTester {
         }
         out
     }
+}
+
+/// Delta-method covariance of (t1, t2, t3) from the sampling covariance V of the quad's six
+/// off-diagonal estimates (in `PAIRS` order): G V G' (Bollen & Ting 1993 with V for Gamma / N), G the 3 x 6
+/// gradient of `gradient`.
+fn sampling_omega(v: &DMatrix<f64>, sub: &Matrix4<f64>) -> [[f64; 3]; 3] {
+    let g = [0, 1, 2].map(|w| gradient(sub, w));
+    let mut out = [[0.0; 3]; 3];
+    for x in 0..3 {
+        for y in x..3 {
+            let mut acc = 0.0;
+            for e in 0..6 {
+                if g[x][e] == 0.0 {
+                    continue;
+                }
+                for f in 0..6 {
+                    acc += g[x][e] * g[y][f] * v[(e, f)];
+                }
+            }
+            out[x][y] = acc;
+            out[y][x] = acc;
+        }
+    }
+    out
 }
 
 /// Normal-theory delta-method covariance of (t1, t2, t3): G Gamma G' / (N - 1) with
@@ -700,6 +917,87 @@ mod tests {
         }
     }
 
+    // The delta test on a given matrix with a given sampling covariance (the Sampling kind)
+    // against the same numpy implementation of Bollen & Ting (1993): with the matrix the data's
+    // unbiased covariance matrix and V Browne's (1984) distribution-free covariance of the
+    // sample covariances (`acov::adf_covariances`), g' V g is exactly the fixture's variance,
+    // for single tetrads, the df-2 quad statistic and the joint test.
+    #[test]
+    fn sampling_kind_matches_numpy_with_the_distribution_free_covariance() {
+        let fx = fixture();
+        let d = &fx["delta"];
+        let data = matrix(&d["data"]);
+        let cov = matrix(&d["covariance"]);
+        let adf: Arc<dyn SamplingCovariance> = Arc::new(crate::acov::adf_covariances(&data).unwrap());
+        let tester = TetradTester::with_sampling(&cov, adf).unwrap();
+        assert_eq!(tester.kind(), TetradTestKind::Sampling);
+        assert_eq!(tester.n_obs(), data.nrows());
+        let rel = |a: f64, b: f64| (a - b).abs() / b.abs();
+        let tests = tester.test_quad([0, 1, 2, 3]).unwrap();
+        for w in 0..3 {
+            assert!(rel(tests[w].diff, d["tetrads"][w].as_f64().unwrap()) < 1e-10);
+            assert!(rel(tests[w].se, d["delta_se"][w].as_f64().unwrap()) < 1e-9);
+            assert!(rel(tests[w].p, d["delta_p"][w].as_f64().unwrap()) < 1e-8);
+        }
+        let want = d["joint12_delta_stat"].as_f64().unwrap();
+        assert!(rel(tester.quad_chi2([0, 1, 2, 3]).unwrap(), want) < 1e-9);
+        let pair = [Tetrad { items: [0, 1, 2, 3], which: 0 }, Tetrad { items: [0, 1, 2, 3], which: 1 }];
+        let joint = tester.joint(&pair).unwrap();
+        assert_eq!(joint.df, 2);
+        assert!(rel(joint.stat, want) < 1e-9);
+        assert!((joint.p - d["joint12_delta_p"].as_f64().unwrap()).abs() < 1e-10);
+    }
+
+    // The Sampling kind's per-quad path (six-element blocks) and its joint path (one block over
+    // every pair involved, through `sandwich`) agree, so do the three ways of holding the
+    // sampling covariance (the full block, every element's contributions, blocks on demand);
+    // a mismatched or missing sampling covariance is an error.
+    #[test]
+    fn sampling_kind_quad_and_joint_paths_agree() {
+        let mut rng = ChaCha8Rng::seed_from_u64(15);
+        let lambda = DMatrix::from_column_slice(6, 1, &[0.8, 0.6, 0.7, 0.5, 0.4, 0.65]);
+        let theta =
+            DMatrix::from_diagonal(&nalgebra::DVector::from_fn(6, |i, _| 1.0 - lambda[(i, 0)] * lambda[(i, 0)]));
+        let sigma = factor_cov(&lambda, &DMatrix::identity(1, 1), &theta);
+        let data = draw_normal(&sigma, 400, &mut rng);
+        let adf: Arc<dyn SamplingCovariance> = Arc::new(crate::acov::adf_covariances(&data).unwrap());
+        let tester = TetradTester::with_sampling(&sample_cov(&data), adf.clone()).unwrap();
+        for q in [[0, 2, 4, 5], [5, 1, 3, 0]] {
+            for (w, single) in tester.test_quad(q).unwrap().iter().enumerate() {
+                let j = tester.joint(&[Tetrad { items: q, which: w }]).unwrap();
+                assert!((j.stat - single.stat.powi(2)).abs() < 1e-9 * j.stat.max(1e-12));
+            }
+        }
+        // Browne's covariances again, from contributions (which have rows): all three caches.
+        let columns: Vec<Vec<f64>> = (0..6).map(|j| data.column(j).iter().copied().collect()).collect();
+        let views: Vec<&[f64]> = columns.iter().map(Vec::as_slice).collect();
+        let rows: Arc<dyn SamplingCovariance> = Arc::new(crate::acov::Contributions::covariances(&views).unwrap());
+        let s = sample_cov(&data);
+        let testers = [Tier::Dense, Tier::Contributions, Tier::OnDemand]
+            .map(|tier| TetradTester::sampling_tester(&s, rows.clone(), tier).unwrap());
+        assert!(matches!(&testers[1].source, Source::Sampling { cache: Cache::Contributions(_), .. }));
+        let many: Vec<Tetrad> = [[0, 1, 2, 3], [1, 2, 4, 5], [0, 3, 4, 5]]
+            .iter()
+            .flat_map(|&items| [0, 2].map(|which| Tetrad { items, which }))
+            .collect();
+        let base = testers[0].joint(&many).unwrap();
+        for other in &testers[1..] {
+            for q in [[0, 2, 4, 5], [5, 1, 3, 0]] {
+                let (a, b) = (testers[0].test_quad(q).unwrap(), other.test_quad(q).unwrap());
+                for w in 0..3 {
+                    assert!((a[w].se - b[w].se).abs() < 1e-12 * a[w].se);
+                }
+                let (a, b) = (testers[0].quad_chi2(q).unwrap(), other.quad_chi2(q).unwrap());
+                assert!((a - b).abs() < 1e-10 * a.max(1e-12));
+            }
+            let j = other.joint(&many).unwrap();
+            assert_eq!(j.df, base.df);
+            assert!((j.stat - base.stat).abs() < 1e-9 * base.stat);
+        }
+        assert!(TetradTester::with_sampling(&DMatrix::identity(5, 5), adf).is_err());
+        assert!(TetradTester::new(TetradTestKind::Sampling, &sigma, 400, Some(&data)).is_err());
+    }
+
     // Rank handling (Bollen & Ting 1993: only two tetrads of a quad are independent): the joint
     // test of all three has df 2 and the same statistic as (t1, t2); the per-quad statistic does
     // not depend on the order of the items.
@@ -792,6 +1090,10 @@ mod tests {
             let tester = match kind {
                 TetradTestKind::Delta => TetradTester::delta(&x).unwrap(),
                 TetradTestKind::Wishart => TetradTester::wishart(&sample_cov(&x), n).unwrap(),
+                TetradTestKind::Sampling => {
+                    let adf = Arc::new(crate::acov::adf_covariances(&x).unwrap());
+                    TetradTester::with_sampling(&sample_cov(&x), adf).unwrap()
+                }
             };
             let p = tester.test(Tetrad { items: [0, 1, 2, 3], which: 0 }).unwrap().p;
             rej += usize::from(p < 0.05);
