@@ -382,6 +382,15 @@ mod tests {
             }
         }
         eprintln!("largest deviation from the reference: {worst:.2e} of the entries' scale");
+        // The same figures with one rayon thread (chunks are summed in a fixed order).
+        let contributions = Contributions::correlations(&columns, &est).unwrap();
+        let a = DMatrix::from_fn(elements.len(), 3, |r, c| ((r * 5 + c) % 7) as f64 - 3.0);
+        let one = rayon::ThreadPoolBuilder::new()
+            .num_threads(1)
+            .build()
+            .unwrap()
+            .install(|| (contributions.block(&elements).unwrap(), contributions.sandwich(&elements, &a).unwrap()));
+        assert_eq!(one, (got, contributions.sandwich(&elements, &a).unwrap()));
     }
 
     /// `n` rows of ordinal answers from a one-factor model (item = λF + √(1-λ²)e cut at `cuts`).
