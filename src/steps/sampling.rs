@@ -273,6 +273,7 @@ mod tests {
         }
         let full = CovarianceOutput { ordinal: OrdinalEstimation::Full, ..cov.clone() };
         let err = sampling_covariance(&load, &full, Moments::Correlations, Theory::DistributionFree).unwrap_err();
+        assert!(err.is_input_problem());
         let StepError::SamplingUnavailable { hint, .. } = err else { panic!("{err}") };
         assert!(hint.contains("two_step"));
     }
