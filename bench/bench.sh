@@ -10,13 +10,14 @@
 set -euo pipefail
 cd "$(dirname "$0")/.."
 target="${CARGO_TARGET_DIR:-target}"
-cargo build --release --quiet
 bin="$target/release/construe"
 work="$(mktemp -d)"
 trap 'rm -rf "$work"' EXIT
-sections="${BENCH_SECTIONS:-1 2 3 4 5}"
+sections="${BENCH_SECTIONS:-1 2 3 4 5 6}"
 runs="${BENCH_RUNS:-5}"
 want() { [[ " $sections " == *" $1 "* ]]; }
+# Sections 1-5 run the CLI; section 6 only the numerics' bench binary.
+if [[ "$sections" =~ [1-5] ]]; then cargo build --release --quiet; fi
 
 median() { sort -g | awk '{a[NR]=$1} END {print a[int((NR+1)/2)]}'; }
 seconds() {
@@ -108,4 +109,18 @@ if want 5; then
   python3 bench/cfa_reference.py tests/reference/sem/cfa60x4.json --repeat "$runs" | sed 's/^/  peer: /'
   model cfa 4 15 cfa.parquet "{covariance: {}, measure: {}}" 1000
   step_medians "$work/cfa.yaml" measure
+fi
+
+if want 6; then
+  echo "== 6. sampling covariance of 4,950 polychoric correlations (100 five-point items x 10,000 rows) and a sandwich with a 4,950 x 200 A: construe (V never formed) vs numpy forming V = C'C"
+  cargo bench --quiet -p construe-stats --no-run 2>/dev/null
+  timing="$(ls -t "$target"/release/deps/timing-* | grep -v '\.d$' | head -1)"
+  for _ in $(seq "$runs"); do "$timing" acov100 | sed 's/^/  /'; done
+  "$timing" acov-export "$work/acov" >/dev/null
+  for _ in $(seq "$runs"); do python3 bench/acov_peer.py "$work/acov" | sed 's/^/  /'; done
+  rm -rf "$work/acov"
+  peak_rss "$timing" acov100
+  echo "   500 five-point items x 2,000 rows (k = 124,750; V would take 124 GB):"
+  "$timing" acov500 | sed 's/^/  /'
+  peak_rss "$timing" acov500
 fi

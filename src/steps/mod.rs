@@ -106,7 +106,9 @@ pub enum StepError {
 }
 
 impl StepError {
-    /// Whether the user's data (not construe) is at fault: exit code 1 rather than 2.
+    /// Whether the user's data or spec (not construe) is at fault: exit code 1 rather than 2.
+    /// A sampling theory the data do not support comes from the spec's choice of test or
+    /// estimator.
     pub fn is_input_problem(&self) -> bool {
         matches!(
             self,

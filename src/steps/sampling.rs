@@ -311,6 +311,7 @@ mod tests {
         }
         let full = CovarianceOutput { ordinal: OrdinalEstimation::Full, ..cov.clone() };
         let err = sampling_covariance(&load, &full, Moments::Correlations, Theory::DistributionFree).unwrap_err();
+        assert!(err.is_input_problem());
         let StepError::SamplingUnavailable { hint, .. } = err else { panic!("{err}") };
         assert!(hint.contains("two_step"));
     }
@@ -351,6 +352,37 @@ mod tests {
         assert!((d / b[(0, 0)] - 1.0).abs() < 0.3, "{d} vs {}", b[(0, 0)]);
         let r = sampling_covariance(&load, &cov, Moments::Correlations, Theory::Normal).unwrap();
         assert!(r.is_correlation() && r.rows().is_none());
+    }
+
+    // A smoothed matrix keeps its estimates: the sampling covariance belongs to them (the
+    // artifact's `unsmoothed`), and results say it applies approximately. Three continuous
+    // items seen in disjoint pairs of row blocks, correlated +0.9, +0.9 and -0.9: not positive
+    // definite, so the step smooths.
+    #[test]
+    fn a_smoothed_matrix_keeps_the_sampling_covariance_of_its_estimates() {
+        let mut rng = construe_stats::testkit::seeded(8);
+        let sigma = |r: f64| DMatrix::from_row_slice(2, 2, &[1.0, r, r, 1.0]);
+        let mut cols = vec![vec![f64::NAN; 300]; 3];
+        for (block, (a, b, r)) in [(0, 1, 0.9), (1, 2, 0.9), (0, 2, -0.9)].into_iter().enumerate() {
+            let draws = construe_stats::testkit::draw_normal(&sigma(r), 100, &mut rng);
+            for i in 0..100 {
+                cols[a][block * 100 + i] = draws[(i, 0)];
+                cols[b][block * 100 + i] = draws[(i, 1)];
+            }
+        }
+        let columns: Vec<StatsColumn> = cols.iter().map(|c| StatsColumn::Continuous(c.as_slice().into())).collect();
+        let load = load_of(&columns);
+        let cov = covariance_of(&load, Missing::Pairwise);
+        assert!(cov.smoothed && cov.sampling_note.as_deref() == Some(SMOOTHED_NOTE));
+        let unsmoothed = to_matrix(cov.unsmoothed.as_ref().unwrap());
+        assert!((unsmoothed - cov.correlation_matrix()).amax() > 0.05);
+        let v = sampling_covariance(&load, &cov, Moments::Correlations, Theory::DistributionFree).unwrap();
+        let est = mixed::mixed_correlation(&columns, OrdinalFit::TwoStep).unwrap();
+        let direct = Contributions::correlations(&columns, &est).unwrap();
+        let elements = all_elements(3, true);
+        let (got, want) = (v.block(&elements).unwrap(), direct.block(&elements).unwrap());
+        assert!((&got - &want).amax() < 1e-12 * want.amax(), "{got} vs {want}");
+        assert_eq!(v.n_obs(), 100);
     }
 
     #[test]

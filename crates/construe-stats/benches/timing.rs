@@ -27,6 +27,87 @@ fn main() {
     if wanted("cfa") {
         cfa();
     }
+    // `acov` alone runs both sizes; `acov100` / `acov500` one; `acov-export DIR` writes the
+    // numpy peer's inputs (never part of a default run: it writes 400 MB).
+    if only.is_empty() || only.iter().any(|o| o == "acov" || o == "acov100") {
+        acov(100, 10_000, None);
+    }
+    if only.is_empty() || only.iter().any(|o| o == "acov" || o == "acov500") {
+        acov(500, 2_000, None);
+    }
+    if let Some(at) = only.iter().position(|o| o == "acov-export") {
+        let dir = only.get(at + 1).expect("acov-export needs a folder");
+        acov(100, 10_000, Some(std::path::Path::new(dir)));
+    }
+}
+
+/// Issue 15's performance target: `p` five-point items x `n` rows, polychoric correlations,
+/// their distribution-free sampling covariance (`Contributions`) and the sandwich A' V A with a
+/// random k x 200 A (k = p(p-1)/2 correlations), never forming V. With `export`, also writes
+/// the contribution matrix C (n x k) and A as .npy files for `bench/acov_peer.py`, which forms
+/// V = C'C (k x k) and A' V A with numpy.
+fn acov(p: usize, n: usize, export: Option<&std::path::Path>) {
+    use construe_stats::acov::{Contributions, SamplingCovariance, all_elements};
+    use rand::Rng;
+    let cols = one_factor_columns(n, p, 0, 0.0, 11);
+    let t0 = std::time::Instant::now();
+    let m = mixed_correlation(&cols, OrdinalFit::TwoStep).unwrap();
+    let t1 = std::time::Instant::now();
+    let v = Contributions::correlations(&cols, &m).unwrap();
+    let t2 = std::time::Instant::now();
+    let elements = all_elements(p, true);
+    let k = elements.len();
+    let mut rng = seeded(5);
+    let a = DMatrix::from_fn(k, 200, |_, _| rng.random::<f64>() * 2.0 - 1.0);
+    let t3 = std::time::Instant::now();
+    let s = v.sandwich(&elements, &a).unwrap();
+    let t4 = std::time::Instant::now();
+    let secs = |a: std::time::Instant, b: std::time::Instant| (b - a).as_secs_f64();
+    println!(
+        "acov {p} five-point items x {n} rows, k = {k}: correlations {:.3} s, contributions {:.3} s, sandwich (k x 200) {:.3} s; \
+         correlations + sampling covariance + sandwich {:.3} s on {} threads; S[0,0] = {:.12e}, trace S = {:.12e}",
+        secs(t0, t1),
+        secs(t1, t2),
+        secs(t3, t4),
+        secs(t0, t2) + secs(t3, t4),
+        rayon::current_num_threads(),
+        s[(0, 0)],
+        s.trace()
+    );
+    if let Some(dir) = export {
+        use std::io::Write;
+        std::fs::create_dir_all(dir).unwrap();
+        let mut c_file = std::io::BufWriter::new(std::fs::File::create(dir.join("c.npy")).unwrap());
+        npy_header(&mut c_file, n, k);
+        for start in (0..n).step_by(500) {
+            let c = v.contributions(&elements, start..(start + 500).min(n)).unwrap().unwrap();
+            for r in 0..c.nrows() {
+                for e in 0..k {
+                    c_file.write_all(&c[(r, e)].to_le_bytes()).unwrap();
+                }
+            }
+        }
+        let mut a_file = std::io::BufWriter::new(std::fs::File::create(dir.join("a.npy")).unwrap());
+        npy_header(&mut a_file, k, 200);
+        for r in 0..k {
+            for c in 0..200 {
+                a_file.write_all(&a[(r, c)].to_le_bytes()).unwrap();
+            }
+        }
+        println!("wrote {}/c.npy ({n} x {k}) and a.npy ({k} x 200)", dir.display());
+    }
+}
+
+/// A NumPy .npy v1.0 header for a C-order float64 matrix.
+fn npy_header(out: &mut impl std::io::Write, rows: usize, cols: usize) {
+    let mut dict = format!("{{'descr': '<f8', 'fortran_order': False, 'shape': ({rows}, {cols}), }}");
+    while (10 + dict.len() + 1) % 64 != 0 {
+        dict.push(' ');
+    }
+    dict.push('\n');
+    out.write_all(b"\x93NUMPY\x01\x00").unwrap();
+    out.write_all(&(dict.len() as u16).to_le_bytes()).unwrap();
+    out.write_all(dict.as_bytes()).unwrap();
 }
 
 /// The 60-item, 4-factor CFA of `tests/reference/sem/cfa60x4.json` (n = 1000), fitted 41 times,

@@ -16,7 +16,8 @@ differentiation (no analytic second derivatives):
     Psi_rho = d log P(y | z) / d rho.
 Empty categories of a pair are dropped (merged) before its thresholds. Each rho is refitted
 here (brentq on the score). With c_ie = IF_e(i) / n_e on the pair's complete rows (0 elsewhere),
-V = sum_i c_i c_i' for all 28 correlations.
+V = sum_i c_i c_i' for all 28 correlations. Also `v_normal`: the normal-theory covariance of
+the same 28 correlations (n = 300) from the Wishart moments and the delta method.
 
 Data: n = 300 from a one-factor model: items 0-3 five categories (item 3 never uses its top
 category), items 4-5 binary (80/20), items 6-7 continuous and skewed; about 3% missing values
@@ -237,6 +238,22 @@ def main():
     cmat = np.array(contrib).T
     v = cmat.T @ cmat
 
+    # Normal theory for the same correlations, by another route than Olkin & Siotani's closed
+    # form: the Wishart covariance of the sample covariances, cov(s_jl, s_mr) =
+    # (s_jm s_lr + s_jr s_lm) / n (Anderson 2003, th. 3.4.4), carried through the Jacobian of
+    # r_jl = s_jl / sqrt(s_jj s_ll) at S = R (delta method), with n = 300.
+    r = np.eye(p)
+    for (j, l), rho in zip(elements, rhos):
+        r[j, l] = r[l, j] = rho
+    cov_elems = [(j, l) for j in range(p) for l in range(j, p)]
+    gamma = np.array([[(r[j, m] * r[l, q] + r[j, q] * r[l, m]) / n for (m, q) in cov_elems] for (j, l) in cov_elems])
+    jac = np.zeros((len(elements), len(cov_elems)))
+    for e, (j, l) in enumerate(elements):
+        jac[e, cov_elems.index((j, l))] = 1.0
+        jac[e, cov_elems.index((j, j))] = -r[j, l] / 2
+        jac[e, cov_elems.index((l, l))] = -r[j, l] / 2
+    v_normal = jac @ gamma @ jac.T
+
     def column(j):
         return [None if np.isnan(t) else (int(t) if kinds[j] == "ordinal" else float(t)) for t in data[j]]
 
@@ -250,6 +267,7 @@ def main():
         "elements": elements,
         "rho": rhos,
         "v": v.tolist(),
+        "v_normal": v_normal.tolist(),
     }
     with open("acov.json", "w") as fh:
         json.dump(out, fh, indent=None)

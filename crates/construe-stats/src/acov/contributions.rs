@@ -20,9 +20,14 @@ use super::{Element, SamplingCovariance, check_element};
 use crate::StatsError;
 use crate::mixed::{Column, MIN_PAIR_N, MISSING_CODE, MixedCorrelation};
 
-/// Values (rows x elements) per chunk of the contribution matrix: 16 MB.
+/// Values (rows x elements) per chunk of the contribution matrix: 16 MB, but at least
+/// `MIN_CHUNK_ROWS` rows, so that a sandwich's weights (packed once per chunk by the matrix
+/// product) are reused over enough rows; at most `MAX_CHUNK_ROWS`.
 const CHUNK_VALUES: usize = 2_000_000;
-/// Chunks computed in parallel before their partial sums are added in order.
+const MIN_CHUNK_ROWS: usize = 128;
+const MAX_CHUNK_ROWS: usize = 4096;
+/// Chunks computed in parallel before their partial sums are added in order (this bounds the
+/// memory in flight: at most `BATCH` chunks at once).
 const BATCH: usize = 8;
 
 /// One item's rows, owned.
@@ -239,7 +244,7 @@ impl Contributions {
     fn accumulate(&self, elements: &[Element], a: Option<&DMatrix<f64>>) -> DMatrix<f64> {
         let b = elements.len();
         let m = a.map_or(b, DMatrix::ncols);
-        let chunk = (CHUNK_VALUES / b.max(1)).clamp(16, 4096);
+        let chunk = (CHUNK_VALUES / b.max(1)).clamp(MIN_CHUNK_ROWS, MAX_CHUNK_ROWS);
         let chunks: Vec<Range<usize>> = (0..self.rows).step_by(chunk).map(|s| s..(s + chunk).min(self.rows)).collect();
         let mut total = DMatrix::zeros(m, m);
         for batch in chunks.chunks(BATCH) {

@@ -87,4 +87,57 @@ impl SamplingCovariance for NormalTheory {
         }
         Ok(v)
     }
+
+    /// A' V A without V: with Ã the symmetric p x p matrix of a column of A (a_jl / 2 off the
+    /// diagonal, in both triangles; a_jj on it), a' V b = (2/n) tr(Ã S B̃ S) for covariances;
+    /// correlations first map each column through the Jacobian of r_jl = s_jl / √(s_jj s_ll) at
+    /// S = R (∂r_jl/∂s_jj = -r_jl/2), since the normal-theory covariance of correlations is
+    /// that of the covariances carried through it (Olkin & Siotani 1976). O(m p³ + m² p²) for m
+    /// columns, whatever the number of elements.
+    fn sandwich(&self, elements: &[Element], a: &DMatrix<f64>) -> Result<DMatrix<f64>, StatsError> {
+        if a.nrows() != elements.len() {
+            return Err(StatsError::SizeMismatch {
+                what: "sandwich weights",
+                expected: elements.len(),
+                found: a.nrows(),
+            });
+        }
+        let p = self.matrix.nrows();
+        for &e in elements {
+            check_element(p, self.correlation, e)?;
+        }
+        let m = a.ncols();
+        // X_c = Ã_c S for every column c.
+        let products: Vec<DMatrix<f64>> = (0..m)
+            .map(|c| {
+                let mut t = DMatrix::zeros(p, p);
+                for (row, &(j, l)) in elements.iter().enumerate() {
+                    let w = a[(row, c)];
+                    if j == l {
+                        t[(j, j)] += w;
+                    } else {
+                        t[(j, l)] += w / 2.0;
+                        t[(l, j)] += w / 2.0;
+                        if self.correlation {
+                            let r = self.matrix[(j, l)];
+                            t[(j, j)] -= w * r / 2.0;
+                            t[(l, l)] -= w * r / 2.0;
+                        }
+                    }
+                }
+                t * &self.matrix
+            })
+            .collect();
+        let n = self.n as f64;
+        let mut out = DMatrix::zeros(m, m);
+        for c in 0..m {
+            for d in c..m {
+                // tr(X_c X_d) = Σ_jk X_c[j,k] X_d[k,j].
+                let x = products[c].component_mul(&products[d].transpose()).sum() * 2.0 / n;
+                out[(c, d)] = x;
+                out[(d, c)] = x;
+            }
+        }
+        Ok(out)
+    }
 }
