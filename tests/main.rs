@@ -14,6 +14,7 @@ mod estimation;
 mod faults;
 mod guard;
 mod inputs;
+mod missing;
 mod reference;
 mod report;
 mod robustness;

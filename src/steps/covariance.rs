@@ -12,7 +12,7 @@ use serde::{Deserialize, Serialize};
 use serde_json::{Value, json};
 
 use super::load::{ItemKind, LoadOutput};
-use super::missing_data::{McarRecord, MissingData};
+use super::missing_data::{McarRecord, MissingData, Missingness};
 use super::{Artifact, Inputs, Step, StepError, StepKind};
 use crate::data::Table;
 use crate::data::table::{Column as DataColumn, MISSING};
@@ -169,6 +169,8 @@ pub struct CovarianceOutput {
     pub missing_data: Option<MissingData>,
     /// Little's (1988) test of missing completely at random, whenever values are missing.
     pub mcar: Option<McarRecord>,
+    /// Where answers are missing: per wave and item, and the common patterns.
+    pub missingness: Option<Missingness>,
 }
 
 /// An empty category merged with a neighbour for one pair's estimate.
@@ -569,6 +571,7 @@ impl Step for CovarianceStep {
             Some(table) => super::missing_data::mcar(load, table)?,
             None => None,
         };
+        let missingness = load.table.as_ref().and_then(super::missing_data::missingness);
         Ok(Artifact::Covariance(Box::new(CovarianceOutput {
             kind: items.iter().cloned().zip(kinds).collect(),
             items,
@@ -589,6 +592,7 @@ impl Step for CovarianceStep {
             sampling_note,
             missing_data: e.missing_data,
             mcar,
+            missingness,
         })))
     }
 

@@ -118,6 +118,95 @@ pub struct McarRecord {
     pub note: Option<String>,
 }
 
+/// Where answers are missing (results.json `covariance.missingness`): per wave, each item's
+/// share of missing answers; the most common patterns of missing items. Aggregates only: a
+/// pattern shared by fewer than `load::MIN_GROUP` respondents is pooled into `other_rows`.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
+pub struct Missingness {
+    /// Items in table order (the columns of `by_wave[..].share`).
+    pub items: Vec<String>,
+    /// One row per wave.
+    pub by_wave: Vec<WaveMissing>,
+    /// The most common patterns (at most `MAX_PATTERNS_SHOWN`), most frequent first.
+    pub patterns: Vec<PatternCount>,
+    /// Respondents in the other patterns (rarer ones, or beyond the list).
+    pub other_rows: usize,
+    /// Respondents who answered every item.
+    pub complete_rows: usize,
+}
+
+/// One wave's share of missing answers per item.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
+pub struct WaveMissing {
+    /// The wave's id.
+    pub wave: String,
+    /// Rows of the wave.
+    pub rows: usize,
+    /// Share of the wave's rows with the item missing, in `items` order.
+    pub share: Vec<f64>,
+}
+
+/// A pattern of missing items and how many respondents have it.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
+pub struct PatternCount {
+    /// The items missing in this pattern.
+    pub missing: Vec<String>,
+    /// Respondents with exactly this pattern (at least `load::MIN_GROUP`).
+    pub rows: usize,
+}
+
+/// Most patterns `Missingness` lists.
+pub const MAX_PATTERNS_SHOWN: usize = 8;
+
+/// The missingness summary of `table`; `None` when nothing is missing.
+pub fn missingness(table: &Table) -> Option<Missingness> {
+    let p = table.items.len();
+    let rows = table.rows();
+    let mut counts: std::collections::BTreeMap<Vec<usize>, usize> = std::collections::BTreeMap::new();
+    let mut by_wave: Vec<(usize, Vec<usize>)> = vec![(0, vec![0; p]); table.waves.len()];
+    for r in 0..rows {
+        let missing: Vec<usize> = (0..p).filter(|&k| table.columns[k].is_missing(r)).collect();
+        let w = table.wave_of_row[r] as usize;
+        if let Some((n, m)) = by_wave.get_mut(w) {
+            *n += 1;
+            for &k in &missing {
+                m[k] += 1;
+            }
+        }
+        *counts.entry(missing).or_default() += 1;
+    }
+    let complete_rows = counts.get(&Vec::new()).copied().unwrap_or(0);
+    if complete_rows == rows {
+        return None;
+    }
+    let mut listed: Vec<(Vec<usize>, usize)> = counts.into_iter().filter(|(m, _)| !m.is_empty()).collect();
+    listed.sort_by(|a, b| b.1.cmp(&a.1).then_with(|| a.0.cmp(&b.0)));
+    let incomplete: usize = listed.iter().map(|(_, c)| c).sum();
+    let shown: Vec<PatternCount> = listed
+        .iter()
+        .filter(|(_, c)| *c >= super::load::MIN_GROUP)
+        .take(MAX_PATTERNS_SHOWN)
+        .map(|(m, c)| PatternCount { missing: m.iter().map(|&k| table.items[k].clone()).collect(), rows: *c })
+        .collect();
+    let other_rows = incomplete - shown.iter().map(|s| s.rows).sum::<usize>();
+    Some(Missingness {
+        items: table.items.clone(),
+        by_wave: table
+            .waves
+            .iter()
+            .zip(by_wave)
+            .map(|(id, (n, m))| WaveMissing {
+                wave: id.clone(),
+                rows: n,
+                share: m.iter().map(|&c| if n == 0 { 0.0 } else { c as f64 / n as f64 }).collect(),
+            })
+            .collect(),
+        patterns: shown,
+        other_rows,
+        complete_rows,
+    })
+}
+
 fn stats(context: &str) -> impl Fn(StatsError) -> StepError + '_ {
     move |source| StepError::Stats { context: context.into(), source }
 }
