@@ -13,12 +13,12 @@ data:
   waves:
     - {id: w1, file: w1.csv}
   id_column: rid
-  ordinal: ORDINAL
+  ordinal: none
 constructs:
   comfort: {items: [a1, a2, a3, a4]}
   loyalty: {items: [b1, b2, b3, b4]}
 analyses:
-  covariance: {missing: MISSING}
+  covariance: {missing: pairwise}
   measure: {}
 ";
 
@@ -58,7 +58,9 @@ fn mar_csv(n: usize, coded: bool) -> String {
 }
 
 fn case(missing: &str, coded: bool) -> Case {
-    let spec = SPEC.replace("MISSING", missing).replace("ORDINAL", if coded { "auto" } else { "none" });
+    let spec = SPEC
+        .replace("missing: pairwise", &format!("missing: {missing}"))
+        .replace("ordinal: none", if coded { "ordinal: auto" } else { "ordinal: none" });
     Case::new().spec(&spec).file("w1.csv", mar_csv(500, coded))
 }
 
@@ -77,7 +79,10 @@ fn little_rejects_and_the_report_recommends_fiml() {
     assert!(mcar["p"].as_f64().unwrap() < 0.001, "{mcar}");
     assert_eq!(mcar["df"], 4, "two patterns: complete, and the four b items missing");
     let html = c.read("reports/rider-panel/v1/report.html");
-    assert!(html.contains("Little&#x27;s (1988) test") || html.contains("Little's (1988) test"), "no MCAR test in the report");
+    assert!(
+        html.contains("Little&#x27;s (1988) test") || html.contains("Little's (1988) test"),
+        "no MCAR test in the report"
+    );
     assert!(html.contains("pairwise deletion can bias every estimate"));
     assert!(html.contains("missing completely at random (pairwise deletion)"));
     let md = c.read("reports/rider-panel/v1/report.md");
@@ -129,4 +134,31 @@ fn fiml_on_ordinal_items_imputes_and_publishes_no_imputed_answer() {
     assert!(filled > 400 && (missing_b == 0 || filled == missing_b), "{filled} filled, {missing_b} missing");
     assert!(r["measure"]["estimation"]["statement"].as_str().unwrap().contains("diagonally weighted least squares"));
     c.run(["verify", "reports/rider-panel/v1"]).success();
+}
+
+// `check` warns about an item missing in more than half the rows (with each wave's share) and
+// refuses a pair of items nobody answered together, naming both.
+#[test]
+fn check_warns_of_mostly_missing_items_and_refuses_pairs_never_answered_together() {
+    let csv = mar_csv(300, false);
+    let mut lines: Vec<String> = csv.lines().map(str::to_string).collect();
+    for (r, line) in lines.iter_mut().enumerate().skip(1) {
+        let mut f: Vec<String> = line.split(',').map(str::to_string).collect();
+        // b4 answered by a third of the rows; a4 and b3 never by the same respondent.
+        if r % 3 != 0 {
+            f[8] = String::new();
+        }
+        if r % 2 == 0 {
+            f[4] = String::new();
+        } else {
+            f[7] = String::new();
+        }
+        *line = f.join(",");
+    }
+    let c = Case::new().spec(SPEC).file("w1.csv", lines.join("\n") + "\n");
+    c.run(["check", "spec.yaml"])
+        .failure(1)
+        .stderr_contains("warning: item `b4` is missing in 77% of rows (w1: 77%)")
+        .stderr_contains("error: items `a4` and `b3` are never answered by the same respondent")
+        .stderr_lacks("items `a1` and");
 }

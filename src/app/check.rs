@@ -91,6 +91,10 @@ fn data_findings(spec: &SpecFile, sources: &[SourceColumns]) -> Vec<Finding> {
     let mut distinct: Vec<Vec<f64>> = vec![Vec::new(); items.len()];
     let mut non_integer: Vec<Option<f64>> = vec![None; items.len()];
     let mut outside: Vec<Vec<(String, Tally)>> = vec![Vec::new(); items.len()];
+    // Rows per wave and each item's present count per wave (for mostly-missing items), and
+    // which pairs of items some respondent answered together (upper triangle, row-major).
+    let mut rows_by_wave: Vec<(String, usize, Vec<usize>)> = Vec::new();
+    let mut together = vec![false; items.len() * items.len()];
     for s in sources.iter().filter(|s| s.wave.is_some()) {
         if !matches!(s.columns, ColumnsRead::Columns(_)) {
             continue;
@@ -122,6 +126,20 @@ fn data_findings(spec: &SpecFile, sources: &[SourceColumns]) -> Vec<Finding> {
                 file.clone(),
             ));
         }
+        let index: Vec<Option<usize>> =
+            scanned.columns.iter().map(|col| items.iter().position(|(i, _, _)| **i == col.name)).collect();
+        let mut wave_present = vec![0usize; items.len()];
+        for (a, col_a) in scanned.columns.iter().enumerate() {
+            let Some(ka) = index[a] else { continue };
+            wave_present[ka] = col_a.present;
+            for (b, col_b) in scanned.columns.iter().enumerate().skip(a + 1) {
+                let Some(kb) = index[b] else { continue };
+                if col_a.observed_with(col_b) {
+                    together[ka.min(kb) * items.len() + ka.max(kb)] = true;
+                }
+            }
+        }
+        rows_by_wave.push((data.waves[s.index].id.clone(), scanned.rows, wave_present));
         for col in &scanned.columns {
             let Some(k) = items.iter().position(|(i, _, _)| **i == col.name) else { continue };
             seen[k] = true;
@@ -173,6 +191,28 @@ fn data_findings(spec: &SpecFile, sources: &[SourceColumns]) -> Vec<Finding> {
                 SpecProblem::DataOutsideReverse { item: (*item).clone(), lo, hi, count, examples },
                 child("data.reverse", item),
             ));
+        }
+        let rows: usize = rows_by_wave.iter().map(|(_, r, _)| r).sum();
+        if present[k] > 0 && rows > 0 && 2 * present[k] < rows {
+            let waves = rows_by_wave
+                .iter()
+                .filter(|(_, r, _)| *r > 0)
+                .map(|(w, r, p)| format!("{w}: {}%", (100 * (r - p[k]) + r / 2) / r))
+                .collect::<Vec<_>>()
+                .join(", ");
+            let percent = (100 * (rows - present[k]) + rows / 2) / rows;
+            out.push(Finding::value(
+                SpecProblem::DataMostlyMissing { item: (*item).clone(), percent, waves },
+                at.clone(),
+            ));
+        }
+        for (j, (other, _, _)) in items.iter().enumerate().take(k) {
+            if seen[j] && present[j] > 0 && present[k] > 0 && !together[j * items.len() + k] {
+                out.push(Finding::value(
+                    SpecProblem::DataNeverTogether { first: (*other).clone(), second: (*item).clone() },
+                    at.clone(),
+                ));
+            }
         }
         if present[k] == 0 {
             out.push(Finding::value(SpecProblem::DataEmpty { item: (*item).clone() }, at));

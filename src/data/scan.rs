@@ -61,6 +61,16 @@ pub struct ColumnScan {
     pub distinct: Vec<f64>,
     /// A present value that is not an integer, if any.
     pub non_integer: Option<f64>,
+    /// Which data rows (1-based row r at bit r - 1) hold a present value: one bit per row, so a
+    /// pair of items never answered together is found without keeping any value.
+    pub observed: Vec<u64>,
+}
+
+impl ColumnScan {
+    /// Whether this column and `other` (of the same file) have a row where both are present.
+    pub fn observed_with(&self, other: &ColumnScan) -> bool {
+        self.observed.iter().zip(&other.observed).any(|(a, b)| a & b != 0)
+    }
 }
 
 impl ColumnScan {
@@ -78,6 +88,13 @@ impl ColumnScan {
             self.outside_reverse.add(row, line, || v.to_string());
         }
         self.present += 1;
+        if row > 0 {
+            let (word, bit) = ((row - 1) / 64, (row - 1) % 64);
+            if self.observed.len() <= word {
+                self.observed.resize(word + 1, 0);
+            }
+            self.observed[word] |= 1 << bit;
+        }
         if self.non_integer.is_none() && v.fract() != 0.0 {
             self.non_integer = Some(v);
         }

@@ -134,6 +134,12 @@ pub enum SpecProblem {
     DataOrdinalNonInteger { item: String, value: f64 },
     #[error("item `{item}` is listed as ordinal but has more than {max} distinct values")]
     DataOrdinalLevels { item: String, max: usize },
+    #[error("item `{item}` is missing in {percent}% of rows ({waves})")]
+    DataMostlyMissing { item: String, percent: usize, waves: String },
+    #[error(
+        "items `{first}` and `{second}` are never answered by the same respondent, so no method can estimate their covariance"
+    )]
+    DataNeverTogether { first: String, second: String },
 }
 
 impl SpecProblem {
@@ -184,6 +190,12 @@ impl SpecProblem {
             DataOrdinalNonInteger { .. } | DataOrdinalLevels { .. } => {
                 Some("remove the item from `data.ordinal`, so it is read as continuous".into())
             }
+            DataMostlyMissing { .. } => Some(
+                "estimates involving the item rest on few answers; with `covariance: {missing: fiml}` the other answers of its respondents help, if values are missing at random".into(),
+            ),
+            DataNeverTogether { .. } => Some(
+                "with a planned-missing design, make sure every pair of items is asked of some respondents together; otherwise drop one of the two".into(),
+            ),
             ItemInTwoConstructs { .. } => {
                 Some("an item can indicate only one declared construct; purification looks for cross-loadings".into())
             }
@@ -200,6 +212,7 @@ impl SpecProblem {
                 | SpecProblem::UnusualAlpha { .. }
                 | SpecProblem::ScaleScore { .. }
                 | SpecProblem::CoarsenedSingleIndicator { .. }
+                | SpecProblem::DataMostlyMissing { .. }
         )
     }
 }

@@ -233,12 +233,15 @@ pub fn mcar(load: &LoadOutput, table: &Table) -> Result<Option<McarRecord>, Step
         Ok(e) => e,
         Err(e) => return skip(format!("not run: {e}")),
     };
-    let ordinal = load.item_kinds().iter().any(|k| *k == ItemKind::Ordinal);
+    let ordinal = load.item_kinds().contains(&ItemKind::Ordinal);
     let note = ordinal.then(|| "ordinal items enter by their response codes (normal-theory approximation)".to_string());
-    Ok(match missing::little_mcar(&views, &patterns, &est).map_err(stats("Little's MCAR test"))? {
-        Some(t) => Some(McarRecord { stat: Some(t.stat), df: Some(t.df), p: Some(t.p), patterns: t.patterns, note }),
-        None => None,
-    })
+    Ok(missing::little_mcar(&views, &patterns, &est).map_err(stats("Little's MCAR test"))?.map(|t| McarRecord {
+        stat: Some(t.stat),
+        df: Some(t.df),
+        p: Some(t.p),
+        patterns: t.patterns,
+        note,
+    }))
 }
 
 /// What `fiml` estimated: the matrices, the rows behind them, the record.

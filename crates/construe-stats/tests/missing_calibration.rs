@@ -6,8 +6,10 @@
 //!   with the two-stage sampling covariance (`missing::TwoStage`, robust);
 //! - 5-point items: multiple imputation under the latent-normal model (`impute`), the CFA
 //!   fitted by DWLS to the pooled polychoric correlations, V by Rubin's rules (`Pooled`).
+//!
 //! Measured: mean latent correlation and loadings (bias) and 95% interval coverage of the
 //! latent correlation; pairwise deletion's bias is shown beside it.
+//!
 //! Short versions always run; the long ones are ignored:
 //! `cargo test -p construe-stats --test missing_calibration -- --ignored --nocapture` (the numerics
 //! are optimised in the test profile).
