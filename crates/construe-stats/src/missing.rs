@@ -132,37 +132,53 @@ pub fn em(columns: &[&[f64]], options: &EmOptions) -> Result<EmEstimate, StatsEr
     em_patterns(columns, &patterns, options)
 }
 
-/// Each pattern's sums of its answered values, Σ y_o and Σ y_o y_o' (fixed across EM
-/// iterations, so an iteration costs O(patterns · p³), not O(n · p²)).
-struct PatternStats(Vec<PatternSums>);
+/// What EM needs of each pattern's answered values: their sum Σ y_o, and their cross-products
+/// Σ y_o y_o' when the pattern has more rows than answered items (then the matrix is no larger
+/// than the rows it summarizes, so memory stays within the data's size however many patterns
+/// there are; rarer patterns are read row by row in each iteration). The observed values' own
+/// contribution to the sufficient statistics never changes and is summed once (`fixed`).
+struct PatternStats {
+    sums: Vec<PatternSums>,
+    /// Σ over rows of the answered entries of y and of y y' (p and p x p).
+    fixed_sum: DVector<f64>,
+    fixed_cross: DMatrix<f64>,
+}
 
 struct PatternSums {
     sum: DVector<f64>,
-    cross: DMatrix<f64>,
+    cross: Option<DMatrix<f64>>,
 }
 
 impl PatternStats {
     fn new(columns: &[&[f64]], patterns: &Patterns) -> Self {
-        PatternStats(
-            patterns
-                .groups
-                .iter()
-                .map(|(o, rows)| {
-                    let mut sum = DVector::zeros(o.len());
-                    let mut cross = DMatrix::zeros(o.len(), o.len());
-                    let mut y = DVector::zeros(o.len());
-                    for &i in rows {
-                        for (a, &j) in o.iter().enumerate() {
-                            y[a] = columns[j][i];
-                        }
-                        sum += &y;
-                        cross.syger(1.0, &y, &y, 1.0);
+        let p = patterns.p;
+        let mut fixed_sum = DVector::zeros(p);
+        let mut fixed_cross = DMatrix::zeros(p, p);
+        let sums = patterns
+            .groups
+            .iter()
+            .map(|(o, rows)| {
+                let mut sum = DVector::zeros(o.len());
+                let mut cross = DMatrix::zeros(o.len(), o.len());
+                let mut y = DVector::zeros(o.len());
+                for &i in rows {
+                    for (a, &j) in o.iter().enumerate() {
+                        y[a] = columns[j][i];
                     }
-                    cross.fill_upper_triangle_with_lower_triangle();
-                    PatternSums { sum, cross }
-                })
-                .collect(),
-        )
+                    sum += &y;
+                    cross.syger(1.0, &y, &y, 1.0);
+                }
+                cross.fill_upper_triangle_with_lower_triangle();
+                for (a, &j) in o.iter().enumerate() {
+                    fixed_sum[j] += sum[a];
+                    for (b, &l) in o.iter().enumerate() {
+                        fixed_cross[(j, l)] += cross[(a, b)];
+                    }
+                }
+                PatternSums { sum, cross: (rows.len() > o.len()).then_some(cross) }
+            })
+            .collect();
+        PatternStats { sums, fixed_sum, fixed_cross }
     }
 }
 
@@ -193,22 +209,15 @@ pub fn em_patterns(columns: &[&[f64]], patterns: &Patterns, options: &EmOptions)
     let mut converged = false;
     while iterations < options.max_iterations {
         iterations += 1;
-        let mut t1 = DVector::zeros(p);
-        let mut t2 = DMatrix::zeros(p, p);
+        let mut t1 = stats.fixed_sum.clone();
+        let mut t2 = stats.fixed_cross.clone();
         let precision = inverse(&cov)?.0;
-        for ((o, rows), st) in patterns.groups.iter().zip(&stats.0) {
-            let m: Vec<usize> = (0..p).filter(|j| !o.contains(j)).collect();
-            let count = rows.len() as f64;
-            // Observed part: the pattern's own sums.
-            for (a, &j) in o.iter().enumerate() {
-                t1[j] += st.sum[a];
-                for (b, &l) in o.iter().enumerate() {
-                    t2[(j, l)] += st.cross[(a, b)];
-                }
-            }
-            if m.is_empty() {
+        for ((o, rows), st) in patterns.groups.iter().zip(&stats.sums) {
+            if o.len() == p {
                 continue;
             }
+            let m: Vec<usize> = (0..p).filter(|j| !o.contains(j)).collect();
+            let count = rows.len() as f64;
             // y_m | y_o ~ N(μ_m + β (y_o − μ_o), C) with C = (K_mm)⁻¹ and β = −C K_mo
             // (K = Σ⁻¹; Little & Rubin 2002, §11.2), so with a = μ_m − β μ_o and the
             // pattern's sums S1 = Σ y_o, S2 = Σ y_o y_o':
@@ -220,13 +229,33 @@ pub fn em_patterns(columns: &[&[f64]], patterns: &Patterns, options: &EmOptions)
             let mu_m = DVector::from_iterator(m.len(), m.iter().map(|&j| mean[j]));
             let a_vec = mu_m - &beta * mu_o;
             let b_s1 = &beta * &st.sum;
-            let b_s2 = &beta * &st.cross;
             let sum_m = &a_vec * count + &b_s1;
-            let cross_mo = &a_vec * st.sum.transpose() + &b_s2;
-            let cross_mm = (&a_vec * a_vec.transpose() + &cond) * count
-                + &a_vec * b_s1.transpose()
-                + &b_s1 * a_vec.transpose()
-                + &b_s2 * beta.transpose();
+            let (cross_mo, cross_mm) = match &st.cross {
+                Some(cross) => {
+                    let b_s2 = &beta * cross;
+                    let cross_mo = &a_vec * st.sum.transpose() + &b_s2;
+                    let cross_mm = (&a_vec * a_vec.transpose() + &cond) * count
+                        + &a_vec * b_s1.transpose()
+                        + &b_s1 * a_vec.transpose()
+                        + &b_s2 * beta.transpose();
+                    (cross_mo, cross_mm)
+                }
+                None => {
+                    // Few rows: each row's prediction ŷ_m = a + β y_o directly.
+                    let mut cross_mo = DMatrix::zeros(m.len(), o.len());
+                    let mut cross_mm = &cond * count;
+                    let mut y = DVector::zeros(o.len());
+                    for &i in rows {
+                        for (a, &j) in o.iter().enumerate() {
+                            y[a] = columns[j][i];
+                        }
+                        let y_hat = &a_vec + &beta * &y;
+                        cross_mo += &y_hat * y.transpose();
+                        cross_mm += &y_hat * y_hat.transpose();
+                    }
+                    (cross_mo, cross_mm)
+                }
+            };
             for (a, &j) in m.iter().enumerate() {
                 t1[j] += sum_m[a];
                 for (b, &l) in o.iter().enumerate() {
