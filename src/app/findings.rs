@@ -240,10 +240,11 @@ fn sensitivity_point(r: &Value, points: &mut Vec<Value>, cautions: &mut Vec<Stri
         )
     } else {
         format!(
-            "Of {} conclusions tracked over the reliabilities of {}, {} depend on the assumed measurement error: {}.",
+            "Of {} conclusions tracked over the reliabilities of {}, {} {} on the assumed measurement error: {}.",
             conclusions.len(),
             list(&ranges),
             tipping.len(),
+            if tipping.len() == 1 { "depends" } else { "depend" },
             tipping.join("; ")
         )
     };

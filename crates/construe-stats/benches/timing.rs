@@ -27,6 +27,9 @@ fn main() {
     if wanted("cfa") {
         cfa();
     }
+    if wanted("em") {
+        em_mar(100_000, 50);
+    }
     // `acov` alone runs both sizes; `acov100` / `acov500` one; `acov-export DIR` writes the
     // numpy peer's inputs (never part of a default run: it writes 400 MB).
     if only.is_empty() || only.iter().any(|o| o == "acov" || o == "acov100") {
@@ -39,6 +42,38 @@ fn main() {
         let dir = only.get(at + 1).expect("acov-export needs a folder");
         acov(100, 10_000, Some(std::path::Path::new(dir)));
     }
+}
+
+/// Issue 17's performance target: `n` rows x `p` continuous items (one factor, loadings 0.7)
+/// with about 30% of the values of items 1.. missing, more often where item 0 is high (MAR):
+/// EM for the mean and covariance. Prints the patterns, iterations and time.
+fn em_mar(n: usize, p: usize) {
+    use construe_stats::missing::{EmOptions, Patterns, em_patterns};
+    use rand::Rng;
+    let mut rng = seeded(17);
+    let sigma = DMatrix::from_fn(p, p, |i, j| if i == j { 1.0 } else { 0.49 });
+    let x = draw_normal(&sigma, n, &mut rng);
+    let mut cols: Vec<Vec<f64>> = (0..p).map(|j| x.column(j).iter().copied().collect()).collect();
+    for i in 0..n {
+        let rate = if x[(i, 0)] > 0.0 { 0.5 } else { 0.1 };
+        for col in cols.iter_mut().skip(1) {
+            if rng.random::<f64>() < rate {
+                col[i] = f64::NAN;
+            }
+        }
+    }
+    let views: Vec<&[f64]> = cols.iter().map(Vec::as_slice).collect();
+    let t0 = std::time::Instant::now();
+    let patterns = Patterns::new(&views).unwrap();
+    let est = em_patterns(&views, &patterns, &EmOptions::default()).unwrap();
+    let secs = t0.elapsed().as_secs_f64();
+    println!(
+        "em {n} x {p}, {} patterns: {} iterations, converged {}, {secs:.2} s ({:.3} s per iteration)",
+        patterns.len(),
+        est.iterations,
+        est.converged,
+        secs / est.iterations as f64
+    );
 }
 
 /// Issue 15's performance target: `p` five-point items x `n` rows, polychoric correlations,
