@@ -263,6 +263,12 @@ pub fn em_patterns(columns: &[&[f64]], patterns: &Patterns, options: &EmOptions)
     })
 }
 
+/// A pattern (answered items, rows) with its sums.
+type PatternRef<'a> = (&'a (Vec<usize>, Vec<usize>), &'a PatternSums);
+
+/// Sufficient statistics: Σ y and Σ y y'.
+type Moments = (DVector<f64>, DMatrix<f64>);
+
 /// Patterns per parallel chunk of an EM step (the chunks' sums are added in chunk order, so
 /// the result does not depend on the thread count).
 const EM_CHUNK: usize = 256;
@@ -279,8 +285,8 @@ fn em_step(
     let p = patterns.p;
     let n = patterns.used_rows();
     let precision = inverse(cov)?.0;
-    let pairs: Vec<(&(Vec<usize>, Vec<usize>), &PatternSums)> = patterns.groups.iter().zip(&stats.sums).collect();
-    let partial: Vec<Result<(DVector<f64>, DMatrix<f64>), StatsError>> = pairs
+    let pairs: Vec<PatternRef<'_>> = patterns.groups.iter().zip(&stats.sums).collect();
+    let partial: Vec<Result<Moments, StatsError>> = pairs
         .par_chunks(EM_CHUNK)
         .map(|chunk| {
             let mut t1 = DVector::zeros(p);
