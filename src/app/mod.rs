@@ -7,6 +7,7 @@ pub mod context;
 pub mod diff;
 pub mod lints;
 pub mod plan;
+pub mod power;
 pub mod run;
 pub mod schema;
 pub mod simulate;
@@ -42,6 +43,8 @@ pub enum AppError {
     Report(#[from] ReportError),
     #[error(transparent)]
     Simulate(#[from] simulate::SimulateError),
+    #[error(transparent)]
+    Power(#[from] power::PowerError),
 }
 
 impl AppError {
@@ -53,6 +56,7 @@ impl AppError {
             AppError::Pipeline(PipelineError::Internal(_)) => Exit::Bug,
             AppError::Pipeline(_) | AppError::Report(_) => Exit::Failed,
             AppError::Simulate(e) => e.exit(),
+            AppError::Power(e) => e.exit(),
         }
     }
 
@@ -67,6 +71,7 @@ impl AppError {
                 Some((*hint).to_string())
             }
             AppError::Simulate(e) => e.hint(),
+            AppError::Power(e) => e.hint(),
             _ => None,
         }
     }
