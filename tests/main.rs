@@ -13,6 +13,7 @@ mod diff;
 mod faults;
 mod guard;
 mod inputs;
+mod power;
 mod reference;
 mod report;
 mod robustness;

@@ -97,6 +97,10 @@ impl PowerError {
             PowerError::Shard { .. } => Some(format!(
                 "`--shard K/N` computes the K-th of N shares, 1 <= K <= N <= {MAX_SHARDS} (in a Slurm array: `--shard $((SLURM_ARRAY_TASK_ID + 1))/$SLURM_ARRAY_TASK_COUNT`)"
             )),
+            PowerError::Target { .. } => {
+                Some("the share of replicates that must recover the structure, e.g. `--target 0.9` for 90%".into())
+            }
+            PowerError::Seed { .. } => Some("any whole number; the same seed gives the same study".into()),
             PowerError::TooMany { .. } => Some("use fewer sizes or replicates, or run several studies".into()),
             PowerError::MatrixSpec { .. } => Some("give the spec `data.waves`; the waves' files need not exist".into()),
             _ => None,
