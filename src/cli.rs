@@ -375,6 +375,15 @@ fn power_command(args: &PowerArgs, cache: &Cache) -> Result<Exit, AppError> {
         eprintln!("warning: {w}");
     }
     let counts = format!("{} computed, {} reused", plural(summary.computed, "replicate"), summary.reused);
+    if summary.computed > 0 {
+        tracing::info!(
+            drawing_seconds = summary.drawing_seconds,
+            analysis_seconds = summary.analysis_seconds,
+            "computed replicates: drawing and loading {:.2} s, analyses {:.2} s",
+            summary.drawing_seconds,
+            summary.analysis_seconds
+        );
+    }
     match (&summary.outcome, shard) {
         (None, Some(s)) => eprintln!("shard {}/{}: {counts}; no report written (run without `--shard` to write it)", s.k, s.of),
         (Some(WriteOutcome::Written { version, dir }), _) => {

@@ -207,6 +207,10 @@ pub struct PowerSummary {
     /// `None` for a shard (which writes no report).
     pub outcome: Option<crate::report::WriteOutcome>,
     pub warnings: Vec<String>,
+    /// Seconds (summed over threads) computed replicates spent drawing and loading their data,
+    /// and in the analysis steps.
+    pub drawing_seconds: f64,
+    pub analysis_seconds: f64,
 }
 
 /// What one replicate's analysis found: the cached unit of a study.
@@ -233,6 +237,20 @@ pub struct EffectEstimate {
     pub se: Option<f64>,
     pub ci: [Option<f64>; 2],
     pub std: Option<f64>,
+}
+
+/// Time spent in computed replicates (summed over threads), in nanoseconds: drawing and
+/// loading the data, and the analysis steps. Reported, never part of a result.
+#[derive(Default)]
+struct Timing {
+    drawing: std::sync::atomic::AtomicU64,
+    analysis: std::sync::atomic::AtomicU64,
+}
+
+impl Timing {
+    fn add(&self, slot: &std::sync::atomic::AtomicU64, d: std::time::Duration) {
+        slot.fetch_add(u64::try_from(d.as_nanos()).unwrap_or(u64::MAX), Ordering::Relaxed);
+    }
 }
 
 /// Everything fixed for a study: the model, its truth, the steps, and how keys are made.
@@ -264,8 +282,8 @@ impl Study {
         }))
     }
 
-    fn compute(&self, n: usize, replicate: usize) -> ReplicateSummary {
-        match self.analyse(n, replicate) {
+    fn compute(&self, n: usize, replicate: usize, timing: &Timing) -> ReplicateSummary {
+        match self.analyse(n, replicate, timing) {
             Ok(s) => s,
             Err(reason) => ReplicateSummary {
                 failure: Some(reason),
@@ -279,7 +297,8 @@ impl Study {
         }
     }
 
-    fn analyse(&self, n: usize, replicate: usize) -> Result<ReplicateSummary, String> {
+    fn analyse(&self, n: usize, replicate: usize, timing: &Timing) -> Result<ReplicateSummary, String> {
+        let started = std::time::Instant::now();
         let table = self.model.draw(n, replicate_seed(self.seed, n as u64, replicate)).map_err(|e| e.to_string())?;
         let columns: Vec<Column> = self
             .columns
@@ -294,8 +313,11 @@ impl Study {
         let load = self.load.load_drawn("simulated", "simulated replicate", columns).map_err(|e| e.to_string())?;
         let mut artifacts = BTreeMap::new();
         artifacts.insert(StepKind::Load, Artifact::Load(Box::new(load)));
-        run_chain(self.chain.iter().map(|s| s.as_ref()), &mut artifacts, &mut Compute, &NoProgress)
-            .map_err(|e| e.to_string())?;
+        let drawn = std::time::Instant::now();
+        timing.add(&timing.drawing, drawn - started);
+        let chain = run_chain(self.chain.iter().map(|s| s.as_ref()), &mut artifacts, &mut Compute, &NoProgress);
+        timing.add(&timing.analysis, drawn.elapsed());
+        chain.map_err(|e| e.to_string())?;
         let mut out = ReplicateSummary {
             failure: None,
             converged: true,
@@ -440,6 +462,7 @@ pub fn power(req: &PowerRequest<'_>, cache: &Cache, progress: &dyn StudyProgress
         .map(|(_, job)| job)
         .collect();
     let computed = AtomicUsize::new(0);
+    let timing = Timing::default();
     let damaged = std::sync::Mutex::new(Vec::new());
     progress.start(jobs.len());
     let results: Vec<Result<(Key, ReplicateSummary), PowerError>> = jobs
@@ -462,7 +485,7 @@ pub fn power(req: &PowerRequest<'_>, cache: &Cache, progress: &dyn StudyProgress
                     s
                 }
                 None => {
-                    let s = study.compute(n, r);
+                    let s = study.compute(n, r, &timing);
                     let mut bytes = Vec::new();
                     write_exact(&mut bytes, &s).map_err(|source| PowerError::Cache {
                         cache: cache.root().unwrap_or(Path::new("")).into(),
@@ -490,8 +513,10 @@ pub fn power(req: &PowerRequest<'_>, cache: &Cache, progress: &dyn StudyProgress
     let results = results.into_iter().collect::<Result<Vec<_>, _>>()?;
     let computed = computed.into_inner();
     let reused = results.len() - computed;
+    let seconds = |slot: &std::sync::atomic::AtomicU64| slot.load(Ordering::Relaxed) as f64 * 1e-9;
+    let (drawing_seconds, analysis_seconds) = (seconds(&timing.drawing), seconds(&timing.analysis));
     if req.shard.is_some() {
-        return Ok(PowerSummary { computed, reused, outcome: None, warnings });
+        return Ok(PowerSummary { computed, reused, outcome: None, warnings, drawing_seconds, analysis_seconds });
     }
     let summaries: Vec<&ReplicateSummary> = results.iter().map(|(_, s)| s).collect();
     let table = aggregate(&study.truth, &req.sizes, req.replicates, &summaries, req.target, &study.load.items());
@@ -515,7 +540,7 @@ pub fn power(req: &PowerRequest<'_>, cache: &Cache, progress: &dyn StudyProgress
         with_sensitivity: req.with_sensitivity,
     };
     let outcome = crate::report::power::write_study(req.out, &study_info, &table)?;
-    Ok(PowerSummary { computed, reused, outcome: Some(outcome), warnings })
+    Ok(PowerSummary { computed, reused, outcome: Some(outcome), warnings, drawing_seconds, analysis_seconds })
 }
 
 /// What the report and manifest say about the study's inputs.
