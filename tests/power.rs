@@ -77,6 +77,15 @@ fn sharded_and_merged_equals_unsharded_bit_for_bit() {
     assert_eq!(r["power"]["edges"].as_array().unwrap().len(), 5);
     assert!(case.read("one/v1/report.html").contains("<svg"));
     assert!(case.read("one/v1/report.md").contains("True paths recovered"));
+    // `verify` recomputes the study without the cache, from another working directory too.
+    case.run(["verify", "one/v1"]).success().stderr_contains("verified");
+    let sub = case.path().join("elsewhere");
+    std::fs::create_dir_all(&sub).unwrap();
+    let out = std::process::Command::new(env!("CARGO_BIN_EXE_construe")).args(["verify", "../two/v1"]).current_dir(&sub).output().unwrap();
+    assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+    let tampered = case.read("two/v1/results.json").replacen("\"replicates\": 4", "\"replicates\": 5", 1);
+    std::fs::write(case.path().join("two/v1/results.json"), tampered).unwrap();
+    case.run(["verify", "two/v1"]).failure(1).stdout_contains("MISMATCH");
 }
 
 #[test]

@@ -442,6 +442,22 @@ fn setup(req: &PowerRequest<'_>, warnings: &mut Vec<String>) -> Result<(Study, S
 /// Runs (or completes from the cache) a design study; unsharded, writes a report version
 /// under `req.out`.
 pub fn power(req: &PowerRequest<'_>, cache: &Cache, progress: &dyn StudyProgress) -> Result<PowerSummary, PowerError> {
+    let (summary, study) = compute_study(req, cache, progress)?;
+    match study {
+        Some((info, table)) => {
+            let outcome = crate::report::power::write_study(req.out, &info, &table)?;
+            Ok(PowerSummary { outcome: Some(outcome), ..summary })
+        }
+        None => Ok(summary),
+    }
+}
+
+/// Computes (or finds in the cache) the request's replicates; unsharded, also aggregates them.
+fn compute_study(
+    req: &PowerRequest<'_>,
+    cache: &Cache,
+    progress: &dyn StudyProgress,
+) -> Result<(PowerSummary, Option<(StudyInfo, PowerTable)>), PowerError> {
     let total = req.sizes.len() * req.replicates;
     if total > MAX_TOTAL {
         return Err(PowerError::TooMany {
@@ -515,8 +531,9 @@ pub fn power(req: &PowerRequest<'_>, cache: &Cache, progress: &dyn StudyProgress
     let reused = results.len() - computed;
     let seconds = |slot: &std::sync::atomic::AtomicU64| slot.load(Ordering::Relaxed) as f64 * 1e-9;
     let (drawing_seconds, analysis_seconds) = (seconds(&timing.drawing), seconds(&timing.analysis));
+    let summary = PowerSummary { computed, reused, outcome: None, warnings, drawing_seconds, analysis_seconds };
     if req.shard.is_some() {
-        return Ok(PowerSummary { computed, reused, outcome: None, warnings, drawing_seconds, analysis_seconds });
+        return Ok((summary, None));
     }
     let summaries: Vec<&ReplicateSummary> = results.iter().map(|(_, s)| s).collect();
     let table = aggregate(&study.truth, &req.sizes, req.replicates, &summaries, req.target, &study.load.items());
@@ -538,9 +555,77 @@ pub fn power(req: &PowerRequest<'_>, cache: &Cache, progress: &dyn StudyProgress
         replicates_digest: Key(*digest.finalize().as_bytes()),
         with_resampling: req.with_resampling,
         with_sensitivity: req.with_sensitivity,
+        model_from_report: None,
+        spec_from_report: None,
     };
-    let outcome = crate::report::power::write_study(req.out, &study_info, &table)?;
-    Ok(PowerSummary { computed, reused, outcome: Some(outcome), warnings, drawing_seconds, analysis_seconds })
+    Ok((summary, Some((study_info, table))))
+}
+
+/// `construe verify` of a study version: recomputes every replicate without the cache from the
+/// model and spec the manifest names (found relative to the version folder first, then as
+/// recorded), checks the inputs' hashes and the fingerprint, renders every file again and
+/// compares bytes.
+pub fn verify_study(
+    dir: &Path,
+    manifest: &crate::report::power::PowerManifest,
+) -> Result<super::verify::Verification, PowerError> {
+    use super::verify::Check;
+    let locate = |record: &crate::report::power::InputRecord| -> PathBuf {
+        record
+            .from_report
+            .as_ref()
+            .map(|r| crate::spec::lexical_clean(&dir.join(r)))
+            .filter(|p| p.exists())
+            .unwrap_or_else(|| PathBuf::from(&record.path))
+    };
+    let (model, spec) = (locate(&manifest.model), locate(&manifest.spec));
+    let s = &manifest.settings;
+    let sizes: Vec<usize> =
+        s["sizes"].as_array().map(|a| a.iter().filter_map(|v| v.as_u64()).map(|v| v as usize).collect()).unwrap_or_default();
+    let flag = |k: &str| s[k].as_bool().unwrap_or(false);
+    let req = PowerRequest {
+        model: &model,
+        spec: &spec,
+        sizes,
+        replicates: s["replicates"].as_u64().unwrap_or(0) as usize,
+        seed: s["seed"].as_u64(),
+        out: dir,
+        target: s["target"].as_f64().unwrap_or(0.8),
+        shard: None,
+        with_resampling: flag("with_resampling"),
+        with_sensitivity: flag("with_sensitivity"),
+    };
+    let mut checks = Vec::new();
+    let mut check = |what: &str, ok: bool, detail: String| checks.push(Check { what: what.into(), ok, detail });
+    let (_, study) = compute_study(&req, &Cache::disabled(), &NoStudyProgress)?;
+    let Some((mut info, table)) = study else { return Ok(super::verify::Verification { checks }) };
+    check("model", info.model_hash == manifest.model.hash, format!("{} ({})", model.display(), info.model_hash.short()));
+    check("spec", info.spec_content == manifest.spec.hash, format!("{} ({})", spec.display(), info.spec_content.short()));
+    check(
+        "replicates",
+        info.replicates_digest == manifest.replicates_digest,
+        format!("{} recomputed without the cache", table.sizes.len() * table.replicates),
+    );
+    info.model_path = manifest.model.path.clone();
+    info.spec_path = manifest.spec.path.clone();
+    let fingerprint = crate::report::power::fingerprint(&info, &table);
+    check("fingerprint", fingerprint == manifest.fingerprint, fingerprint.short());
+    let files = crate::report::power::render_study(&info, &table, manifest)?;
+    for (name, text) in &files {
+        let on_disk = std::fs::read(dir.join(name)).ok();
+        let recorded = manifest.files.get(*name);
+        let ok = on_disk.as_deref() == Some(text.as_bytes()) && recorded == Some(&Key::of_bytes(text.as_bytes()));
+        let detail = match on_disk {
+            None => "missing".into(),
+            Some(_) if ok => "identical".into(),
+            Some(_) => "differs from the recomputed file".into(),
+        };
+        check(name, ok, detail);
+    }
+    for name in manifest.files.keys().filter(|k| files.iter().all(|(n, _)| n != *k)) {
+        check(name, false, "listed in the manifest but not produced by this study".into());
+    }
+    Ok(super::verify::Verification { checks })
 }
 
 /// What the report and manifest say about the study's inputs.
@@ -556,6 +641,9 @@ pub struct StudyInfo {
     pub replicates_digest: Key,
     pub with_resampling: bool,
     pub with_sensitivity: bool,
+    /// The model and spec relative to the version folder (set when the folder is known).
+    pub model_from_report: Option<String>,
+    pub spec_from_report: Option<String>,
 }
 
 /// A share with its Monte Carlo standard error, sqrt(p (1 - p) / m).

@@ -46,7 +46,11 @@ pub struct PowerManifest {
 
 #[derive(Debug, Clone, Serialize, Deserialize)]
 pub struct InputRecord {
+    /// As given on the command line.
     pub path: String,
+    /// Relative to the version folder, for `verify` from another working directory.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub from_report: Option<String>,
     /// The model file's bytes; the spec's parsed content (comments and key order aside).
     pub hash: Key,
 }
@@ -294,14 +298,8 @@ pub fn recovery_plot(t: &PowerTable) -> Option<String> {
     Some(s)
 }
 
-/// Writes a new version under `out` unless the latest has the same fingerprint.
-pub fn write_study(out: &Path, info: &StudyInfo, table: &PowerTable) -> Result<WriteOutcome, ReportError> {
-    let io = |action: &'static str, path: &Path| {
-        let path = path.to_path_buf();
-        move |source| ReportError::Io { action, path, source }
-    };
-    std::fs::create_dir_all(out).map_err(io("create report folder", out))?;
-    let settings = json!({
+fn settings(info: &StudyInfo, table: &PowerTable) -> Value {
+    json!({
         "sizes": table.sizes,
         "replicates": table.replicates,
         "seed": info.seed,
@@ -309,15 +307,37 @@ pub fn write_study(out: &Path, info: &StudyInfo, table: &PowerTable) -> Result<W
         "steps": info.chain,
         "with_resampling": info.with_resampling,
         "with_sensitivity": info.with_sensitivity,
-    });
-    let fingerprint = Key::of_json(&json!({
+    })
+}
+
+/// What makes two study versions the same: tool, inputs, settings and every replicate.
+pub fn fingerprint(info: &StudyInfo, table: &PowerTable) -> Key {
+    Key::of_json(&json!({
         "tool": env!("CARGO_PKG_VERSION"),
         "model": info.model_hash,
         "spec": info.spec_content,
-        "settings": settings,
+        "settings": settings(info, table),
         "replicates": info.replicates_digest,
         "results_format": POWER_RESULTS_FORMAT,
-    }));
+    }))
+}
+
+/// The study manifest in a version folder, if it has one.
+pub fn read_study_manifest(dir: &Path) -> Option<PowerManifest> {
+    let text = crate::fsguard::read_regular_text(&dir.join("manifest.json"), crate::fsguard::MAX_TEXT_BYTES).ok()?;
+    let m: PowerManifest = serde_json::from_str(&text).ok()?;
+    (m.kind == "power").then_some(m)
+}
+
+/// Writes a new version under `out` unless the latest has the same fingerprint.
+pub fn write_study(out: &Path, info: &StudyInfo, table: &PowerTable) -> Result<WriteOutcome, ReportError> {
+    let io = |action: &'static str, path: &Path| {
+        let path = path.to_path_buf();
+        move |source| ReportError::Io { action, path, source }
+    };
+    std::fs::create_dir_all(out).map_err(io("create report folder", out))?;
+    let settings = settings(info, table);
+    let fingerprint = fingerprint(info, table);
     let (highest, latest) = survey(out);
     if let Some((n, m)) = latest
         && m.fingerprint == fingerprint
@@ -325,14 +345,22 @@ pub fn write_study(out: &Path, info: &StudyInfo, table: &PowerTable) -> Result<W
         return Ok(WriteOutcome::Unchanged { version: n, dir: out.join(format!("v{n}")) });
     }
     let version = highest + 1;
+    let final_dir = out.join(format!("v{version}"));
+    let from_report = |p: &str| {
+        crate::app::verify::relative_path(&final_dir, Path::new(p)).map(|r| r.display().to_string())
+    };
     let mut manifest = PowerManifest {
         manifest_format: POWER_MANIFEST_FORMAT,
         kind: "power".into(),
         tool_version: env!("CARGO_PKG_VERSION").into(),
         created: crate::pipeline::manifest::now_utc(),
         report_version: version,
-        model: InputRecord { path: info.model_path.clone(), hash: info.model_hash },
-        spec: InputRecord { path: info.spec_path.clone(), hash: info.spec_content },
+        model: InputRecord {
+            path: info.model_path.clone(),
+            from_report: from_report(&info.model_path),
+            hash: info.model_hash,
+        },
+        spec: InputRecord { path: info.spec_path.clone(), from_report: from_report(&info.spec_path), hash: info.spec_content },
         settings,
         replicates_digest: info.replicates_digest,
         fingerprint,
@@ -354,7 +382,6 @@ pub fn write_study(out: &Path, info: &StudyInfo, table: &PowerTable) -> Result<W
         use std::os::unix::fs::PermissionsExt;
         let _ = std::fs::set_permissions(staging.path(), std::fs::Permissions::from_mode(0o755));
     }
-    let final_dir = out.join(format!("v{version}"));
     std::fs::rename(staging.path(), &final_dir).map_err(io("publish report folder", &final_dir))?;
     let _ = staging.keep();
     Ok(WriteOutcome::Written { version, dir: final_dir })
