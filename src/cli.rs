@@ -385,7 +385,9 @@ fn power_command(args: &PowerArgs, cache: &Cache) -> Result<Exit, AppError> {
         );
     }
     match (&summary.outcome, shard) {
-        (None, Some(s)) => eprintln!("shard {}/{}: {counts}; no report written (run without `--shard` to write it)", s.k, s.of),
+        (None, Some(s)) => {
+            eprintln!("shard {}/{}: {counts}; no report written (run without `--shard` to write it)", s.k, s.of)
+        }
         (Some(WriteOutcome::Written { version, dir }), _) => {
             eprintln!("wrote study v{version} to {} ({counts})", dir.display());
             println!("{}", dir.display());
@@ -446,7 +448,7 @@ impl crate::app::power::StudyProgress for StudyBar {
         let total = self.total.load(std::sync::atomic::Ordering::Relaxed);
         let done = self.done.fetch_add(by, std::sync::atomic::Ordering::Relaxed) + by;
         let tenth = total.div_ceil(10).max(1);
-        if total >= 20 && done % tenth == 0 && done < total {
+        if total >= 20 && done.is_multiple_of(tenth) && done < total {
             let secs = self.started.elapsed().as_secs_f64();
             let rate = done as f64 / secs.max(1e-9);
             eprintln!(

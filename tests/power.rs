@@ -35,7 +35,12 @@ fn cache_entries(dir: &Path) -> Vec<std::path::PathBuf> {
     // Finished entries only: a killed writer may leave a temporary file beside them.
     walk(dir)
         .into_iter()
-        .filter(|p| p.is_file() && p.file_name().and_then(|n| n.to_str()).is_some_and(|n| n.len() == 64 && n.bytes().all(|b| b.is_ascii_hexdigit())))
+        .filter(|p| {
+            p.is_file()
+                && p.file_name()
+                    .and_then(|n| n.to_str())
+                    .is_some_and(|n| n.len() == 64 && n.bytes().all(|b| b.is_ascii_hexdigit()))
+        })
         .collect()
 }
 
@@ -59,11 +64,27 @@ fn sharded_and_merged_equals_unsharded_bit_for_bit() {
     merged.success();
     assert_eq!(counts(&merged.stderr), (0, 8), "the merge computed nothing");
     assert_eq!(case.read("one/v1/results.json"), case.read("two/v1/results.json"));
-    let fp = |d: &str| serde_json::from_str::<Value>(&case.read(&format!("{d}/v1/manifest.json"))).unwrap()["fingerprint"].clone();
+    let fp = |d: &str| {
+        serde_json::from_str::<Value>(&case.read(&format!("{d}/v1/manifest.json"))).unwrap()["fingerprint"].clone()
+    };
     assert_eq!(fp("one"), fp("two"));
     // The same study again writes nothing; so does a rerun with the thread count changed.
     let again = case.run_env(
-        ["power", "t/model.yaml", "t/spec.yaml", "--n", "200,400", "--replicates", "4", "--seed", "9", "--out", "one", "--cache", "c1"],
+        [
+            "power",
+            "t/model.yaml",
+            "t/spec.yaml",
+            "--n",
+            "200,400",
+            "--replicates",
+            "4",
+            "--seed",
+            "9",
+            "--out",
+            "one",
+            "--cache",
+            "c1",
+        ],
         &[("RAYON_NUM_THREADS", "1")],
     );
     again.success().stderr_contains("nothing changed since v1");
@@ -81,7 +102,11 @@ fn sharded_and_merged_equals_unsharded_bit_for_bit() {
     case.run(["verify", "one/v1"]).success().stderr_contains("verified");
     let sub = case.path().join("elsewhere");
     std::fs::create_dir_all(&sub).unwrap();
-    let out = std::process::Command::new(env!("CARGO_BIN_EXE_construe")).args(["verify", "../two/v1"]).current_dir(&sub).output().unwrap();
+    let out = std::process::Command::new(env!("CARGO_BIN_EXE_construe"))
+        .args(["verify", "../two/v1"])
+        .current_dir(&sub)
+        .output()
+        .unwrap();
     assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
     let tampered = case.read("two/v1/results.json").replacen("\"replicates\": 4", "\"replicates\": 5", 1);
     std::fs::write(case.path().join("two/v1/results.json"), tampered).unwrap();
@@ -115,7 +140,21 @@ fn enlarged_study_and_interrupted_shard_reuse_finished_replicates() {
 #[test]
 fn killed_shard_rerun_completes_without_recomputing_finished_replicates() {
     let case = demo();
-    let args = ["power", "t/model.yaml", "t/spec.yaml", "--n", "400", "--replicates", "40", "--out", "o", "--cache", "c", "--shard", "1/1"];
+    let args = [
+        "power",
+        "t/model.yaml",
+        "t/spec.yaml",
+        "--n",
+        "400",
+        "--replicates",
+        "40",
+        "--out",
+        "o",
+        "--cache",
+        "c",
+        "--shard",
+        "1/1",
+    ];
     let mut child = std::process::Command::new(env!("CARGO_BIN_EXE_construe"))
         .args(args)
         .current_dir(case.path())
@@ -140,14 +179,27 @@ fn killed_shard_rerun_completes_without_recomputing_finished_replicates() {
     // The merged study equals an uninterrupted one.
     let whole = study(&case, &["--n", "400", "--replicates", "40", "--out", "o2", "--no-cache"]);
     whole.success();
-    case.run(["power", "t/model.yaml", "t/spec.yaml", "--n", "400", "--replicates", "40", "--out", "o", "--cache", "c"])
-        .success();
+    case.run([
+        "power",
+        "t/model.yaml",
+        "t/spec.yaml",
+        "--n",
+        "400",
+        "--replicates",
+        "40",
+        "--out",
+        "o",
+        "--cache",
+        "c",
+    ])
+    .success();
     assert_eq!(case.read("o/v1/results.json"), case.read("o2/v1/results.json"));
 }
 
 /// The demo spec with one wave (the drawn file) and no sensitivity or resampling.
 fn single_wave_spec(file: &str) -> String {
-    let spec = std::fs::read_to_string(Path::new(env!("CARGO_MANIFEST_DIR")).join("pipelines/transit/spec.yaml")).unwrap();
+    let spec =
+        std::fs::read_to_string(Path::new(env!("CARGO_MANIFEST_DIR")).join("pipelines/transit/spec.yaml")).unwrap();
     let mut out = String::new();
     let mut skip = false;
     for line in spec.lines() {
@@ -175,7 +227,13 @@ fn single_wave_spec(file: &str) -> String {
 /// For each true path of the demo model, how many of `files` the normal `run` path finds it in
 /// (adjacent, and directed as in the model), and in how many it finds an edge the model lacks.
 fn run_counts(case: &Case, files: &[String]) -> (Vec<(usize, usize)>, usize) {
-    let paths = [("fare_burden", "crowding"), ("fare_burden", "intent"), ("crowding", "trust"), ("punctuality", "trust"), ("trust", "intent")];
+    let paths = [
+        ("fare_burden", "crowding"),
+        ("fare_burden", "intent"),
+        ("crowding", "trust"),
+        ("punctuality", "trust"),
+        ("trust", "intent"),
+    ];
     let mut counts = vec![(0, 0); paths.len()];
     let mut any_false = 0;
     for (k, file) in files.iter().enumerate() {
@@ -183,8 +241,14 @@ fn run_counts(case: &Case, files: &[String]) -> (Vec<(usize, usize)>, usize) {
         std::fs::write(case.path().join(&spec), single_wave_spec(file)).unwrap();
         case.run(["run", &spec, "--cache", "rc"]).success();
         let dir = case.path().join("t/reports/transit-rider-panel");
-        let latest = std::fs::read_dir(&dir).unwrap().filter_map(|e| e.ok()?.file_name().to_str()?.strip_prefix('v')?.parse::<u32>().ok()).max().unwrap();
-        let r: Value = serde_json::from_str(&std::fs::read_to_string(dir.join(format!("v{latest}/results.json"))).unwrap()).unwrap();
+        let latest = std::fs::read_dir(&dir)
+            .unwrap()
+            .filter_map(|e| e.ok()?.file_name().to_str()?.strip_prefix('v')?.parse::<u32>().ok())
+            .max()
+            .unwrap();
+        let r: Value =
+            serde_json::from_str(&std::fs::read_to_string(dir.join(format!("v{latest}/results.json"))).unwrap())
+                .unwrap();
         let edges = r["structure"]["edges"].as_array().unwrap();
         if edges.iter().any(|e| {
             let (f, t) = (e["from"].as_str().unwrap(), e["to"].as_str().unwrap());
@@ -214,13 +278,36 @@ fn run_counts(case: &Case, files: &[String]) -> (Vec<(usize, usize)>, usize) {
 fn study_counts_equal_run_on_the_same_draws() {
     let case = demo();
     let (n, reps, seed) = (350usize, 6usize, 31u64);
-    let out = study(&case, &["--n", &n.to_string(), "--replicates", &reps.to_string(), "--seed", &seed.to_string(), "--out", "o", "--no-cache"]);
+    let out = study(
+        &case,
+        &[
+            "--n",
+            &n.to_string(),
+            "--replicates",
+            &reps.to_string(),
+            "--seed",
+            &seed.to_string(),
+            "--out",
+            "o",
+            "--no-cache",
+        ],
+    );
     out.success();
     let files: Vec<String> = (0..reps)
         .map(|r| {
             let s = construe::stats::bootstrap::replicate_seed(seed, n as u64, r);
             let file = format!("d{r}.csv");
-            case.run(["simulate", "t/model.yaml", "--n", &n.to_string(), "--seed", &s.to_string(), "--out", &format!("t/{file}")]).success();
+            case.run([
+                "simulate",
+                "t/model.yaml",
+                "--n",
+                &n.to_string(),
+                "--seed",
+                &s.to_string(),
+                "--out",
+                &format!("t/{file}"),
+            ])
+            .success();
             file
         })
         .collect();
@@ -247,7 +334,17 @@ fn edge_recovery_agrees_with_independent_runs_acceptance() {
         .map(|k| {
             let file = format!("i{k}.csv");
             let seed = (900_000 + k).to_string();
-            case.run(["simulate", "t/model.yaml", "--n", &n.to_string(), "--seed", &seed, "--out", &format!("t/{file}")]).success();
+            case.run([
+                "simulate",
+                "t/model.yaml",
+                "--n",
+                &n.to_string(),
+                "--seed",
+                &seed,
+                "--out",
+                &format!("t/{file}"),
+            ])
+            .success();
             file
         })
         .collect();
@@ -273,8 +370,14 @@ fn edge_recovery_agrees_with_independent_runs_acceptance() {
 
 fn coverage_of(case: &Case, dir: &str, from: &str, to: &str) -> (f64, f64, f64, f64) {
     let r = results(case, dir);
-    let e = r["power"]["effects"].as_array().unwrap().iter().find(|e| e["from"] == from && e["to"] == to).unwrap().clone();
-    (e["coverage"][0].as_f64().unwrap(), e["bias"][0].as_f64().unwrap(), e["bias_se"][0].as_f64().unwrap(), e["estimated"][0].as_f64().unwrap())
+    let e =
+        r["power"]["effects"].as_array().unwrap().iter().find(|e| e["from"] == from && e["to"] == to).unwrap().clone();
+    (
+        e["coverage"][0].as_f64().unwrap(),
+        e["bias"][0].as_f64().unwrap(),
+        e["bias_se"][0].as_f64().unwrap(),
+        e["estimated"][0].as_f64().unwrap(),
+    )
 }
 
 // The 95% intervals of a true effect hold it about 95% of the time (short: 40 replicates; a

@@ -93,7 +93,9 @@ impl PowerError {
             PowerError::Sizes { .. } => Some(format!(
                 "list sample sizes separated by commas, e.g. `--n 300,600,1000` (each {MIN_N} to {MAX_N}, at most {MAX_SIZES})"
             )),
-            PowerError::Replicates { .. } => Some(format!("a whole number from 1 to {MAX_REPLICATES}, e.g. `--replicates 500`")),
+            PowerError::Replicates { .. } => {
+                Some(format!("a whole number from 1 to {MAX_REPLICATES}, e.g. `--replicates 500`"))
+            }
             PowerError::Shard { .. } => Some(format!(
                 "`--shard K/N` computes the K-th of N shares, 1 <= K <= N <= {MAX_SHARDS} (in a Slurm array: `--shard $((SLURM_ARRAY_TASK_ID + 1))/$SLURM_ARRAY_TASK_COUNT`)"
             )),
@@ -267,8 +269,11 @@ struct Study {
 
 impl Study {
     fn key(&self, n: usize, replicate: usize) -> Key {
-        let chain: Vec<Value> =
-            self.chain.iter().map(|s| json!({"kind": s.kind(), "version": s.version(), "params": s.params()})).collect();
+        let chain: Vec<Value> = self
+            .chain
+            .iter()
+            .map(|s| json!({"kind": s.kind(), "version": s.version(), "params": s.params()}))
+            .collect();
         Key::of_json(&json!({
             "cache_format": CACHE_FORMAT,
             "kind": "power_replicate",
@@ -396,14 +401,13 @@ fn read_spec(path: &Path, columns: &[String]) -> Result<SpecFile, PowerError> {
 fn setup(req: &PowerRequest<'_>, warnings: &mut Vec<String>) -> Result<(Study, SpecFile, ModelFile), PowerError> {
     let (file, model) = read_model(req.model)?;
     let truth = model.truth().map_err(|e| PowerError::Truth { path: req.model.into(), reason: e.to_string() })?;
-    let names = model
-        .draw(MIN_N, 0)
-        .map_err(|e| PowerError::Truth { path: req.model.into(), reason: e.to_string() })?
-        .columns;
+    let names =
+        model.draw(MIN_N, 0).map_err(|e| PowerError::Truth { path: req.model.into(), reason: e.to_string() })?.columns;
     let spec = read_spec(req.spec, &names)?;
     let a = &spec.spec.analyses;
     if req.with_resampling && a.resample.is_none() {
-        warnings.push("`--with-resampling`: the spec has no `analyses.resample`, so there is nothing to resample".into());
+        warnings
+            .push("`--with-resampling`: the spec has no `analyses.resample`, so there is nothing to resample".into());
     }
     if req.with_sensitivity && a.sensitivity.is_none() {
         warnings.push("`--with-sensitivity`: the spec has no `analyses.sensitivity`".into());
@@ -421,12 +425,10 @@ fn setup(req: &PowerRequest<'_>, warnings: &mut Vec<String>) -> Result<(Study, S
         return Err(PowerError::NoAnalysis { path: req.spec.into() });
     }
     let load = LoadStep::from_spec(&spec);
-    let columns = load
-        .items()
-        .iter()
-        .map(|i| names.iter().position(|c| c == i))
-        .collect::<Option<Vec<usize>>>()
-        .ok_or_else(|| PowerError::Truth { path: req.model.into(), reason: "an item of the spec is not drawn".into() })?;
+    let columns =
+        load.items().iter().map(|i| names.iter().position(|c| c == i)).collect::<Option<Vec<usize>>>().ok_or_else(
+            || PowerError::Truth { path: req.model.into(), reason: "an item of the spec is not drawn".into() },
+        )?;
     let study = Study {
         model,
         truth,
@@ -460,12 +462,7 @@ fn compute_study(
 ) -> Result<(PowerSummary, Option<(StudyInfo, PowerTable)>), PowerError> {
     let total = req.sizes.len() * req.replicates;
     if total > MAX_TOTAL {
-        return Err(PowerError::TooMany {
-            sizes: req.sizes.len(),
-            replicates: req.replicates,
-            total,
-            max: MAX_TOTAL,
-        });
+        return Err(PowerError::TooMany { sizes: req.sizes.len(), replicates: req.replicates, total, max: MAX_TOTAL });
     }
     let mut warnings = Vec::new();
     let (study, spec, file) = setup(req, &mut warnings)?;
@@ -580,8 +577,10 @@ pub fn verify_study(
     };
     let (model, spec) = (locate(&manifest.model), locate(&manifest.spec));
     let s = &manifest.settings;
-    let sizes: Vec<usize> =
-        s["sizes"].as_array().map(|a| a.iter().filter_map(|v| v.as_u64()).map(|v| v as usize).collect()).unwrap_or_default();
+    let sizes: Vec<usize> = s["sizes"]
+        .as_array()
+        .map(|a| a.iter().filter_map(|v| v.as_u64()).map(|v| v as usize).collect())
+        .unwrap_or_default();
     let flag = |k: &str| s[k].as_bool().unwrap_or(false);
     let req = PowerRequest {
         model: &model,
@@ -599,8 +598,16 @@ pub fn verify_study(
     let mut check = |what: &str, ok: bool, detail: String| checks.push(Check { what: what.into(), ok, detail });
     let (_, study) = compute_study(&req, &Cache::disabled(), &NoStudyProgress)?;
     let Some((mut info, table)) = study else { return Ok(super::verify::Verification { checks }) };
-    check("model", info.model_hash == manifest.model.hash, format!("{} ({})", model.display(), info.model_hash.short()));
-    check("spec", info.spec_content == manifest.spec.hash, format!("{} ({})", spec.display(), info.spec_content.short()));
+    check(
+        "model",
+        info.model_hash == manifest.model.hash,
+        format!("{} ({})", model.display(), info.model_hash.short()),
+    );
+    check(
+        "spec",
+        info.spec_content == manifest.spec.hash,
+        format!("{} ({})", spec.display(), info.spec_content.short()),
+    );
     check(
         "replicates",
         info.replicates_digest == manifest.replicates_digest,
@@ -812,7 +819,8 @@ pub fn aggregate(
     let ok = |reps: &[&ReplicateSummary]| reps.iter().filter(|s| s.failure.is_none()).count();
     let succeeded: Vec<usize> = per_size.iter().map(|r| ok(r)).collect();
     let failed: Vec<usize> = per_size.iter().map(|r| r.len() - ok(r)).collect();
-    let not_converged = per_size.iter().map(|r| r.iter().filter(|s| s.failure.is_none() && !s.converged).count()).collect();
+    let not_converged =
+        per_size.iter().map(|r| r.iter().filter(|s| s.failure.is_none() && !s.converged).count()).collect();
     let failures = summaries
         .iter()
         .zip(sizes.iter().flat_map(|&n| (0..replicates).map(move |r| (n, r))))
@@ -822,7 +830,13 @@ pub fn aggregate(
     let searched = summaries.iter().any(|s| s.searched);
     let purified = summaries.iter().any(|s| s.purified);
     let column = |f: &dyn Fn(&[&ReplicateSummary]) -> (usize, usize)| -> (Vec<Option<f64>>, Vec<Option<f64>>) {
-        per_size.iter().map(|reps| { let (c, of) = f(reps); share(c, of) }).unzip()
+        per_size
+            .iter()
+            .map(|reps| {
+                let (c, of) = f(reps);
+                share(c, of)
+            })
+            .unzip()
     };
     let mut edges = Vec::new();
     if searched {
@@ -832,7 +846,9 @@ pub fn aggregate(
             let (oriented, oriented_se) = column(&|reps| {
                 let c = reps
                     .iter()
-                    .filter(|s| matches!(adjacent(s, &p.from, &p.to), Some((f, _, k)) if k.is_directed() && *f == p.from))
+                    .filter(
+                        |s| matches!(adjacent(s, &p.from, &p.to), Some((f, _, k)) if k.is_directed() && *f == p.from),
+                    )
                     .count();
                 (c, reps.len())
             });
@@ -849,7 +865,8 @@ pub fn aggregate(
             });
         }
     }
-    let is_true = |a: &str, b: &str| truth.paths.iter().any(|p| (p.from == a && p.to == b) || (p.from == b && p.to == a));
+    let is_true =
+        |a: &str, b: &str| truth.paths.iter().any(|p| (p.from == a && p.to == b) || (p.from == b && p.to == a));
     let all = |s: &ReplicateSummary, oriented: bool| {
         s.failure.is_none()
             && truth.paths.iter().all(|p| match adjacent(s, &p.from, &p.to) {
@@ -876,7 +893,8 @@ pub fn aggregate(
         pairs.sort();
         pairs.dedup();
         for (a, b) in pairs {
-            let (found, _) = column(&|reps| (reps.iter().filter(|s| adjacent(s, &a, &b).is_some()).count(), reps.len()));
+            let (found, _) =
+                column(&|reps| (reps.iter().filter(|s| adjacent(s, &a, &b).is_some()).count(), reps.len()));
             false_edges.push(FalseEdge { from: a.clone(), to: b.clone(), found });
         }
     }
@@ -962,21 +980,22 @@ pub fn aggregate(
                 let errors: Vec<f64> = est.iter().map(|e| e.est - t).collect();
                 let mean = (!errors.is_empty()).then(|| errors.iter().sum::<f64>() / m);
                 row.bias.push(mean.filter(|v| v.is_finite()));
-                row.bias_se.push(mean.filter(|_| errors.len() > 1).map(|b| {
-                    (errors.iter().map(|e| (e - b).powi(2)).sum::<f64>() / (m - 1.0)).sqrt() / m.sqrt()
-                }));
+                row.bias_se.push(
+                    mean.filter(|_| errors.len() > 1)
+                        .map(|b| (errors.iter().map(|e| (e - b).powi(2)).sum::<f64>() / (m - 1.0)).sqrt() / m.sqrt()),
+                );
                 row.rmse.push((!errors.is_empty()).then(|| (errors.iter().map(|e| e * e).sum::<f64>() / m).sqrt()));
-                let with_ci: Vec<&&EffectEstimate> = est.iter().filter(|e| e.ci[0].is_some() && e.ci[1].is_some()).collect();
-                let covered = with_ci
-                    .iter()
-                    .filter(|e| matches!(e.ci, [Some(lo), Some(hi)] if lo <= t && t <= hi))
-                    .count();
+                let with_ci: Vec<&&EffectEstimate> =
+                    est.iter().filter(|e| e.ci[0].is_some() && e.ci[1].is_some()).collect();
+                let covered =
+                    with_ci.iter().filter(|e| matches!(e.ci, [Some(lo), Some(hi)] if lo <= t && t <= hi)).count();
                 let (c, c_se) = share(covered, with_ci.len());
                 row.coverage.push(c);
                 row.coverage_se.push(c_se);
                 let stds: Vec<f64> = est.iter().filter_map(|e| e.std).collect();
                 row.std_bias.push(
-                    (!stds.is_empty()).then(|| stds.iter().map(|s| s - p.standardized).sum::<f64>() / stds.len() as f64),
+                    (!stds.is_empty())
+                        .then(|| stds.iter().map(|s| s - p.standardized).sum::<f64>() / stds.len() as f64),
                 );
             }
             effects.push(row);

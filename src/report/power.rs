@@ -67,7 +67,11 @@ fn results_value(info: &StudyInfo, table: &PowerTable) -> Value {
 }
 
 /// Renders results.json and the two report formats (in that order).
-pub fn render_study(info: &StudyInfo, table: &PowerTable, manifest: &PowerManifest) -> Result<Vec<(&'static str, String)>, ReportError> {
+pub fn render_study(
+    info: &StudyInfo,
+    table: &PowerTable,
+    manifest: &PowerManifest,
+) -> Result<Vec<(&'static str, String)>, ReportError> {
     let results = results_value(info, table);
     let mut env = super::environment()?;
     for (name, text) in [("power.html", HTML), ("power.md", MARKDOWN)] {
@@ -187,6 +191,9 @@ fn context(info: &StudyInfo, t: &PowerTable, manifest: &PowerManifest) -> Value 
     })
 }
 
+/// One line of the recovery plot: label, shares, their Monte Carlo SEs, colour, stroke width.
+type Series<'a> = (String, &'a Vec<Option<f64>>, Option<&'a Vec<Option<f64>>>, &'a str, f64);
+
 /// Recovery against sample size: one line per true path (share of replicates that found the
 /// adjacency, with ±2 Monte Carlo SE whiskers), the share that found all of them in bold, and
 /// the target as a dashed rule. The x axis is logarithmic in n.
@@ -243,7 +250,7 @@ pub fn recovery_plot(t: &PowerTable) -> Option<String> {
         ty = y(t.target) + 4.0,
         p = t.target * 100.0
     );
-    let mut series: Vec<(String, &Vec<Option<f64>>, Option<&Vec<Option<f64>>>, &str, f64)> = t
+    let mut series: Vec<Series<'_>> = t
         .edges
         .iter()
         .enumerate()
@@ -346,9 +353,8 @@ pub fn write_study(out: &Path, info: &StudyInfo, table: &PowerTable) -> Result<W
     }
     let version = highest + 1;
     let final_dir = out.join(format!("v{version}"));
-    let from_report = |p: &str| {
-        crate::app::verify::relative_path(&final_dir, Path::new(p)).map(|r| r.display().to_string())
-    };
+    let from_report =
+        |p: &str| crate::app::verify::relative_path(&final_dir, Path::new(p)).map(|r| r.display().to_string());
     let mut manifest = PowerManifest {
         manifest_format: POWER_MANIFEST_FORMAT,
         kind: "power".into(),
@@ -360,7 +366,11 @@ pub fn write_study(out: &Path, info: &StudyInfo, table: &PowerTable) -> Result<W
             from_report: from_report(&info.model_path),
             hash: info.model_hash,
         },
-        spec: InputRecord { path: info.spec_path.clone(), from_report: from_report(&info.spec_path), hash: info.spec_content },
+        spec: InputRecord {
+            path: info.spec_path.clone(),
+            from_report: from_report(&info.spec_path),
+            hash: info.spec_content,
+        },
         settings,
         replicates_digest: info.replicates_digest,
         fingerprint,
