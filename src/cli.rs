@@ -377,8 +377,6 @@ fn power_command(args: &PowerArgs, cache: &Cache) -> Result<Exit, AppError> {
     let counts = format!("{} computed, {} reused", plural(summary.computed, "replicate"), summary.reused);
     if summary.computed > 0 {
         tracing::info!(
-            drawing_seconds = summary.drawing_seconds,
-            analysis_seconds = summary.analysis_seconds,
             "computed replicates: drawing and loading {:.2} s, analyses {:.2} s",
             summary.drawing_seconds,
             summary.analysis_seconds

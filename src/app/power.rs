@@ -222,9 +222,10 @@ pub struct ReplicateSummary {
     pub failure: Option<String>,
     /// Whether every fit converged.
     pub converged: bool,
-    /// Whether `purify` ran; then `kept` lists the items it kept.
+    /// Whether `purify` ran; then `kept` lists the items it kept and `dropped` those it dropped.
     pub purified: bool,
     pub kept: Vec<String>,
+    pub dropped: Vec<String>,
     /// Whether `structure` ran; then `edges` lists what it found.
     pub searched: bool,
     pub edges: Vec<(String, String, EdgeKind)>,
@@ -295,6 +296,7 @@ impl Study {
                 converged: false,
                 purified: false,
                 kept: Vec::new(),
+                dropped: Vec::new(),
                 searched: false,
                 edges: Vec::new(),
                 effects: Vec::new(),
@@ -328,6 +330,7 @@ impl Study {
             converged: true,
             purified: false,
             kept: Vec::new(),
+            dropped: Vec::new(),
             searched: false,
             edges: Vec::new(),
             effects: Vec::new(),
@@ -335,6 +338,7 @@ impl Study {
         if let Some(Artifact::Purify(p)) = artifacts.get(&StepKind::Purify) {
             out.purified = true;
             out.kept = p.constructs.values().flat_map(|c| c.kept.iter().cloned()).collect();
+            out.dropped = p.constructs.values().flat_map(|c| c.dropped.iter().map(|d| d.item.clone())).collect();
         }
         if let Some(Artifact::Measure(m)) = artifacts.get(&StepKind::Measure) {
             out.converged &= m.converged;
@@ -901,21 +905,12 @@ pub fn aggregate(
     let mut items = Vec::new();
     let mut impurities = Vec::new();
     if purified {
-        let mut names: Vec<String> = Vec::new();
-        for s in summaries.iter().filter(|s| s.purified) {
-            for i in &s.kept {
-                if !names.contains(i) {
-                    names.push(i.clone());
-                }
-            }
-        }
-        for i in &truth.impure {
-            if !names.contains(i) && spec_items.contains(i) {
-                names.push(i.clone());
-            }
-        }
-        // In the model's variable order.
-        names.sort_by_key(|n| truth.variables.iter().position(|v| v == n).unwrap_or(usize::MAX));
+        // The items purification judged (kept or dropped in some replicate), in spec order.
+        let names: Vec<String> = spec_items
+            .iter()
+            .filter(|i| summaries.iter().any(|s| s.kept.contains(i) || s.dropped.contains(i)))
+            .cloned()
+            .collect();
         for item in names {
             let kept_count = |reps: &[&ReplicateSummary]| {
                 let ran: Vec<_> = reps.iter().filter(|s| s.purified).collect();
@@ -939,7 +934,7 @@ pub fn aggregate(
         for (item, kind, members) in planted.into_iter().filter(|(_, _, m)| m.iter().all(|i| spec_items.contains(i))) {
             let (caught, caught_se) = column(&|reps| {
                 let ran: Vec<_> = reps.iter().filter(|s| s.purified).collect();
-                (ran.iter().filter(|s| members.iter().any(|m| !s.kept.contains(m))).count(), ran.len())
+                (ran.iter().filter(|s| members.iter().any(|m| s.dropped.contains(m))).count(), ran.len())
             });
             impurities.push(ImpurityPower {
                 item,
@@ -1022,5 +1017,147 @@ pub fn aggregate(
         items,
         impurities,
         effects,
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use construe_stats::simulate::{Item, LatentVariance};
+
+    /// a -> b (0.6), b -> c (0.5), a with variance 2; item b3 also loads on a (planted impurity).
+    fn truth() -> Truth {
+        let mut b3 = Item::new("b3", "b", 0.7, 0.3);
+        b3.cross_loadings = vec![construe_stats::simulate::CrossLoading { construct: "a".into(), loading: 0.3 }];
+        Model::default()
+            .construct("a", LatentVariance::Own(2.0))
+            .construct("b", LatentVariance::Own(0.5))
+            .construct("c", LatentVariance::Own(1.0))
+            .path("a", "b", 0.6)
+            .path("b", "c", 0.5)
+            .item(Item::new("a1", "a", 0.8, 0.3))
+            .item(Item::new("b1", "b", 0.8, 0.3))
+            .item(Item::new("b2", "b", 0.8, 0.3))
+            .item(b3)
+            .item(Item::new("c1", "c", 0.8, 0.3))
+            .truth()
+            .unwrap()
+    }
+
+    fn rep(edges: &[(&str, &str, bool)], dropped: &[&str], effect: Option<(f64, f64, f64)>) -> ReplicateSummary {
+        let items = ["b1", "b2", "b3"];
+        ReplicateSummary {
+            failure: None,
+            converged: true,
+            purified: true,
+            kept: items.iter().filter(|i| !dropped.contains(i)).map(|i| i.to_string()).collect(),
+            dropped: dropped.iter().map(|i| i.to_string()).collect(),
+            searched: true,
+            edges: edges.iter().map(|(f, t, d)| (f.to_string(), t.to_string(), EdgeKind::from_directed(*d))).collect(),
+            effects: effect
+                .map(|(est, lo, hi)| EffectEstimate {
+                    from: "a".into(),
+                    to: "b".into(),
+                    est,
+                    se: Some(0.1),
+                    ci: [Some(lo), Some(hi)],
+                    std: None,
+                })
+                .into_iter()
+                .collect(),
+        }
+    }
+
+    // The fit's scale: a is exogenous (unit = sd 2^0.5), b's residual variance is 0.5 (unit
+    // 0.5^0.5), c's 1; so a -> b is 0.6 * 2^0.5 / 0.5^0.5 = 1.2 and b -> c is 0.5 * 0.5^0.5 / 1.
+    #[test]
+    fn truth_on_the_fit_scale() {
+        let t = identified_truth(&truth());
+        assert!((t[0] - 1.2).abs() < 1e-12, "{t:?}");
+        assert!((t[1] - 0.5 * 0.5f64.sqrt()).abs() < 1e-12, "{t:?}");
+    }
+
+    // Two sizes, four replicates each, counted by hand.
+    #[test]
+    fn aggregate_counts_by_hand() {
+        let t = truth();
+        let ab = ("a", "b", true);
+        let bc = ("b", "c", true);
+        let bc_open = ("b", "c", false);
+        let ca = ("a", "c", false);
+        let failed = ReplicateSummary {
+            failure: Some("singular".into()),
+            purified: false,
+            kept: Vec::new(),
+            searched: false,
+            ..rep(&[], &[], None)
+        };
+        let reps = [
+            // n = 100: one replicate failed; a -> b found in 2 of 4, b - c found 3 times, oriented once.
+            rep(&[ab, bc], &["b3"], Some((1.1, 1.0, 1.3))),
+            rep(&[bc_open], &[], None),
+            rep(&[ab, bc_open, ca], &["b1"], Some((1.5, 1.3, 1.7))),
+            failed,
+            // n = 200: everything found and oriented, b3 always dropped, one false edge.
+            rep(&[ab, bc], &["b3"], Some((1.2, 1.0, 1.4))),
+            rep(&[ab, bc], &["b3"], Some((1.3, 1.25, 1.35))),
+            rep(&[ab, bc, ca], &["b3"], Some((1.0, 0.9, 1.25))),
+            rep(&[ab, bc], &["b3", "b2"], Some((1.3, 1.1, 1.5))),
+        ];
+        let refs: Vec<&ReplicateSummary> = reps.iter().collect();
+        let items: Vec<String> = ["a1", "b1", "b2", "b3", "c1"].map(String::from).to_vec();
+        let p = aggregate(&t, &[100, 200], 4, &refs, 0.8, &items);
+        assert_eq!((p.succeeded.clone(), p.failed.clone()), (vec![3, 4], vec![1, 0]));
+        assert_eq!(p.edges[0].found, vec![Some(0.5), Some(1.0)]);
+        assert_eq!(p.edges[1].found, vec![Some(0.75), Some(1.0)]);
+        assert_eq!(p.edges[1].oriented, vec![Some(0.25), Some(1.0)]);
+        assert_eq!(p.edges[1].found_se[0], Some((0.75f64 * 0.25 / 4.0).sqrt()));
+        assert_eq!((p.edges[0].min_n_found, p.edges[1].min_n_oriented), (Some(200), Some(200)));
+        assert_eq!(p.all_found, vec![Some(0.5), Some(1.0)]);
+        assert_eq!(p.all_oriented, vec![Some(0.25), Some(1.0)]);
+        assert_eq!(p.any_false_edge, vec![Some(0.25), Some(0.25)]);
+        assert_eq!(p.min_n_all_found, Some(200));
+        assert_eq!(p.false_edges.len(), 1);
+        assert_eq!((p.false_edges[0].from.as_str(), p.false_edges[0].to.as_str()), ("a", "c"));
+        // Items: only the judged ones (b1-b3), shares of the replicates whose purification ran.
+        assert_eq!(p.items.iter().map(|i| i.item.as_str()).collect::<Vec<_>>(), ["b1", "b2", "b3"]);
+        assert_eq!(p.items[2].kept, vec![Some(2.0 / 3.0), Some(0.0)]);
+        assert!(p.items[2].impure && !p.items[0].impure);
+        assert_eq!(p.impurities.len(), 1);
+        assert_eq!(p.impurities[0].caught, vec![Some(1.0 / 3.0), Some(1.0)]);
+        assert_eq!(p.impurities[0].min_n, Some(200));
+        // a -> b at n = 200: errors 0, 0.1, -0.2, 0.1 around the truth 1.2; the third interval
+        // [0.9, 1.25] and the first [1.0, 1.4] hold 1.2, the second [1.25, 1.35] does not.
+        let e = &p.effects[0];
+        assert!((e.truth - 1.2).abs() < 1e-12);
+        assert_eq!(e.estimated, vec![Some(2.0 / 3.0), Some(1.0)]);
+        assert!((e.bias[1].unwrap() - 0.0).abs() < 1e-12, "{:?}", e.bias);
+        assert!((e.rmse[1].unwrap() - (0.06f64 / 4.0).sqrt()).abs() < 1e-12);
+        assert_eq!(e.coverage[1], Some(0.75));
+        // n = 100: errors -0.1 and 0.3 (bias 0.1), both intervals miss? [1.0, 1.3] holds 1.2, [1.3, 1.7] does not.
+        assert!((e.bias[0].unwrap() - 0.1).abs() < 1e-12);
+        assert_eq!(e.coverage[0], Some(0.5));
+        assert_eq!(p.effects[1].estimated, vec![Some(0.0), Some(0.0)]);
+        assert_eq!(p.effects[1].bias, vec![None, None]);
+    }
+
+    #[test]
+    fn arguments_are_parsed_and_bounded() {
+        assert_eq!(parse_sizes("600, 300,600,1_000").unwrap(), vec![300, 600, 1000]);
+        assert!(parse_sizes("19").is_err() && parse_sizes("").is_err() && parse_sizes("3e2").is_err());
+        let many: Vec<String> = (0..21).map(|k| (100 + k).to_string()).collect();
+        assert!(matches!(parse_sizes(&many.join(",")), Err(PowerError::Sizes { .. })));
+        assert_eq!(Shard::parse("2/4").unwrap(), Shard { k: 2, of: 4 });
+        for bad in ["0/4", "5/4", "1/0", "x/2", "2", "1/100001"] {
+            assert!(Shard::parse(bad).is_err(), "{bad}");
+        }
+        // Shards partition the replicates.
+        let shards: Vec<Shard> = (1..=3).map(|k| Shard { k, of: 3 }).collect();
+        for g in 0..30 {
+            assert_eq!(shards.iter().filter(|s| s.owns(g)).count(), 1);
+        }
+        assert!(parse_replicates("0").is_err() && parse_replicates("100001").is_err());
+        assert_eq!(parse_replicates("500").unwrap(), 500);
+        assert!(parse_target("1").is_err() && parse_target("0").is_err() && parse_target("nan").is_err());
     }
 }
