@@ -427,6 +427,14 @@ fn bad_arguments_exit_1_with_a_clear_message() {
         out.failure(1).stderr_contains(message).stderr_contains("hint:");
     }
     study(&case, &["--n", "300", "--seed", "x1", "--out", "o"]).failure(1).stderr_contains("`--seed x1`");
+    // 256 replicates of a million rows at once need about 280 GB: refused before drawing.
+    case.run_env(
+        ["power", "t/model.yaml", "t/spec.yaml", "--n", "1000000", "--replicates", "1", "--out", "o"],
+        &[("RAYON_NUM_THREADS", "256")],
+    )
+    .failure(1)
+    .stderr_contains("of memory")
+    .stderr_contains("RAYON_NUM_THREADS");
     // A spec item the model does not draw is reported in the spec, at its line.
     let spec = std::fs::read_to_string(case.path().join("t/spec.yaml")).unwrap().replace("cr5]", "cr9]");
     std::fs::write(case.path().join("t/spec.yaml"), spec).unwrap();

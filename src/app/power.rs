@@ -74,6 +74,10 @@ pub enum PowerError {
     Shard { text: String, reason: String },
     #[error("{sizes} sizes x {replicates} replicates is {total} replicates, more than a study runs (at most {max})")]
     TooMany { sizes: usize, replicates: usize, total: usize, max: usize },
+    #[error(
+        "{threads} replicates of n = {n} at once ({columns} columns) need about {needed_mb} MB of memory, but only {available_mb} MB are available"
+    )]
+    NotEnoughMemory { n: usize, columns: usize, threads: usize, needed_mb: u64, available_mb: u64 },
     #[error("cannot store replicate {replicate} of n = {n} in the cache `{}`\n  caused by: {source}", cache.display())]
     Cache { cache: PathBuf, n: usize, replicate: usize, source: std::io::Error },
     #[error(transparent)]
@@ -104,6 +108,9 @@ impl PowerError {
             }
             PowerError::Seed { .. } => Some("any whole number; the same seed gives the same study".into()),
             PowerError::TooMany { .. } => Some("use fewer sizes or replicates, or run several studies".into()),
+            PowerError::NotEnoughMemory { .. } => Some(
+                "use smaller sizes, or fewer threads at once (RAYON_NUM_THREADS=1; results do not depend on it)".into(),
+            ),
             PowerError::MatrixSpec { .. } => Some("give the spec `data.waves`; the waves' files need not exist".into()),
             _ => None,
         }
@@ -265,6 +272,8 @@ struct Study {
     chain: Vec<Box<dyn Step>>,
     /// For each spec item, its column in the drawn table.
     columns: Vec<usize>,
+    /// Columns the model draws.
+    model_columns: usize,
     seed: u64,
 }
 
@@ -364,6 +373,31 @@ impl Study {
     }
 }
 
+/// Bytes held per drawn cell while a replicate is drawn and loaded (the drawn value as
+/// `Option<f64>`, the latent draws behind it, the table's column); as for `simulate`.
+const BYTES_PER_CELL: u64 = 48;
+
+/// Refuses a study whose largest replicates, one per thread at once, would not fit in memory.
+fn check_memory(n: usize, columns: usize) -> Result<(), PowerError> {
+    let threads = rayon::current_num_threads().max(1);
+    let needed =
+        (n as u64).saturating_mul(columns.max(1) as u64).saturating_mul(BYTES_PER_CELL).saturating_mul(threads as u64);
+    let available = std::fs::read_to_string("/proc/meminfo").ok().and_then(|text| {
+        let line = text.lines().find(|l| l.starts_with("MemAvailable:"))?.to_string();
+        line.split_whitespace().nth(1)?.parse::<u64>().ok().map(|kb| kb * 1024)
+    });
+    match available {
+        Some(available) if needed > available => Err(PowerError::NotEnoughMemory {
+            n,
+            columns,
+            threads,
+            needed_mb: needed >> 20,
+            available_mb: available >> 20,
+        }),
+        _ => Ok(()),
+    }
+}
+
 fn read_model(path: &Path) -> Result<(ModelFile, Model), PowerError> {
     let file = ModelFile::read(path).map_err(|e| match e {
         ModelFileError::Read { path, source } => PowerError::ModelRead { path, source },
@@ -440,6 +474,7 @@ fn setup(req: &PowerRequest<'_>, warnings: &mut Vec<String>) -> Result<(Study, S
         load,
         chain,
         columns,
+        model_columns: names.len(),
         seed: req.seed.unwrap_or(file.model.seed),
     };
     Ok((study, spec, file))
@@ -470,6 +505,7 @@ fn compute_study(
     }
     let mut warnings = Vec::new();
     let (study, spec, file) = setup(req, &mut warnings)?;
+    check_memory(req.sizes.last().copied().unwrap_or(0), study.model_columns)?;
     let jobs: Vec<(usize, usize)> = req
         .sizes
         .iter()
