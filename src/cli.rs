@@ -67,6 +67,10 @@ pub enum Command {
         spec: PathBuf,
         #[command(flatten)]
         cache: CacheArgs,
+        /// Compute only share K of N of the bootstrap replicates into the cache and write no
+        /// report (a cluster job array; then run without `--shard`)
+        #[arg(long, value_name = "K/N")]
+        shard: Option<String>,
     },
     /// Validate and lint a spec against its data files; computes nothing
     Check {
@@ -212,7 +216,18 @@ impl Progress for Bar {
 /// Runs one parsed command line and returns the process exit code.
 pub fn dispatch(cli: Cli) -> Exit {
     let result = match cli.command {
-        Command::Run { spec, cache } => run_command(&spec, &cache.resolve()),
+        Command::Run { spec, cache, shard: None } => run_command(&spec, &cache.resolve()),
+        Command::Run { spec, cache, shard: Some(shard) } => {
+            crate::app::shard::run_share(&spec, &shard, &cache.resolve(), &mut StderrLog).map(|s| {
+                eprintln!(
+                    "shard {shard}: {} {} replicates computed, {} reused; no report written (run without `--shard` to write it)",
+                    s.computed,
+                    s.step.name(),
+                    s.reused
+                );
+                Exit::Ok
+            })
+        }
         Command::Check { spec } => check_command(&spec),
         Command::Plan { spec, cache } => plan_command(&spec, &cache.resolve()),
         Command::Verify { report_dir } => verify_command(&report_dir),

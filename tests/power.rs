@@ -441,3 +441,54 @@ fn bad_arguments_exit_1_with_a_clear_message() {
     study(&case, &["--n", "300", "--out", "o"]).failure(1).stderr_contains("cr9").stderr_contains("spec.yaml:");
     assert!(!case.exists("o/v1"));
 }
+
+/// The demo with a small bootstrap (30 replicates), a short sensitivity run and reports beside the spec.
+fn small_bootstrap_demo() -> Case {
+    let case = demo();
+    let spec = case.read("t/spec.yaml");
+    let spec = spec
+        .replace("replicates: 200, seed: 11", "replicates: 30, seed: 11")
+        .replace("dir: ../../reports", "dir: reports")
+        .replace("draws: 200", "draws: 20");
+    std::fs::write(case.path().join("t/spec.yaml"), spec).unwrap();
+    case
+}
+
+// `run --shard K/N` computes its share of the bootstrap replicates into the cache and writes
+// no report; the unsharded run then reuses them all and its report is the one a run without
+// shards writes (same manifest fingerprint, which covers every artifact's hash, so nothing new
+// is written); a bigger bootstrap reuses the smaller one's replicates.
+#[test]
+fn run_shards_share_out_the_bootstrap() {
+    let case = small_bootstrap_demo();
+    case.run(["run", "t/spec.yaml", "--cache", "whole"]).success().stderr_contains("wrote report v1");
+    for k in 1..=3 {
+        let shard = format!("{k}/3");
+        case.run(["run", "t/spec.yaml", "--cache", "shared", "--shard", &shard])
+            .success()
+            .stderr_contains(&format!("shard {k}/3: 10 resample replicates computed, 0 reused"))
+            .no_report();
+    }
+    case.run(["run", "-v", "t/spec.yaml", "--cache", "shared", "--shard", "2/3"])
+        .success()
+        .stderr_contains("0 resample replicates computed, 10 reused");
+    case.run(["run", "t/spec.yaml", "--cache", "shared"]).success().stderr_contains("nothing changed since v1");
+    case.run(["verify", "t/reports/transit-rider-panel/v1"]).success();
+    // 30 -> 40 replicates: the first 30 come from the cache (resample's key changes, its
+    // replicates' keys do not), and the result is what a cold run computes.
+    let spec = case.read("t/spec.yaml").replace("replicates: 30, seed: 11", "replicates: 40, seed: 11");
+    std::fs::write(case.path().join("t/spec.yaml"), spec).unwrap();
+    case.run(["run", "t/spec.yaml", "--cache", "shared", "--shard", "1/1"])
+        .success()
+        .stderr_contains("10 resample replicates computed, 30 reused");
+    case.run(["run", "t/spec.yaml", "--cache", "shared"]).success().stderr_contains("wrote report v2");
+    case.run(["run", "t/spec.yaml", "--no-cache"]).success().stderr_contains("nothing changed since v2");
+    // Errors: bad syntax, no cache, nothing to shard.
+    case.run(["run", "t/spec.yaml", "--shard", "4/3"]).failure(1).stderr_contains("K must be 1 to N = 3");
+    case.run(["run", "t/spec.yaml", "--no-cache", "--shard", "1/2"]).failure(1).stderr_contains("`--no-cache`");
+    let spec = case.read("t/spec.yaml");
+    let cut = spec.find("  resample:").unwrap();
+    let end = cut + spec[cut..].find('\n').unwrap() + 1;
+    std::fs::write(case.path().join("t/spec.yaml"), format!("{}{}", &spec[..cut], &spec[end..])).unwrap();
+    case.run(["run", "t/spec.yaml", "--shard", "1/2"]).failure(1).stderr_contains("no `analyses.resample`");
+}

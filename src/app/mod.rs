@@ -10,6 +10,7 @@ pub mod plan;
 pub mod power;
 pub mod run;
 pub mod schema;
+pub mod shard;
 pub mod simulate;
 pub mod verify;
 
