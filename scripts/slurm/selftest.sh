@@ -3,7 +3,8 @@
 # (controller and worker on this machine, no authentication daemon, state in a temporary
 # folder), submits a 4-task array of a small design study of the demo (power-array.sh), waits,
 # merges with one unsharded run, and checks the merged results.json is byte-identical to that
-# of an unsharded run with its own cache. Needs root and the distribution's Slurm
+# of an unsharded run with its own cache; then does the same for the bootstrap of one analysis
+# (`construe run SPEC --shard K/N`, 40 replicates of the demo). Needs root and the distribution's Slurm
 # (`apt-get install -y slurm-wlm`); prints SKIP and exits 0 when Slurm is not installed.
 #
 #   bash scripts/slurm/selftest.sh [path/to/construe]
@@ -95,4 +96,23 @@ if cmp -s sharded/v1/results.json whole/v1/results.json; then
     echo "PASS: 4-task Slurm array + merge gives results.json identical to the unsharded run"
 else
     echo "FAIL: results differ"; diff sharded/v1/results.json whole/v1/results.json | head -20; exit 1
+fi
+
+# The bootstrap of one analysis, shared out the same way.
+cp -r "$repo/pipelines/transit" "$work/run"
+cd "$work/run"
+sed -i 's/replicates: 200, seed: 11/replicates: 40, seed: 11/; s|dir: ../../reports|dir: reports|; s/draws: 200/draws: 20/' spec.yaml
+"$construe" run spec.yaml --cache "$work/run/cache-whole" >/dev/null 2>&1
+t0=$(date +%s)
+job=$(sbatch --parsable --array=0-3 --cpus-per-task=1 --chdir="$work/run" --output="$work/run/task-%a.log" --wait \
+    --wrap "$construe run spec.yaml --cache $work/run/cache --shard \$((SLURM_ARRAY_TASK_ID + 1))/\$SLURM_ARRAY_TASK_COUNT") || {
+    echo "FAIL: the bootstrap array job failed"; cat "$work"/run/task-*.log; exit 1; }
+echo "slurm: bootstrap array job $job finished in $(( $(date +%s) - t0 )) s"
+grep -h "^shard" "$work"/run/task-*.log
+"$construe" run spec.yaml --cache "$work/run/cache" 2>merge.log >/dev/null
+cat merge.log
+if grep -q "nothing changed since v1" merge.log; then
+    echo "PASS: 4-task Slurm array of run --shard + merge gives the unsharded run's report (same fingerprint)"
+else
+    echo "FAIL: the merged bootstrap differs from the unsharded run"; exit 1
 fi
