@@ -223,11 +223,11 @@ pub fn execute_share(
         let inputs = crate::steps::Inputs { step: p.step.kind(), artifacts: &artifacts, progress };
         // Only a step with replicates answers; its inputs must be there first.
         let needs = p.step.inputs();
-        if needs.iter().all(|k| artifacts.contains_key(k)) {
-            if let Some(done) = p.step.compute_share(&inputs) {
-                let (computed, reused) = done.map_err(PipelineError::Step)?;
-                return Ok(Some((p.step.kind(), computed, reused)));
-            }
+        if needs.iter().all(|k| artifacts.contains_key(k))
+            && let Some(done) = p.step.compute_share(&inputs)
+        {
+            let (computed, reused) = done.map_err(PipelineError::Step)?;
+            return Ok(Some((p.step.kind(), computed, reused)));
         }
         // Compute (or reuse) this step only if a later step with replicates needs it.
         let needed =
