@@ -67,6 +67,10 @@ pub enum Command {
         spec: PathBuf,
         #[command(flatten)]
         cache: CacheArgs,
+        /// Compute only share K of N of the bootstrap replicates into the cache and write no
+        /// report (a cluster job array; then run without `--shard`)
+        #[arg(long, value_name = "K/N")]
+        shard: Option<String>,
     },
     /// Validate and lint a spec against its data files; computes nothing
     Check {
@@ -103,6 +107,40 @@ pub enum Command {
         /// Replace a constant column's value, e.g. `--set wave=autumn` (repeatable)
         #[arg(long, value_name = "NAME=VALUE")]
         set: Vec<String>,
+    },
+    /// Design study: draw many datasets from a model at several sample sizes, analyse each with
+    /// the spec, and report how often the truth is recovered (see docs/power.md)
+    Power {
+        /// The model file to draw from (YAML, as for `simulate`)
+        model: PathBuf,
+        /// The analysis spec (YAML); its data files need not exist
+        spec: PathBuf,
+        /// Sample sizes, comma-separated, e.g. `300,600,1000`
+        #[arg(long, value_name = "N,N,..")]
+        n: String,
+        /// Replicates (drawn datasets) per sample size
+        #[arg(long, default_value = "500", value_name = "R")]
+        replicates: String,
+        /// Random seed of the study (default: the model's `seed`)
+        #[arg(long)]
+        seed: Option<String>,
+        /// Folder for the study's report versions (`DIR/v1`, `DIR/v2`, ...)
+        #[arg(long, value_name = "DIR")]
+        out: PathBuf,
+        /// Recovery share the smallest sufficient n must reach
+        #[arg(long, default_value = "0.8")]
+        target: String,
+        /// Compute only share K of N into the cache and write no report (a cluster job array)
+        #[arg(long, value_name = "K/N")]
+        shard: Option<String>,
+        /// Also run the spec's bootstrap (`analyses.resample`) on every replicate
+        #[arg(long)]
+        with_resampling: bool,
+        /// Also run the spec's sensitivity analysis on every replicate
+        #[arg(long)]
+        with_sensitivity: bool,
+        #[command(flatten)]
+        cache: CacheArgs,
     },
     /// Recompute a report version from its manifest without the cache; exit 1 on any mismatch
     Verify {
@@ -192,10 +230,37 @@ pub fn usage_exit(e: &clap::Error) -> Exit {
 /// Runs one parsed command line and returns the process exit code.
 pub fn dispatch(cli: Cli) -> Exit {
     let result = match cli.command {
-        Command::Run { spec, cache } => run_command(&spec, &cache.resolve()),
+        Command::Run { spec, cache, shard: None } => run_command(&spec, &cache.resolve()),
+        Command::Run { spec, cache, shard: Some(shard) } => {
+            crate::app::shard::run_share(&spec, &shard, &cache.resolve(), &mut StderrLog).map(|s| {
+                eprintln!(
+                    "shard {shard}: {} {} replicates computed, {} reused; no report written (run without `--shard` to write it)",
+                    s.computed,
+                    s.step.name(),
+                    s.reused
+                );
+                Exit::Ok
+            })
+        }
         Command::Check { spec } => check_command(&spec),
         Command::Plan { spec, cache } => plan_command(&spec, &cache.resolve()),
         Command::Verify { report_dir } => verify_command(&report_dir),
+        Command::Power {
+            model,
+            spec,
+            n,
+            replicates,
+            seed,
+            out,
+            target,
+            shard,
+            with_resampling,
+            with_sensitivity,
+            cache,
+        } => power_command(
+            &PowerArgs { model, spec, n, replicates, seed, out, target, shard, with_resampling, with_sensitivity },
+            &cache.resolve(),
+        ),
         Command::Schema { which } => {
             let kind = match which {
                 SchemaWhich::Spec => SchemaKind::Spec,
@@ -299,5 +364,132 @@ fn verify_command(report_dir: &std::path::Path) -> Result<Exit, AppError> {
         let failed = verification.checks.iter().filter(|c| !c.ok).count();
         eprintln!("{}: {} failed", report_dir.display(), plural(failed, "check"));
         Ok(Exit::Invalid)
+    }
+}
+
+struct PowerArgs {
+    model: PathBuf,
+    spec: PathBuf,
+    n: String,
+    replicates: String,
+    seed: Option<String>,
+    out: PathBuf,
+    target: String,
+    shard: Option<String>,
+    with_resampling: bool,
+    with_sensitivity: bool,
+}
+
+fn power_command(args: &PowerArgs, cache: &Cache) -> Result<Exit, AppError> {
+    use crate::app::power::{PowerError, PowerRequest, Shard, parse_replicates, parse_sizes, parse_target, power};
+    let seed = match &args.seed {
+        Some(text) => Some(text.trim().parse::<u64>().map_err(|_| PowerError::Seed { text: text.clone() })?),
+        None => None,
+    };
+    let shard = args.shard.as_deref().map(Shard::parse).transpose()?;
+    let req = PowerRequest {
+        model: &args.model,
+        spec: &args.spec,
+        sizes: parse_sizes(&args.n)?,
+        replicates: parse_replicates(&args.replicates)?,
+        seed,
+        out: &args.out,
+        target: parse_target(&args.target)?,
+        shard,
+        with_resampling: args.with_resampling,
+        with_sensitivity: args.with_sensitivity,
+    };
+    let summary = power(&req, cache, &StudyBar::new())?;
+    for w in &summary.warnings {
+        eprintln!("warning: {w}");
+    }
+    let counts = format!("{} computed, {} reused", plural(summary.computed, "replicate"), summary.reused);
+    if summary.computed > 0 {
+        tracing::info!(
+            "computed replicates: drawing and loading {:.2} s, analyses {:.2} s",
+            summary.drawing_seconds,
+            summary.analysis_seconds
+        );
+    }
+    match (&summary.outcome, shard) {
+        (None, Some(s)) => {
+            eprintln!("shard {}/{}: {counts}; no report written (run without `--shard` to write it)", s.k, s.of)
+        }
+        (Some(WriteOutcome::Written { version, dir }), _) => {
+            eprintln!("wrote study v{version} to {} ({counts})", dir.display());
+            println!("{}", dir.display());
+        }
+        (Some(WriteOutcome::Unchanged { version, dir }), _) => {
+            eprintln!("nothing changed since v{version} ({}; {counts}); no new version written", dir.display());
+            println!("{}", dir.display());
+        }
+        (None, None) => {}
+    }
+    Ok(Exit::Ok)
+}
+
+/// Study progress: a bar on a terminal (replicates done, rate, time left); otherwise a line at
+/// every tenth of the work, for batch logs.
+struct StudyBar {
+    bar: std::sync::Mutex<Option<indicatif::ProgressBar>>,
+    done: std::sync::atomic::AtomicUsize,
+    total: std::sync::atomic::AtomicUsize,
+    started: std::time::Instant,
+}
+
+impl StudyBar {
+    fn new() -> StudyBar {
+        StudyBar {
+            bar: std::sync::Mutex::new(None),
+            done: 0.into(),
+            total: 0.into(),
+            started: std::time::Instant::now(),
+        }
+    }
+}
+
+impl crate::app::power::StudyProgress for StudyBar {
+    fn start(&self, total: usize) {
+        self.total.store(total, std::sync::atomic::Ordering::Relaxed);
+        if !std::io::stderr().is_terminal() || total == 0 {
+            return;
+        }
+        let bar = indicatif::ProgressBar::new(total as u64);
+        if let Ok(style) =
+            indicatif::ProgressStyle::with_template("replicates {bar:30} {pos}/{len}, {per_sec}, {eta} left")
+        {
+            bar.set_style(style);
+        }
+        if let Ok(mut slot) = self.bar.lock() {
+            *slot = Some(bar);
+        }
+    }
+
+    fn advance(&self, by: usize) {
+        if let Ok(slot) = self.bar.lock()
+            && let Some(bar) = slot.as_ref()
+        {
+            bar.inc(by as u64);
+            return;
+        }
+        let total = self.total.load(std::sync::atomic::Ordering::Relaxed);
+        let done = self.done.fetch_add(by, std::sync::atomic::Ordering::Relaxed) + by;
+        let tenth = total.div_ceil(10).max(1);
+        if total >= 20 && done.is_multiple_of(tenth) && done < total {
+            let secs = self.started.elapsed().as_secs_f64();
+            let rate = done as f64 / secs.max(1e-9);
+            eprintln!(
+                "replicates: {done}/{total}, {rate:.1}/s, about {:.0}s left",
+                (total - done) as f64 / rate.max(1e-9)
+            );
+        }
+    }
+
+    fn finish(&self) {
+        if let Ok(mut slot) = self.bar.lock()
+            && let Some(bar) = slot.take()
+        {
+            bar.finish_and_clear();
+        }
     }
 }

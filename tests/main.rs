@@ -15,6 +15,7 @@ mod faults;
 mod guard;
 mod inputs;
 mod missing;
+mod power;
 mod reference;
 mod report;
 mod robustness;

@@ -8,8 +8,10 @@ pub mod diff;
 pub mod findings;
 pub mod lints;
 pub mod plan;
+pub mod power;
 pub mod run;
 pub mod schema;
+pub mod shard;
 pub mod simulate;
 pub mod verify;
 
@@ -44,6 +46,8 @@ pub enum AppError {
     Report(#[from] ReportError),
     #[error(transparent)]
     Simulate(#[from] simulate::SimulateError),
+    #[error(transparent)]
+    Power(#[from] power::PowerError),
 }
 
 impl AppError {
@@ -55,6 +59,7 @@ impl AppError {
             AppError::Pipeline(PipelineError::Internal(_)) => Exit::Bug,
             AppError::Pipeline(_) | AppError::Report(_) => Exit::Failed,
             AppError::Simulate(e) => e.exit(),
+            AppError::Power(e) => e.exit(),
         }
     }
 
@@ -69,6 +74,7 @@ impl AppError {
                 Some((*hint).to_string())
             }
             AppError::Simulate(e) => e.hint(),
+            AppError::Power(e) => e.hint(),
             _ => None,
         }
     }

@@ -96,6 +96,9 @@ fn read_manifest(report_dir: &Path) -> Result<Manifest, AppError> {
 }
 
 pub fn verify(report_dir: &Path) -> Result<Verification, AppError> {
+    if let Some(study) = crate::report::power::read_study_manifest(report_dir) {
+        return Ok(super::power::verify_study(report_dir, &study)?);
+    }
     let manifest = read_manifest(report_dir)?;
     let spec_path = locate_spec(report_dir, &manifest)
         .ok_or_else(|| invalid(format!("cannot find the spec `{}` recorded in the manifest", manifest.spec.path)))?;

@@ -16,6 +16,16 @@ pub trait Progress: Sync {
     fn finish(&self, _step: StepKind) {}
 }
 
+/// Where a step with independent replicates (the bootstrap) keeps each finished replicate, so
+/// a rerun, or a run after `--shard K/N` processes, reuses them. The executor provides one
+/// backed by the cache (`executor::CachedReplicates`); bytes are the step's own encoding.
+pub trait ReplicateStore: Send + Sync {
+    fn get(&self, replicate: usize) -> Option<Vec<u8>>;
+    fn put(&self, replicate: usize, bytes: &[u8]);
+    /// Whether this process computes `replicate` (always, unless sharded).
+    fn owns(&self, replicate: usize) -> bool;
+}
+
 /// Progress that goes nowhere (tests, `verify`, nested chains).
 pub struct NoProgress;
 

@@ -41,6 +41,7 @@ pub fn execute(
     progress: &dyn Progress,
     mut observe: impl FnMut(Event<'_>),
 ) -> Result<Execution, PipelineError> {
+    attach_replicate_stores(plan, cache, None);
     let mut artifacts = BTreeMap::new();
     let mut hooks = Caching {
         plan,
@@ -70,9 +71,18 @@ struct Caching<'a, F: FnMut(Event<'_>)> {
     outcomes: Vec<Outcome>,
 }
 
+impl<F: FnMut(Event<'_>)> Caching<'_, F> {
+    /// The planned step of `step`'s kind (each kind is planned once), so a chain may run a
+    /// subset of the plan (`execute_share`).
+    fn position(&self, step: &dyn Step) -> usize {
+        self.plan.steps.iter().position(|p| p.step.kind() == step.kind()).unwrap_or(self.index)
+    }
+}
+
 impl<F: FnMut(Event<'_>)> ChainHooks for Caching<'_, F> {
     fn reuse(&mut self, step: &dyn Step) -> Option<Artifact> {
         let kind = step.kind();
+        self.index = self.position(step);
         let key = self.plan.steps[self.index].key;
         self.started = Instant::now();
         self.hash = None;
@@ -103,6 +113,7 @@ impl<F: FnMut(Event<'_>)> ChainHooks for Caching<'_, F> {
     }
 
     fn finished(&mut self, step: &dyn Step, artifact: &Artifact, reused: bool) -> Result<(), ChainError> {
+        self.index = self.position(step);
         let key = self.plan.steps[self.index].key;
         let artifact_hash = match self.hash.take() {
             Some(hash) if reused => hash,
@@ -132,7 +143,108 @@ impl<F: FnMut(Event<'_>)> ChainHooks for Caching<'_, F> {
         );
         (self.observe)(Event::Done(&outcome));
         self.outcomes.push(outcome);
-        self.index += 1;
         Ok(())
     }
+}
+
+/// `run --shard K/N`: K is 1-based.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct ReplicateShard {
+    pub k: usize,
+    pub of: usize,
+}
+
+/// Keeps a step's finished replicates in the cache, each under a key made of the step's kind,
+/// version, parameters without the replicate count (so a larger bootstrap reuses a smaller
+/// one's replicates) and its inputs' keys, and the replicate's index.
+pub struct CachedReplicates {
+    cache: Cache,
+    base: serde_json::Value,
+    shard: Option<ReplicateShard>,
+}
+
+impl CachedReplicates {
+    fn key(&self, replicate: usize) -> Key {
+        Key::of_json(&serde_json::json!({"replicate_of": self.base, "replicate": replicate}))
+    }
+}
+
+impl super::chain::ReplicateStore for CachedReplicates {
+    fn get(&self, replicate: usize) -> Option<Vec<u8>> {
+        match self.cache.get(&self.key(replicate)) {
+            Lookup::Hit(bytes) => Some(bytes),
+            _ => None,
+        }
+    }
+
+    fn put(&self, replicate: usize, bytes: &[u8]) {
+        // A replicate that cannot be stored is only recomputed next time.
+        if let Err(e) = self.cache.put(&self.key(replicate), bytes) {
+            tracing::warn!(replicate, error = %e, "could not store a replicate in the cache");
+        }
+    }
+
+    fn owns(&self, replicate: usize) -> bool {
+        self.shard.is_none_or(|s| replicate % s.of == s.k - 1)
+    }
+}
+
+fn attach_replicate_stores(plan: &Plan, cache: &Cache, shard: Option<ReplicateShard>) {
+    for p in &plan.steps {
+        let mut params = p.params.clone();
+        if let serde_json::Value::Object(map) = &mut params {
+            map.remove("replicates");
+        }
+        let base = serde_json::json!({
+            "cache_format": super::key::CACHE_FORMAT,
+            "kind": p.step.kind(),
+            "version": p.step.version(),
+            "params": params,
+            "inputs": p.input_keys,
+        });
+        p.step.attach_replicates(std::sync::Arc::new(CachedReplicates { cache: cache.clone(), base, shard }));
+    }
+}
+
+/// `run --shard K/N`: runs (or reuses) the steps the replicated step needs, then computes this
+/// process's share of its replicates into the cache; no other step runs and nothing else is
+/// written. Returns the step and (computed, reused), or `None` when no planned step has
+/// replicates.
+pub fn execute_share(
+    plan: &Plan,
+    cache: &Cache,
+    shard: ReplicateShard,
+    progress: &dyn Progress,
+    mut observe: impl FnMut(Event<'_>),
+) -> Result<Option<(StepKind, usize, usize)>, PipelineError> {
+    attach_replicate_stores(plan, cache, Some(shard));
+    let mut artifacts = BTreeMap::new();
+    for p in &plan.steps {
+        let inputs = crate::steps::Inputs { step: p.step.kind(), artifacts: &artifacts, progress };
+        // Only a step with replicates answers; its inputs must be there first.
+        let needs = p.step.inputs();
+        if needs.iter().all(|k| artifacts.contains_key(k))
+            && let Some(done) = p.step.compute_share(&inputs)
+        {
+            let (computed, reused) = done.map_err(PipelineError::Step)?;
+            return Ok(Some((p.step.kind(), computed, reused)));
+        }
+        // Compute (or reuse) this step only if a later step with replicates needs it.
+        let needed =
+            plan.steps.iter().any(|q| q.step.inputs().contains(&p.step.kind()) && q.params.get("replicates").is_some());
+        if needed {
+            let mut hooks = Caching {
+                plan,
+                cache,
+                observe: &mut observe,
+                index: 0,
+                started: Instant::now(),
+                hash: None,
+                outcomes: Vec::new(),
+            };
+            run_chain(std::iter::once(p.step.as_ref()), &mut artifacts, &mut hooks, progress)
+                .map_err(ChainError::into_pipeline)?;
+        }
+    }
+    Ok(None)
 }

@@ -7,6 +7,7 @@
 
 pub mod diagram;
 pub mod diff;
+pub mod power;
 pub mod results;
 pub mod svg;
 pub mod tables;
@@ -43,7 +44,7 @@ const STYLE: &str = include_str!("../../templates/style.css");
 /// value is escaped by `formatter` unless a filter here already made it safe. Filters for
 /// fixed-digit numbers, numbers already rounded (`sig`), Markdown text (`cell`, `md`) and
 /// Markdown code spans (`code`).
-fn environment() -> Result<Environment<'static>, ReportError> {
+pub(crate) fn environment() -> Result<Environment<'static>, ReportError> {
     let mut env = Environment::new();
     env.set_formatter(formatter);
     env.add_filter("num", num);

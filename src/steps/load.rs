@@ -263,6 +263,37 @@ impl LoadStep {
             wave_of_row.extend(std::iter::repeat_n(w as u32, rows));
             waves.push(WaveSummary { id: wave.id.clone(), file: wave.shown.clone(), rows });
         }
+        self.assemble(names, columns, wave_of_row, waves)
+    }
+
+    /// What `load` would make of one wave of columns drawn in memory (`construe power`'s
+    /// simulated replicates): the spec's missing codes and reverse coding, then the same item
+    /// types and summaries as for a file. `columns` are in item order (`item_names`); `wave` and
+    /// `label` (shown in errors in place of a file) name the drawn wave.
+    pub fn load_drawn(&self, wave: &str, label: &str, mut columns: Vec<Column>) -> Result<LoadOutput, StepError> {
+        let names = self.item_names();
+        let path = std::path::Path::new(label);
+        let recoded: Vec<Result<(), DataError>> =
+            columns.par_iter_mut().zip(&names).map(|(col, name)| self.recode(name, col, path)).collect();
+        recoded.into_iter().collect::<Result<(), _>>()?;
+        let rows = columns.first().map_or(0, Column::len);
+        let waves = vec![WaveSummary { id: wave.into(), file: label.into(), rows }];
+        self.assemble(names, columns, vec![0; rows], waves)
+    }
+
+    /// The items' names, in item order (the order `load_drawn` expects its columns in).
+    pub fn items(&self) -> Vec<String> {
+        self.item_names()
+    }
+
+    /// Summarises recoded columns and builds the table.
+    fn assemble(
+        &self,
+        names: Vec<String>,
+        columns: Vec<Column>,
+        wave_of_row: Vec<u32>,
+        waves: Vec<WaveSummary>,
+    ) -> Result<LoadOutput, StepError> {
         let summaries: Vec<Result<ItemSummary, DataError>> = self
             .items
             .par_iter()

@@ -239,6 +239,14 @@ pub trait Step: Send + Sync {
     fn run(&self, inputs: &Inputs<'_>) -> Result<Artifact, StepError>;
     /// One line saying what the step did, for the run log.
     fn describe(&self, artifact: &Artifact) -> String;
+    /// Gives a step with independent replicates (the bootstrap) the store to keep them in;
+    /// other steps ignore it.
+    fn attach_replicates(&self, _store: std::sync::Arc<dyn crate::pipeline::chain::ReplicateStore>) {}
+    /// `run --shard K/N`: computes this process's share of the step's replicates into the
+    /// attached store, returning (computed, reused); `None` for a step without replicates.
+    fn compute_share(&self, _inputs: &Inputs<'_>) -> Option<Result<(usize, usize), StepError>> {
+        None
+    }
 }
 
 /// The steps a spec asks for, in plan order.

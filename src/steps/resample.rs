@@ -15,7 +15,7 @@ use serde_json::{Value, json};
 
 use super::{Artifact, Inputs, LoadOutput, Step, StepError, StepKind};
 use crate::data::Table;
-use crate::pipeline::chain::{Compute, NoProgress, run_chain};
+use crate::pipeline::chain::{Compute, NoProgress, ReplicateStore, run_chain};
 use crate::spec::types::ResampleSpec;
 use construe_stats::bootstrap::{percentile_interval, replicate_rng, stratified_rows};
 use construe_stats::search::EdgeKind;
@@ -91,16 +91,18 @@ pub struct ClusterFrequency {
 pub struct ResampleStep {
     params: ResampleSpec,
     chain: Vec<Box<dyn Step>>,
+    /// Where finished replicates are kept (set by the executor; none in nested chains).
+    store: std::sync::Mutex<Option<std::sync::Arc<dyn ReplicateStore>>>,
 }
 
 impl ResampleStep {
     pub fn new(params: &ResampleSpec, chain: Vec<Box<dyn Step>>) -> ResampleStep {
-        ResampleStep { params: params.clone(), chain }
+        ResampleStep { params: params.clone(), chain, store: std::sync::Mutex::new(None) }
     }
 }
 
-/// What one replicate found.
-#[derive(Default)]
+/// What one replicate found (kept in the replicate store, postcard-encoded, `Err` = failure).
+#[derive(Default, Serialize, Deserialize)]
 struct Replicate {
     kept: Vec<String>,
     clusters: Vec<Vec<String>>,
@@ -120,6 +122,32 @@ fn resampled(load: &LoadOutput, rows: &[usize]) -> Option<LoadOutput> {
 }
 
 impl ResampleStep {
+    fn store(&self) -> Option<std::sync::Arc<dyn ReplicateStore>> {
+        self.store.lock().ok().and_then(|s| s.clone())
+    }
+
+    /// Replicate `r` from the store, or computed (and then stored); `true` when computed.
+    fn stored_replicate(
+        &self,
+        load: &LoadOutput,
+        r: usize,
+        store: Option<&dyn ReplicateStore>,
+    ) -> (Result<Replicate, String>, bool) {
+        if let Some(found) =
+            store.and_then(|s| s.get(r)).and_then(|b| super::read_exact::<Result<Replicate, String>>(&b))
+        {
+            return (found, false);
+        }
+        let out = self.replicate(load, r);
+        if let Some(s) = store {
+            let mut bytes = Vec::new();
+            if super::write_exact(&mut bytes, &out).is_ok() {
+                s.put(r, &bytes);
+            }
+        }
+        (out, true)
+    }
+
     fn replicate(&self, load: &LoadOutput, r: usize) -> Result<Replicate, String> {
         let table = load.table.as_ref().ok_or("no respondent rows")?;
         let rows = stratified_rows(&table.wave_of_row, table.waves.len(), &mut replicate_rng(self.params.seed, r));
@@ -179,11 +207,12 @@ impl Step for ResampleStep {
 
     fn run(&self, inputs: &Inputs<'_>) -> Result<Artifact, StepError> {
         let load = inputs.load()?;
+        let store = self.store();
         inputs.progress.start(StepKind::Resample, self.params.replicates);
         let results: Vec<Result<Replicate, String>> = (0..self.params.replicates)
             .into_par_iter()
             .map(|r| {
-                let out = self.replicate(load, r);
+                let (out, _) = self.stored_replicate(load, r, store.as_deref());
                 inputs.progress.advance(StepKind::Resample, 1);
                 out
             })
@@ -265,6 +294,32 @@ impl Step for ResampleStep {
             edges,
             effects,
         })))
+    }
+
+    fn attach_replicates(&self, store: std::sync::Arc<dyn ReplicateStore>) {
+        if let Ok(mut slot) = self.store.lock() {
+            *slot = Some(store);
+        }
+    }
+
+    fn compute_share(&self, inputs: &Inputs<'_>) -> Option<Result<(usize, usize), StepError>> {
+        let store = self.store()?;
+        let load = match inputs.load() {
+            Ok(l) => l,
+            Err(e) => return Some(Err(e)),
+        };
+        let mine: Vec<usize> = (0..self.params.replicates).filter(|&r| store.owns(r)).collect();
+        inputs.progress.start(StepKind::Resample, mine.len());
+        let computed: usize = mine
+            .par_iter()
+            .map(|&r| {
+                let (_, computed) = self.stored_replicate(load, r, Some(store.as_ref()));
+                inputs.progress.advance(StepKind::Resample, 1);
+                usize::from(computed)
+            })
+            .sum();
+        inputs.progress.finish(StepKind::Resample);
+        Some(Ok((computed, mine.len() - computed)))
     }
 
     fn describe(&self, artifact: &Artifact) -> String {
