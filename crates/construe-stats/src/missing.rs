@@ -148,6 +148,11 @@ struct PatternStats {
 struct PatternSums {
     sum: DVector<f64>,
     cross: Option<DMatrix<f64>>,
+    /// The pattern's missing items, in order.
+    missing: Vec<usize>,
+    /// Without `cross`: the pattern's answered values, row by row (rows x answered items), so
+    /// each EM step reads them in order instead of gathering from every column.
+    values: Vec<f64>,
 }
 
 impl PatternStats {
@@ -159,24 +164,48 @@ impl PatternStats {
             .groups
             .iter()
             .map(|(o, rows)| {
+                let keep_cross = rows.len() > o.len();
                 let mut sum = DVector::zeros(o.len());
                 let mut cross = DMatrix::zeros(o.len(), o.len());
                 let mut y = DVector::zeros(o.len());
+                let fixed = fixed_cross.as_mut_slice();
                 for &i in rows {
                     for (a, &j) in o.iter().enumerate() {
                         y[a] = columns[j][i];
                     }
                     sum += &y;
-                    cross.syger(1.0, &y, &y, 1.0);
-                }
-                cross.fill_upper_triangle_with_lower_triangle();
-                for (a, &j) in o.iter().enumerate() {
-                    fixed_sum[j] += sum[a];
-                    for (b, &l) in o.iter().enumerate() {
-                        fixed_cross[(j, l)] += cross[(a, b)];
+                    if keep_cross {
+                        cross.syger(1.0, &y, &y, 1.0);
+                    } else {
+                        for (a, &j) in o.iter().enumerate() {
+                            for (b, &l) in o.iter().enumerate() {
+                                fixed[j + l * p] += y[a] * y[b];
+                            }
+                        }
                     }
                 }
-                PatternSums { sum, cross: (rows.len() > o.len()).then_some(cross) }
+                for (a, &j) in o.iter().enumerate() {
+                    fixed_sum[j] += sum[a];
+                }
+                if keep_cross {
+                    cross.fill_upper_triangle_with_lower_triangle();
+                    for (a, &j) in o.iter().enumerate() {
+                        for (b, &l) in o.iter().enumerate() {
+                            fixed[j + l * p] += cross[(a, b)];
+                        }
+                    }
+                }
+                let values = if keep_cross {
+                    Vec::new()
+                } else {
+                    rows.iter().flat_map(|&i| o.iter().map(move |&j| columns[j][i])).collect()
+                };
+                PatternSums {
+                    sum,
+                    cross: keep_cross.then_some(cross),
+                    missing: (0..p).filter(|j| !o.contains(j)).collect(),
+                    values,
+                }
             })
             .collect();
         PatternStats { sums, fixed_sum, fixed_cross }
@@ -206,7 +235,7 @@ pub fn em_patterns(columns: &[&[f64]], patterns: &Patterns, options: &EmOptions)
         cov[(j, j)] = var;
     }
     let stats = PatternStats::new(columns, patterns);
-    let step = |mean: &DVector<f64>, cov: &DMatrix<f64>| em_step(columns, patterns, &stats, mean, cov);
+    let step = |mean: &DVector<f64>, cov: &DMatrix<f64>| em_step(patterns, &stats, mean, cov);
     let mut iterations = 0;
     let mut converged = false;
     // SQUAREM (Varadhan & Roland 2008, scheme S3): two EM steps give r = θ₁ − θ₀ and
@@ -263,6 +292,135 @@ pub fn em_patterns(columns: &[&[f64]], patterns: &Patterns, options: &EmOptions)
     })
 }
 
+/// Buffers for the patterns EM reads row by row (the common case when most patterns are rare):
+/// the conditional mean of each row's missing values from the precision matrix K,
+/// ŷ_m = μ_m − (K_mm)⁻¹ K_mo (y_o − μ_o), and its contribution to the sufficient statistics,
+/// with no allocation per pattern.
+struct Scratch {
+    kmm: Vec<f64>,
+    cinv: Vec<f64>,
+    linv: Vec<f64>,
+    kmo: Vec<f64>,
+    e: Vec<f64>,
+    w: Vec<f64>,
+    yh: Vec<f64>,
+}
+
+impl Scratch {
+    fn new(p: usize) -> Self {
+        Scratch {
+            kmm: vec![0.0; p * p],
+            cinv: vec![0.0; p * p],
+            linv: vec![0.0; p * p],
+            kmo: vec![0.0; p * p],
+            e: vec![0.0; p],
+            w: vec![0.0; p],
+            yh: vec![0.0; p],
+        }
+    }
+
+    /// (K_mm)⁻¹ into `cinv` by a Cholesky factor (row-major, `mm` x `mm`).
+    fn invert(&mut self, mm: usize) -> Result<(), StatsError> {
+        let (a, l, c) = (&mut self.kmm, &mut self.linv, &mut self.cinv);
+        for j in 0..mm {
+            let mut d = a[j * mm + j];
+            for k in 0..j {
+                d -= a[j * mm + k] * a[j * mm + k];
+            }
+            if d <= 0.0 || !d.is_finite() {
+                return Err(StatsError::Singular { what: "a covariance block".into() });
+            }
+            let d = d.sqrt();
+            a[j * mm + j] = d;
+            for i in j + 1..mm {
+                let mut v = a[i * mm + j];
+                for k in 0..j {
+                    v -= a[i * mm + k] * a[j * mm + k];
+                }
+                a[i * mm + j] = v / d;
+            }
+        }
+        // L⁻¹ (lower) by forward substitution, then C = L⁻ᵀ L⁻¹.
+        for col in 0..mm {
+            for i in 0..mm {
+                let mut v = if i == col { 1.0 } else { 0.0 };
+                for k in col..i {
+                    v -= a[i * mm + k] * l[k * mm + col];
+                }
+                l[i * mm + col] = if i < col { 0.0 } else { v / a[i * mm + i] };
+            }
+        }
+        for i in 0..mm {
+            for j in 0..=i {
+                let mut v = 0.0;
+                for k in i.max(j)..mm {
+                    v += l[k * mm + i] * l[k * mm + j];
+                }
+                c[i * mm + j] = v;
+                c[j * mm + i] = v;
+            }
+        }
+        Ok(())
+    }
+
+    /// Adds the rows of one pattern (`values`: its answered values row by row).
+    #[allow(clippy::too_many_arguments)]
+    fn rows(
+        &mut self,
+        values: &[f64],
+        mean: &DVector<f64>,
+        precision: &DMatrix<f64>,
+        o: &[usize],
+        m: &[usize],
+        t1: &mut DVector<f64>,
+        t2: &mut DMatrix<f64>,
+    ) -> Result<(), StatsError> {
+        let (mm, oo) = (m.len(), o.len());
+        for a in 0..mm {
+            for b in 0..mm {
+                self.kmm[a * mm + b] = precision[(m[a], m[b])];
+            }
+            for b in 0..oo {
+                self.kmo[a * oo + b] = precision[(m[a], o[b])];
+            }
+        }
+        self.invert(mm)?;
+        let count = (values.len() / oo.max(1)) as f64;
+        for y in values.chunks_exact(oo) {
+            for b in 0..oo {
+                self.e[b] = y[b] - mean[o[b]];
+            }
+            for a in 0..mm {
+                self.w[a] = (0..oo).map(|b| self.kmo[a * oo + b] * self.e[b]).sum();
+            }
+            for a in 0..mm {
+                self.yh[a] = mean[m[a]] - (0..mm).map(|b| self.cinv[a * mm + b] * self.w[b]).sum::<f64>();
+            }
+            let p = t1.len();
+            let t2 = t2.as_mut_slice();
+            for a in 0..mm {
+                let ya = self.yh[a];
+                let ma = m[a];
+                t1[ma] += ya;
+                for (&ob, &yb) in o.iter().zip(y) {
+                    let v = ya * yb;
+                    t2[ma + ob * p] += v;
+                    t2[ob + ma * p] += v;
+                }
+                for (&mb, &yhb) in m.iter().zip(&self.yh[..mm]) {
+                    t2[ma + mb * p] += ya * yhb;
+                }
+            }
+        }
+        for a in 0..mm {
+            for b in 0..mm {
+                t2[(m[a], m[b])] += count * self.cinv[a * mm + b];
+            }
+        }
+        Ok(())
+    }
+}
+
 /// A pattern (answered items, rows) with its sums.
 type PatternRef<'a> = (&'a (Vec<usize>, Vec<usize>), &'a PatternSums);
 
@@ -276,7 +434,6 @@ const EM_CHUNK: usize = 256;
 /// One EM step from (μ, Σ): the expected sufficient statistics given the answered values,
 /// then μ = T1 / n, Σ = T2 / n − μμ'.
 fn em_step(
-    columns: &[&[f64]],
     patterns: &Patterns,
     stats: &PatternStats,
     mean: &DVector<f64>,
@@ -291,55 +448,38 @@ fn em_step(
         .map(|chunk| {
             let mut t1 = DVector::zeros(p);
             let mut t2 = DMatrix::zeros(p, p);
+            let mut scratch = Scratch::new(p);
             for &((o, rows), st) in chunk {
                 if o.len() == p {
                     continue;
                 }
-                let m: Vec<usize> = (0..p).filter(|j| !o.contains(j)).collect();
+                let m: &[usize] = &st.missing;
                 let count = rows.len() as f64;
+                if st.cross.is_none() {
+                    scratch.rows(&st.values, mean, &precision, o, m, &mut t1, &mut t2)?;
+                    continue;
+                }
                 // y_m | y_o ~ N(μ_m + β (y_o − μ_o), C) with C = (K_mm)⁻¹ and β = −C K_mo
                 // (K = Σ⁻¹; Little & Rubin 2002, §11.2), so with a = μ_m − β μ_o and the
                 // pattern's sums S1 = Σ y_o, S2 = Σ y_o y_o':
                 // Σ ŷ_m = n a + β S1, Σ ŷ_m y_o' = a S1' + β S2,
                 // Σ (ŷ_m ŷ_m' + C) = n (a a' + C) + a (β S1)' + (β S1) a' + β S2 β'.
-                let (cond, _) = inverse(&sub(&precision, &m, &m))?;
-                let k_mo = sub(&precision, &m, o);
+                let (cond, _) = inverse(&sub(&precision, m, m))?;
+                let k_mo = sub(&precision, m, o);
                 let mu_o = DVector::from_iterator(o.len(), o.iter().map(|&j| mean[j]));
                 let mu_m = DVector::from_iterator(m.len(), m.iter().map(|&j| mean[j]));
-                let (sum_m, cross_mo, cross_mm) = match &st.cross {
-                    Some(cross) => {
-                        let beta = -(&cond * k_mo);
-                        let a_vec = mu_m - &beta * mu_o;
-                        let b_s1 = &beta * &st.sum;
-                        let sum_m = &a_vec * count + &b_s1;
-                        let b_s2 = &beta * cross;
-                        let cross_mo = &a_vec * st.sum.transpose() + &b_s2;
-                        let cross_mm = (&a_vec * a_vec.transpose() + &cond) * count
-                            + &a_vec * b_s1.transpose()
-                            + &b_s1 * a_vec.transpose()
-                            + &b_s2 * beta.transpose();
-                        (sum_m, cross_mo, cross_mm)
-                    }
-                    None => {
-                        // Few rows: each row's prediction ŷ_m = μ_m − C K_mo (y_o − μ_o),
-                        // without forming β (m·o + m² operations a row).
-                        let mut sum_m = DVector::zeros(m.len());
-                        let mut cross_mo = DMatrix::zeros(m.len(), o.len());
-                        let mut cross_mm = &cond * count;
-                        let mut y = DVector::zeros(o.len());
-                        for &i in rows {
-                            for (a, &j) in o.iter().enumerate() {
-                                y[a] = columns[j][i];
-                            }
-                            let w = &k_mo * (&y - &mu_o);
-                            let y_hat = &mu_m - &cond * w;
-                            sum_m += &y_hat;
-                            cross_mo.ger(1.0, &y_hat, &y, 1.0);
-                            cross_mm.ger(1.0, &y_hat, &y_hat, 1.0);
-                        }
-                        (sum_m, cross_mo, cross_mm)
-                    }
-                };
+                // Patterns read row by row were handled above; these keep their sums.
+                let Some(cross) = &st.cross else { continue };
+                let beta = -(&cond * k_mo);
+                let a_vec = mu_m - &beta * mu_o;
+                let b_s1 = &beta * &st.sum;
+                let sum_m = &a_vec * count + &b_s1;
+                let b_s2 = &beta * cross;
+                let cross_mo = &a_vec * st.sum.transpose() + &b_s2;
+                let cross_mm = (&a_vec * a_vec.transpose() + &cond) * count
+                    + &a_vec * b_s1.transpose()
+                    + &b_s1 * a_vec.transpose()
+                    + &b_s2 * beta.transpose();
                 for (a, &j) in m.iter().enumerate() {
                     t1[j] += sum_m[a];
                     for (b, &l) in o.iter().enumerate() {
@@ -374,14 +514,47 @@ pub fn observed_loglik(
     mean: &DVector<f64>,
     cov: &DMatrix<f64>,
 ) -> Result<f64, StatsError> {
+    // Through the precision K = Σ⁻¹, at O(|m|³) a pattern instead of O(|o|³):
+    // |Σ_oo| = |Σ| |K_mm| and Σ_oo⁻¹ = K_oo − K_om K_mm⁻¹ K_mo (partitioned inverse).
+    let (precision, logdet_all) = inverse(cov)?;
+    let p = patterns.p;
+    let pieces: Vec<Result<f64, StatsError>> = patterns
+        .groups
+        .par_chunks(EM_CHUNK)
+        .map(|chunk| {
+            let mut total = 0.0;
+            for (o, rows) in chunk {
+                let m: Vec<usize> = (0..p).filter(|j| !o.contains(j)).collect();
+                let k_oo = sub(&precision, o, o);
+                let k_mo = sub(&precision, &m, o);
+                let chol = if m.is_empty() {
+                    None
+                } else {
+                    Some(
+                        sub(&precision, &m, &m)
+                            .cholesky()
+                            .ok_or_else(|| StatsError::Singular { what: "a covariance block".into() })?,
+                    )
+                };
+                let logdet_kmm =
+                    chol.as_ref().map_or(0.0, |c| 2.0 * c.l_dirty().diagonal().iter().map(|d| d.ln()).sum::<f64>());
+                let logdet = logdet_all + logdet_kmm;
+                for &i in rows {
+                    let e = DVector::from_iterator(o.len(), o.iter().map(|&j| columns[j][i] - mean[j]));
+                    let mut q = (e.transpose() * &k_oo * &e)[(0, 0)];
+                    if let Some(c) = &chol {
+                        let w = &k_mo * &e;
+                        q -= w.dot(&c.solve(&w));
+                    }
+                    total += -0.5 * (o.len() as f64 * (2.0 * std::f64::consts::PI).ln() + logdet + q);
+                }
+            }
+            Ok(total)
+        })
+        .collect();
     let mut total = 0.0;
-    for (o, rows) in &patterns.groups {
-        let (s, logdet) = inverse(&sub(cov, o, o))?;
-        for &i in rows {
-            let e = DVector::from_iterator(o.len(), o.iter().map(|&j| columns[j][i] - mean[j]));
-            let q = (e.transpose() * &s * &e)[(0, 0)];
-            total += -0.5 * (o.len() as f64 * (2.0 * std::f64::consts::PI).ln() + logdet + q);
-        }
+    for piece in pieces {
+        total += piece?;
     }
     Ok(total)
 }
