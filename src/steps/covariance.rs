@@ -568,7 +568,11 @@ impl Step for CovarianceStep {
         let sampling = super::sampling::available(load.matrix.is_some(), &kinds, self.ordinal).to_string();
         let sampling_note = smoothing.as_ref().map(|_| super::sampling::SMOOTHED_NOTE.to_string());
         let mcar = match &load.table {
-            Some(table) => super::missing_data::mcar(load, table)?,
+            Some(table) => {
+                // `fiml` on continuous items already ran EM on these values: reuse it.
+                let em = e.missing_data.as_ref().and_then(|m| m.mean.as_deref()).map(|m| (m, &e.covariance));
+                super::missing_data::mcar(load, table, em)?
+            }
             None => None,
         };
         let missingness = load.table.as_ref().and_then(super::missing_data::missingness);

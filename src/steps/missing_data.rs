@@ -12,7 +12,7 @@ use construe_stats::mixed::{Column, MISSING_CODE, mixed_correlation};
 use construe_stats::moments::sample_variance;
 use construe_stats::polychoric::OrdinalFit;
 use construe_stats::{StatsError, mixed};
-use nalgebra::DMatrix;
+use nalgebra::{DMatrix, DVector};
 use schemars::JsonSchema;
 use serde::{Deserialize, Deserializer, Serialize, Serializer};
 
@@ -91,6 +91,9 @@ pub struct MissingData {
     pub rows_without_answers: usize,
     /// Distinct patterns of answered items.
     pub patterns: usize,
+    /// The EM means of the items (continuous items; the EM covariance is the step's
+    /// `covariance`), kept so the sampling covariance is built without rerunning EM.
+    pub mean: Option<Vec<f64>>,
     /// EM iterations (continuous items).
     pub iterations: Option<usize>,
     /// Whether EM met its convergence criterion (continuous items).
@@ -212,8 +215,13 @@ fn stats(context: &str) -> impl Fn(StatsError) -> StepError + '_ {
 }
 
 /// Little's test on the table's items (ordinal items by their numeric codes: an approximation,
-/// said in the note). `None` when no value is missing.
-pub fn mcar(load: &LoadOutput, table: &Table) -> Result<Option<McarRecord>, StepError> {
+/// said in the note). `None` when no value is missing. `em`: the EM mean and covariance of the
+/// same values when `fiml` already computed them (continuous items), so EM runs once.
+pub fn mcar(
+    load: &LoadOutput,
+    table: &Table,
+    em: Option<(&[f64], &DMatrix<f64>)>,
+) -> Result<Option<McarRecord>, StepError> {
     let values: Vec<Cow<'_, [f64]>> = table.columns.iter().map(DataColumn::values).collect();
     let views: Vec<&[f64]> = values.iter().map(AsRef::as_ref).collect();
     if !views.iter().any(|c| c.iter().any(|v| v.is_nan())) {
@@ -229,19 +237,18 @@ pub fn mcar(load: &LoadOutput, table: &Table) -> Result<Option<McarRecord>, Step
     if patterns.len() > MCAR_MAX_PATTERNS {
         return skip(format!("not run: more than {MCAR_MAX_PATTERNS} patterns of answered items"));
     }
-    let est = match missing::em_patterns(&views, &patterns, &EmOptions::default()) {
-        Ok(e) => e,
-        Err(e) => return skip(format!("not run: {e}")),
+    let (mean, cov) = match em {
+        Some((mean, cov)) => (DVector::from_column_slice(mean), cov.clone()),
+        None => match missing::em_patterns(&views, &patterns, &EmOptions::default()) {
+            Ok(e) => (e.mean, e.cov),
+            Err(e) => return skip(format!("not run: {e}")),
+        },
     };
     let ordinal = load.item_kinds().contains(&ItemKind::Ordinal);
     let note = ordinal.then(|| "ordinal items enter by their response codes (normal-theory approximation)".to_string());
-    Ok(missing::little_mcar(&views, &patterns, &est).map_err(stats("Little's MCAR test"))?.map(|t| McarRecord {
-        stat: Some(t.stat),
-        df: Some(t.df),
-        p: Some(t.p),
-        patterns: t.patterns,
-        note,
-    }))
+    Ok(missing::little_mcar_at(&views, &patterns, &mean, &cov)
+        .map_err(stats("Little's MCAR test"))?
+        .map(|t| McarRecord { stat: Some(t.stat), df: Some(t.df), p: Some(t.p), patterns: t.patterns, note }))
 }
 
 /// What `fiml` estimated: the matrices, the rows behind them, the record.
@@ -280,6 +287,7 @@ pub fn fiml(
             rows_used: est.n_used,
             rows_without_answers: est.rows_without_answers,
             patterns: patterns.len(),
+            mean: Some(est.mean.iter().copied().collect()),
             iterations: Some(est.iterations),
             converged: Some(est.converged),
             imputations: None,
@@ -340,6 +348,7 @@ pub fn fiml(
         rows_used: table.rows() - rows_without_answers,
         rows_without_answers,
         patterns,
+        mean: None,
         iterations: None,
         converged: None,
         imputations: Some(IMPUTATIONS),
@@ -434,13 +443,23 @@ pub fn pool(columns: &[Column<'_>], imputed: &ImputedValues, fit: OrdinalFit) ->
     Pooled::new(estimates, within).map_err(stats("pooling the imputations"))
 }
 
-/// The two-stage sampling covariance of the EM estimates (continuous items under `fiml`).
-pub fn two_stage(table: &Table, robust: bool, correlations: bool) -> Result<TwoStage, StepError> {
+/// The two-stage sampling covariance at the EM estimates the covariance step stored
+/// (continuous items under `fiml`: `record.mean` and the step's covariance `cov`).
+pub fn two_stage(
+    table: &Table,
+    record: &MissingData,
+    cov: &DMatrix<f64>,
+    robust: bool,
+    correlations: bool,
+) -> Result<TwoStage, StepError> {
     let values: Vec<Cow<'_, [f64]>> = table.columns.iter().map(DataColumn::values).collect();
     let views: Vec<&[f64]> = values.iter().map(AsRef::as_ref).collect();
     let patterns = Patterns::new(&views).map_err(stats("the missing-data patterns"))?;
-    let est = missing::em_patterns(&views, &patterns, &EmOptions::default())
-        .map_err(stats("EM for the mean and covariance"))?;
-    let two = TwoStage::new(&views, &patterns, &est, robust).map_err(stats("the two-stage sampling covariance"))?;
+    let mean = record.mean.as_ref().ok_or_else(|| StepError::Stats {
+        context: "the two-stage sampling covariance".into(),
+        source: StatsError::InvalidInput("the covariance step stored no EM means".into()),
+    })?;
+    let two = TwoStage::at(&views, &patterns, &DVector::from_column_slice(mean), cov, robust)
+        .map_err(stats("the two-stage sampling covariance"))?;
     Ok(if correlations { two.correlations() } else { two })
 }

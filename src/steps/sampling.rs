@@ -188,6 +188,8 @@ fn fiml_sampling(
     if continuous {
         let two = super::missing_data::two_stage(
             table,
+            record,
+            &cov.covariance_matrix(),
             theory == Theory::DistributionFree,
             moments == Moments::Correlations,
         )?;

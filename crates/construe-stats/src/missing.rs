@@ -578,6 +578,16 @@ pub fn little_mcar(
     patterns: &Patterns,
     estimate: &EmEstimate,
 ) -> Result<Option<McarTest>, StatsError> {
+    little_mcar_at(columns, patterns, &estimate.mean, &estimate.cov)
+}
+
+/// `little_mcar` at EM estimates a caller already holds (`mean`, `cov`).
+pub fn little_mcar_at(
+    columns: &[&[f64]],
+    patterns: &Patterns,
+    mean: &DVector<f64>,
+    cov: &DMatrix<f64>,
+) -> Result<Option<McarTest>, StatsError> {
     let mut stat = 0.0;
     let mut answered = 0;
     let mut items = vec![false; patterns.p];
@@ -586,11 +596,11 @@ pub fn little_mcar(
         for &j in o {
             items[j] = true;
         }
-        let (s, _) = inverse(&sub(&estimate.cov, o, o))?;
+        let (s, _) = inverse(&sub(cov, o, o))?;
         let count = rows.len() as f64;
         let dev = DVector::from_iterator(
             o.len(),
-            o.iter().map(|&j| rows.iter().map(|&i| columns[j][i]).sum::<f64>() / count - estimate.mean[j]),
+            o.iter().map(|&j| rows.iter().map(|&i| columns[j][i]).sum::<f64>() / count - mean[j]),
         );
         stat += count * (dev.transpose() * &s * &dev)[(0, 0)];
     }
@@ -634,19 +644,34 @@ impl TwoStage {
         estimate: &EmEstimate,
         robust: bool,
     ) -> Result<Self, StatsError> {
+        Self::at(columns, patterns, &estimate.mean, &estimate.cov, robust)
+    }
+
+    /// Builds the sampling covariance at the EM estimates `mean` and `cov` of these rows (as a
+    /// caller that stored them, rather than the whole `EmEstimate`, has them).
+    pub fn at(
+        columns: &[&[f64]],
+        patterns: &Patterns,
+        mean: &DVector<f64>,
+        cov: &DMatrix<f64>,
+        robust: bool,
+    ) -> Result<Self, StatsError> {
         let p = patterns.p;
+        if mean.len() != p || cov.shape() != (p, p) {
+            return Err(StatsError::SizeMismatch { what: "items in the EM estimates", expected: p, found: mean.len() });
+        }
         if p > MAX_TWO_STAGE_ITEMS {
             return Err(StatsError::InvalidInput(format!(
                 "the two-stage sampling covariance handles at most {MAX_TWO_STAGE_ITEMS} items ({p} given)"
             )));
         }
-        let (h, b) = information(columns, patterns, &estimate.mean, &estimate.cov, robust)?;
+        let (h, b) = information(columns, patterns, mean, cov, robust)?;
         let (h_inv, _) = inverse(&h)?;
         let acov = match b {
             Some(b) => &h_inv * b * &h_inv,
             None => h_inv,
         };
-        Ok(Self { p, n_obs: patterns.used_rows(), robust, cov: estimate.cov.clone(), acov, correlation: false })
+        Ok(Self { p, n_obs: patterns.used_rows(), robust, cov: cov.clone(), acov, correlation: false })
     }
 
     /// The same estimates on the correlation scale, r_jl = σ_jl / √(σ_jj σ_ll), by the delta
