@@ -140,6 +140,20 @@ pub enum SpecProblem {
         "items `{first}` and `{second}` are never answered by the same respondent, so no method can estimate their covariance"
     )]
     DataNeverTogether { first: String, second: String },
+    #[error("`{item}` in {place} is not an item of any construct")]
+    ImpurityItemNotInConstruct { place: String, item: String, suggestion: Option<String> },
+    #[error("a correlated error needs two different items, but both are `{item}`")]
+    ErrorWithItself { item: String },
+    #[error("{what} is declared twice")]
+    DuplicateImpurity { what: String },
+    #[error("item `{item}` belongs to construct `{construct}` already; `also` must name another construct")]
+    CrossLoadingOnOwnConstruct { item: String, construct: String },
+    #[error("method factor `{factor}` has {}; it needs at least 2", crate::spec::diagnostic::plural(*count, "item"))]
+    MethodFactorTooSmall { factor: String, count: usize },
+    #[error("method factor `{factor}` has the name of a construct")]
+    MethodFactorIsConstruct { factor: String },
+    #[error("method factor `{factor}` holds every item of construct `{construct}`, so the two factors cannot be told apart")]
+    MethodFactorCoversConstruct { factor: String, construct: String },
 }
 
 impl SpecProblem {
@@ -151,7 +165,8 @@ impl SpecProblem {
             | UnknownItem { suggestion, .. }
             | MissingColumn { suggestion, .. }
             | UnknownConstruct { suggestion, .. }
-            | UnknownDataItem { suggestion, .. } => suggestion.clone(),
+            | UnknownDataItem { suggestion, .. }
+            | ImpurityItemNotInConstruct { suggestion, .. } => suggestion.clone(),
             UnreadableTruthModel { hint, .. } => hint.clone(),
             InvalidTruthModel { path, .. } => Some(format!(
                 "`construe simulate {} --out FILE` shows every problem with its position",
@@ -200,6 +215,17 @@ impl SpecProblem {
                 Some("an item can indicate only one declared construct; purification looks for cross-loadings".into())
             }
             ImpossibleRequirement { .. } => Some("drop the requirement, or change the tiers or `forbid`".into()),
+            ErrorWithItself { .. } | DuplicateImpurity { .. } => Some("keep one declaration of each impurity".into()),
+            CrossLoadingOnOwnConstruct { .. } => {
+                Some("a cross-loading adds a loading on a second construct; the item's own loading is always estimated".into())
+            }
+            MethodFactorTooSmall { .. } => Some(
+                "a factor shared by one item is only its error variance; list at least 2 items (with exactly 2, their loadings are held equal)".into(),
+            ),
+            MethodFactorIsConstruct { .. } => Some("give the method factor a name of its own".into()),
+            MethodFactorCoversConstruct { .. } => Some(
+                "a method factor must leave some of the construct's items out; for a construct of reverse-worded items alone, declare no method factor".into(),
+            ),
             _ => None,
         }
     }

@@ -6,7 +6,7 @@ use super::diagnostic::suggest;
 use super::positions::{Positions, child};
 use super::problem::{Finding, SpecProblem};
 
-const ROOT: &[&str] = &["construe", "title", "data", "constructs", "knowledge", "analyses", "report"];
+const ROOT: &[&str] = &["construe", "title", "data", "constructs", "knowledge", "analyses", "report", "impurities"];
 const DATA: &[&str] = &["waves", "matrix", "id_column", "missing_codes", "ordinal", "reverse"];
 const WAVE: &[&str] = &["id", "file"];
 const MATRIX: &[&str] = &["file", "kind", "n"];
@@ -23,6 +23,8 @@ const SENSITIVITY: &[&str] = &["reliability", "prior", "draws", "alpha", "seed"]
 const PRIOR: &[&str] = &["beta"];
 const RESAMPLE: &[&str] = &["replicates", "seed"];
 const REPORT: &[&str] = &["formats", "dir", "truth_model"];
+const IMPURITIES: &[&str] = &["correlated_errors", "cross_loadings", "method_factors"];
+const CROSS_LOADING: &[&str] = &["item", "also"];
 
 /// What keys a mapping at a given path may have.
 enum Allowed {
@@ -64,6 +66,9 @@ fn allowed(path: &str) -> Allowed {
         ["analyses", "sensitivity", "prior", _] => Only(PRIOR),
         ["analyses", "resample"] => Only(RESAMPLE),
         ["report"] => Only(REPORT),
+        ["impurities"] => Only(IMPURITIES),
+        ["impurities", "cross_loadings[]"] => Only(CROSS_LOADING),
+        ["impurities", "method_factors"] => Any,
         _ => NotAMapping,
     }
 }
@@ -125,6 +130,10 @@ analyses:
   sensitivity: {reliability: {f: [0.5]}, prior: {f: {beta: [7, 3]}}, draws: 10, alpha: [0.01], seed: 3}
   resample: {replicates: 10, seed: 11}
 report: {formats: [html, markdown], dir: reports, truth_model: model.yaml}
+impurities:
+  correlated_errors: [[x1, x2]]
+  cross_loadings: [{item: x3, also: f}]
+  method_factors: {reversed: [x1, x3]}
 "#;
 
     #[test]

@@ -45,6 +45,11 @@ pub struct Spec {
     /// Where and in which formats the report is written.
     #[serde(default)]
     pub report: ReportSpec,
+    /// Impurities known in advance (shared wording, reverse-worded items, an item that also
+    /// reflects a second construct): the measurement and structural models estimate them
+    /// instead of purification having to drop the items.
+    #[serde(default, skip_serializing_if = "Impurities::is_empty")]
+    pub impurities: Impurities,
 }
 
 /// The data: either `waves` (one or more files of respondent rows) or `matrix` (a published
@@ -657,4 +662,45 @@ impl JsonSchema for Positive {
     fn json_schema(_: &mut SchemaGenerator) -> Schema {
         json_schema!({"type": "number", "exclusiveMinimum": 0.0})
     }
+}
+
+/// Impurities declared by the spec's author, modelled (estimated with standard errors) by
+/// `measure` and `structure` rather than dropped. Every item named here must be an item of a
+/// construct; an item that purification drops takes its declarations with it.
+#[derive(Debug, Clone, Default, Serialize, Deserialize, PartialEq, JsonSchema)]
+#[serde(deny_unknown_fields)]
+pub struct Impurities {
+    /// Pairs of items whose errors are correlated (for example near-identical wording), each
+    /// `[item_a, item_b]`; the two items may belong to the same or to different constructs.
+    #[serde(default)]
+    pub correlated_errors: Vec<[String; 2]>,
+    /// Items that also reflect a second construct: each `{item, also}` adds a loading of
+    /// `item` on the construct `also` (not the item's own construct).
+    #[serde(default)]
+    pub cross_loadings: Vec<CrossLoadingSpec>,
+    /// Method factors, each named by its key (not a construct's name) with the items it is
+    /// shared by (for example the reverse-worded ones). A method factor has unit variance and
+    /// is uncorrelated with the constructs and with other method factors; it never enters the
+    /// structure search. Identification needs at least 2 items (with exactly 2, their two
+    /// loadings are held equal, since only their product is identified) and may not take
+    /// every item of a construct (the two factors could then not be told apart).
+    #[serde(default)]
+    pub method_factors: IndexMap<String, Vec<String>>,
+}
+
+impl Impurities {
+    /// Whether nothing is declared.
+    pub fn is_empty(&self) -> bool {
+        self.correlated_errors.is_empty() && self.cross_loadings.is_empty() && self.method_factors.is_empty()
+    }
+}
+
+/// An item that also reflects a second construct.
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq, JsonSchema)]
+#[serde(deny_unknown_fields)]
+pub struct CrossLoadingSpec {
+    /// The item (an item of some construct).
+    pub item: String,
+    /// The other construct it also reflects.
+    pub also: String,
 }

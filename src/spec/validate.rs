@@ -69,6 +69,7 @@ pub fn validate(spec: &Spec, sources: &[SourceColumns]) -> Vec<Finding> {
     check_data_options(spec, available.as_ref(), &mut out);
     check_knowledge(spec, &mut out);
     check_analyses(spec, available.as_ref(), &mut out);
+    check_impurities(spec, &mut out);
     // `report.truth_model` is read, parsed and checked once, by `SpecFile::parse` (its problems
     // arrive in `SpecFile::early`).
     if spec.report.formats.is_empty() {
@@ -350,6 +351,107 @@ fn check_knowledge(spec: &Spec, out: &mut Vec<Finding>) {
                 SpecProblem::ImpossibleRequirement { from: from.clone(), to: to.clone(), reason },
                 path,
             ));
+        }
+    }
+}
+
+/// `impurities`: every item is an item of a construct, every `also` another declared construct,
+/// nothing declared twice, each method factor with at least 2 items, a name of its own, and
+/// not holding every item of one construct (identification; see `types::Impurities`).
+fn check_impurities(spec: &Spec, out: &mut Vec<Finding>) {
+    let imp = &spec.impurities;
+    let owner: HashMap<&str, &str> = spec
+        .constructs
+        .iter()
+        .flat_map(|(name, c)| c.items.iter().map(move |i| (i.as_str(), name.as_str())))
+        .collect();
+    let items: Vec<&str> = spec.constructs.values().flat_map(|c| c.items.iter().map(String::as_str)).collect();
+    let known = |place: &str, item: &str, path: String, out: &mut Vec<Finding>| -> Option<&str> {
+        let found = owner.get(item).copied();
+        if found.is_none() {
+            let problem = SpecProblem::ImpurityItemNotInConstruct {
+                place: place.to_string(),
+                item: item.to_string(),
+                suggestion: suggest(item, items.iter().copied()),
+            };
+            out.push(Finding::value(problem, path));
+        }
+        found
+    };
+    let mut pairs = HashSet::new();
+    for (i, [a, b]) in imp.correlated_errors.iter().enumerate() {
+        let base = element("impurities.correlated_errors", i);
+        let place = "`impurities.correlated_errors`";
+        let ka = known(place, a, element(&base, 0), out).is_some();
+        let kb = known(place, b, element(&base, 1), out).is_some();
+        if !(ka && kb) {
+            continue;
+        }
+        if a == b {
+            out.push(Finding::value(SpecProblem::ErrorWithItself { item: a.clone() }, base));
+        } else if !pairs.insert((a.min(b), a.max(b))) {
+            out.push(Finding::value(
+                SpecProblem::DuplicateImpurity { what: format!("the correlated error of `{a}` and `{b}`") },
+                base,
+            ));
+        }
+    }
+    let names: Vec<&str> = spec.constructs.keys().map(String::as_str).collect();
+    let mut cross = HashSet::new();
+    for (i, c) in imp.cross_loadings.iter().enumerate() {
+        let base = element("impurities.cross_loadings", i);
+        let own = known("`impurities.cross_loadings`", &c.item, child(&base, "item"), out);
+        if !names.contains(&c.also.as_str()) {
+            let problem = SpecProblem::UnknownConstruct {
+                place: "`impurities.cross_loadings`".into(),
+                name: c.also.clone(),
+                suggestion: suggest(&c.also, names.iter().copied()),
+            };
+            out.push(Finding::value(problem, child(&base, "also")));
+            continue;
+        }
+        match own {
+            Some(own) if own == c.also => out.push(Finding::value(
+                SpecProblem::CrossLoadingOnOwnConstruct { item: c.item.clone(), construct: c.also.clone() },
+                child(&base, "also"),
+            )),
+            Some(_) if !cross.insert((c.item.as_str(), c.also.as_str())) => out.push(Finding::value(
+                SpecProblem::DuplicateImpurity {
+                    what: format!("the cross-loading of `{}` on `{}`", c.item, c.also),
+                },
+                base,
+            )),
+            _ => {}
+        }
+    }
+    for (factor, list) in &imp.method_factors {
+        let base = child("impurities.method_factors", factor);
+        if spec.constructs.contains_key(factor) {
+            out.push(Finding::key(SpecProblem::MethodFactorIsConstruct { factor: factor.clone() }, base.clone()));
+        }
+        let mut seen = HashSet::new();
+        let place = format!("method factor `{factor}`");
+        for (i, item) in list.iter().enumerate() {
+            if known(&place, item, element(&base, i), out).is_some() && !seen.insert(item.as_str()) {
+                out.push(Finding::value(
+                    SpecProblem::DuplicateImpurity { what: format!("item `{item}` of method factor `{factor}`") },
+                    element(&base, i),
+                ));
+            }
+        }
+        if list.len() < 2 {
+            out.push(Finding::key(
+                SpecProblem::MethodFactorTooSmall { factor: factor.clone(), count: list.len() },
+                base.clone(),
+            ));
+        }
+        for (name, c) in &spec.constructs {
+            if c.items.len() > 1 && c.items.iter().all(|i| seen.contains(i.as_str())) {
+                out.push(Finding::key(
+                    SpecProblem::MethodFactorCoversConstruct { factor: factor.clone(), construct: name.clone() },
+                    base.clone(),
+                ));
+            }
         }
     }
 }

@@ -12,6 +12,7 @@ pub mod information;
 pub mod jacobian;
 pub mod linalg;
 pub mod model;
+pub mod modification;
 pub mod robust;
 pub mod standardized;
 pub mod start;
@@ -19,6 +20,7 @@ pub mod start;
 pub use fit::{FitOptions, Heywood, HeywoodKind, LatentMoments, ParameterEstimate, SemFit, fit};
 pub use indices::{BaselineFit, FitIndices, fit_indices, ncx2_cdf, rmsea_interval};
 pub use model::{Identification, Matrix, Param, ParamLayout, ParameterKind, SemModel};
+pub use modification::{Discrepancy, Judgement, Modification, Residual, modification_indices, standardized_residuals};
 pub use robust::{Correction, RobustFit, StatisticCorrection, Subset, fit_dwls, ml_sandwich, robust_indices};
 
 #[cfg(test)]

@@ -244,6 +244,33 @@ impl SemModel {
         Ok(model)
     }
 
+    /// Append a latent variable named `name` with no loadings, no paths, a free variance and
+    /// zero covariances with every other latent; returns its index (the old m). Used for
+    /// method factors, which load on named items and are uncorrelated with the constructs.
+    pub fn add_latent(&mut self, name: &str) -> usize {
+        let (p, m) = (self.p(), self.m());
+        let k = m + 1;
+        let zero = Param::Fixed(0.0);
+        let mut lambda = vec![zero.clone(); p * k];
+        for i in 0..p {
+            lambda[i * k..i * k + m].clone_from_slice(&self.lambda[i * m..(i + 1) * m]);
+        }
+        let grow = |old: &[Param]| {
+            let mut out = vec![zero.clone(); k * k];
+            for r in 0..m {
+                out[r * k..r * k + m].clone_from_slice(&old[r * m..(r + 1) * m]);
+            }
+            out
+        };
+        let (beta, mut psi) = (grow(&self.beta), grow(&self.psi));
+        psi[m * k + m] = Param::free();
+        self.lambda = lambda;
+        self.beta = beta;
+        self.psi = psi;
+        self.latent_names.push(name.to_string());
+        m
+    }
+
     /// Replace the default names (`x1..`, `f1..`); lengths must match p and m.
     pub fn with_names(mut self, observed: Vec<String>, latent: Vec<String>) -> Result<Self, StatsError> {
         if observed.len() != self.p() {
