@@ -13,6 +13,7 @@ mod diff;
 mod estimation;
 mod faults;
 mod guard;
+mod impurities;
 mod inputs;
 mod missing;
 mod power;

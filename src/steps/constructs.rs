@@ -14,7 +14,8 @@ use super::StepError;
 use super::covariance::{CovarianceOutput, PairMethod};
 use super::load::{ItemKind, LoadOutput};
 use super::sampling::{Moments, Theory, sampling_covariance};
-use crate::spec::types::{Estimation, EstimationMethod, Identification, OrdinalEstimation, StandardErrors};
+use super::impurities::{DeclaredImpurity, apply, start_from};
+use crate::spec::types::{Estimation, EstimationMethod, Identification, Impurities, OrdinalEstimation, StandardErrors};
 use construe_stats::StatsError;
 use construe_stats::acov::{Dense, Element, SamplingCovariance};
 use construe_stats::sem::{
@@ -365,17 +366,35 @@ fn capitalised(s: &str) -> String {
     c.next().map(|f| f.to_uppercase().chain(c).collect()).unwrap_or_default()
 }
 
-/// Fits the model of `constructs` (with latent `paths`) by the input's plan; a failing fit is a
-/// `StepError::Stats` with `context` ("the measurement model"). Returns the fit (robust SEs
-/// and corrected indices where the plan asks), the observed items in model order, and the
-/// statistic's correction.
+/// A fitted model of named constructs, with what the diagnosis (`Fitted::diagnose`) needs.
+pub struct Fitted {
+    /// The fit (robust SEs and corrected indices where the plan asks).
+    pub fit: SemFit,
+    /// The observed items in model order.
+    pub observed: Vec<String>,
+    /// The statistic's correction.
+    pub correction: Option<Correction>,
+    /// The model fitted: the constructs' latents first, then the method factors.
+    pub model: SemModel,
+    /// The matrix fitted (covariances for ML, correlations for DWLS), in model order.
+    pub s: DMatrix<f64>,
+    /// Rows of the covariance step's matrix, in model order.
+    pub index: Vec<usize>,
+    /// The declared impurities and what became of each.
+    pub declared: Vec<DeclaredImpurity>,
+}
+
+/// Fits the model of `constructs` (with latent `paths`) and the declared `impurities` by the
+/// input's plan; a failing fit is a `StepError::Stats` with `context` ("the measurement
+/// model"). See `impurities::apply` for how the declarations enter the model.
 pub fn fit_constructs(
     constructs: &[(String, Vec<String>, Option<f64>)],
     input: &ModelInput,
     ident: Identification,
     paths: &[(usize, usize)],
+    impurities: &Impurities,
     context: &'static str,
-) -> Result<(SemFit, Vec<String>, Option<Correction>), StepError> {
+) -> Result<Fitted, StepError> {
     let all_items = &input.items;
     let observed: Vec<String> = constructs.iter().flat_map(|(_, items, _)| items.iter().cloned()).collect();
     let index: Vec<usize> = observed
@@ -413,25 +432,37 @@ pub fn fit_constructs(
             _ => {}
         }
     }
-    let model = model.with_names(observed.clone(), names).map_err(stats)?;
+    let pure = model.clone().with_names(observed.clone(), names.clone()).map_err(stats)?;
+    let mut model = model;
+    let (declared, methods) = apply(&mut model, impurities, constructs, &observed);
+    let latent_names: Vec<String> = names.iter().cloned().chain(methods).collect();
+    let model = model.with_names(observed.clone(), latent_names).map_err(stats)?;
     let n = input.n;
+    // With declarations, start from the fit of the model without them (see `start_from`).
+    let options = if impurities.is_empty() {
+        FitOptions::default()
+    } else {
+        FitOptions { start: start_from(&pure, &model, &s, n), ..FitOptions::default() }
+    };
     let acov = match &input.acov {
         Some(v) => Some(Subset::new(v.as_ref(), index.clone()).map_err(stats)?),
         None => None,
     };
     let (fit, correction) = match (input.plan.method, input.plan.errors, &acov) {
         (Method::Dwls, _, Some(v)) => {
-            let robust = fit_dwls(&model, &s, v, &FitOptions::default()).map_err(stats)?;
+            let robust = fit_dwls(&model, &s, v, &options).map_err(stats)?;
             (robust.fit, Some(robust.correction))
         }
         (Method::Ml, Errors::Sandwich, Some(v)) => {
-            let ml = model.fit(&s, n, &FitOptions::default()).map_err(stats)?;
+            let ml = model.fit(&s, n, &options).map_err(stats)?;
             let robust = ml_sandwich(&ml, &s, v).map_err(stats)?;
             (robust.fit, Some(robust.correction))
         }
-        _ => (model.fit(&s, n, &FitOptions::default()).map_err(stats)?, None),
+        _ => (model.fit(&s, n, &options).map_err(stats)?, None),
     };
-    Ok((fit, observed, correction))
+    let mut declared = declared;
+    super::impurities::fill(&mut declared, &fit, &observed, model.latent_names());
+    Ok(Fitted { fit, observed, correction, model, s, index, declared })
 }
 
 #[cfg(test)]
@@ -451,10 +482,11 @@ mod tests {
             acov: None,
         };
         let missing = vec![("f".to_string(), vec!["a".to_string(), "b".to_string(), "q".to_string()], None)];
-        let e = fit_constructs(&missing, &input, Identification::UnitVariance, &[], "the model").unwrap_err();
+        let none = Impurities::default();
+        let e = fit_constructs(&missing, &input, Identification::UnitVariance, &[], &none, "the model").err().unwrap();
         assert!(matches!(&e, StepError::ItemNotInMatrix { item } if item == "q"), "{e:?}");
         let single = vec![("g".to_string(), vec!["c".to_string()], None)];
-        let e = fit_constructs(&single, &input, Identification::UnitVariance, &[], "the model").unwrap_err();
+        let e = fit_constructs(&single, &input, Identification::UnitVariance, &[], &none, "the model").err().unwrap();
         assert!(matches!(&e, StepError::NoReliability { construct } if construct == "g"), "{e:?}");
         assert_eq!(e.to_string(), "construct `g` has one item and no reliability");
     }

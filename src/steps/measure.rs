@@ -15,16 +15,18 @@ use serde_json::{Value, json};
 use std::sync::Arc;
 
 use super::constructs::{EstimationRecord, ModelInput, SharedAcov, fit_constructs, pair_methods};
+use super::impurities::{DeclaredImpurity, Diagnosis, ResidualRecord, Suggestion};
 use super::{Artifact, Inputs, Step, StepError, StepKind};
 use crate::spec::SpecFile;
-use crate::spec::types::{Identification, MeasureSpec};
+use crate::spec::types::{Identification, Impurities, MeasureSpec};
 use construe_stats::reliability::{cronbach_alpha, mcdonald_omega};
-use construe_stats::sem::{FitIndices, Matrix, ParameterKind, SemFit};
+use construe_stats::sem::{FitIndices, LatentMoments, Matrix, ParameterKind, SemFit};
 
 /// Bump when the fit changes for the same covariances, purification and parameters.
 /// v3: estimation chosen from the item types (DWLS / sandwich SEs, corrected statistics);
 /// reads `load` for the moments' sampling covariance; `estimation` record added.
-pub const VERSION: u32 = 3;
+/// v4: declared impurities modelled (`declared`); diagnosis (`suggestions`, `residuals`).
+pub const VERSION: u32 = 4;
 
 /// A parameter estimate.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
@@ -125,6 +127,14 @@ pub struct MeasureOutput {
     pub estimation: EstimationRecord,
     /// The declared (unpurified) model's fit, when purification dropped items.
     pub unpurified: Option<UnpurifiedFit>,
+    /// The impurities the spec declares (`impurities:`), with their estimates and SEs, or why
+    /// one is not modelled (an item dropped by purification takes its declarations with it).
+    pub declared: Vec<DeclaredImpurity>,
+    /// The largest modification indices of the error covariances and cross-loadings the model
+    /// fixes at zero (at most 10, largest first): suggestions to consider, exploratory.
+    pub suggestions: Vec<Suggestion>,
+    /// The largest residual correlations of the model (at most 10, largest in absolute value first).
+    pub residuals: Vec<ResidualRecord>,
 }
 
 /// The fit of the declared model before purification.
@@ -152,6 +162,10 @@ pub struct MeasureStep {
     purified: bool,
     /// The moments' sampling covariance shared by sensitivity's refits (never in the key).
     shared: Option<Arc<SharedAcov>>,
+    impurities: Impurities,
+    /// Whether to diagnose the model (off for sensitivity's refits, which read only the
+    /// latent covariance; never in the key).
+    diagnose: bool,
 }
 
 impl MeasureStep {
@@ -162,7 +176,14 @@ impl MeasureStep {
             .iter()
             .map(|(n, c)| ConstructModel { name: n.clone(), items: c.items.clone(), reliability: c.reliability })
             .collect();
-        MeasureStep { params: params.clone(), declared, purified: file.spec.analyses.purify.is_some(), shared: None }
+        MeasureStep {
+            params: params.clone(),
+            declared,
+            purified: file.spec.analyses.purify.is_some(),
+            shared: None,
+            impurities: file.spec.impurities.clone(),
+            diagnose: true,
+        }
     }
 }
 
@@ -179,7 +200,7 @@ impl MeasureStep {
     /// The same step drawing the moments' sampling covariance from `shared` (refits over the
     /// same `load` and `covariance`).
     pub fn sharing(&self, shared: Arc<SharedAcov>) -> MeasureStep {
-        MeasureStep { shared: Some(shared), ..self.clone() }
+        MeasureStep { shared: Some(shared), diagnose: false, ..self.clone() }
     }
 }
 
@@ -209,7 +230,7 @@ impl Step for MeasureStep {
     }
 
     fn params(&self) -> Value {
-        json!({"identification": self.params.identification, "estimation": self.params.estimation, "constructs": self.declared})
+        json!({"identification": self.params.identification, "estimation": self.params.estimation, "constructs": self.declared, "impurities": self.impurities})
     }
 
     fn inputs(&self) -> Vec<StepKind> {
@@ -229,28 +250,37 @@ impl Step for MeasureStep {
         let input =
             ModelInput::new(inputs.load()?, cov, self.params.estimation, &declared_items, self.shared.as_deref())?;
         let n = input.n;
-        let (fit, observed, correction) =
-            fit_constructs(&constructs, &input, self.params.identification, &[], "the measurement model")?;
+        let ident = self.params.identification;
+        let fitted = fit_constructs(&constructs, &input, ident, &[], &self.impurities, "the measurement model")?;
         let unpurified = if self.purified && constructs.iter().zip(&self.declared).any(|(c, d)| c.1 != d.items) {
             let declared = self.constructs(None);
-            fit_constructs(&declared, &input, self.params.identification, &[], "the declared model")
+            fit_constructs(&declared, &input, ident, &[], &self.impurities, "the declared model")
                 .ok()
-                .map(|(f, _, _)| UnpurifiedFit { converged: f.converged, fit: f.indices.clone() })
+                .map(|f| UnpurifiedFit { converged: f.fit.converged, fit: f.fit.indices.clone() })
         } else {
             None
         };
-        let estimation = EstimationRecord::new("measurement model", &input.plan, &pair_methods(cov), n, correction);
-        Ok(Artifact::Measure(Box::new(summarise(
-            &fit,
+        // A diagnosis that cannot be computed (a singular information) leaves the lists empty
+        // rather than failing the measurement model.
+        let diagnosis =
+            if self.diagnose { fitted.diagnose(&input, constructs.len()).unwrap_or_default() } else { Diagnosis::default() };
+        let estimation =
+            EstimationRecord::new("measurement model", &input.plan, &pair_methods(cov), n, fitted.correction.clone());
+        let mut out = summarise(
+            &fitted.fit,
             &constructs,
-            &observed,
+            &fitted.observed,
             &input.covariance,
             &cov.items,
             n,
-            self.params.identification,
+            ident,
             unpurified,
             estimation,
-        ))))
+        );
+        out.declared = fitted.declared;
+        out.suggestions = diagnosis.suggestions;
+        out.residuals = diagnosis.residuals;
+        Ok(Artifact::Measure(Box::new(out)))
     }
 
     fn describe(&self, artifact: &Artifact) -> String {
@@ -285,7 +315,11 @@ pub fn summarise(
     let mut error_variances = IndexMap::new();
     for p in &fit.parameters {
         match (p.kind, p.matrix) {
-            (ParameterKind::Loading, Matrix::Lambda) if p.free.is_some() || p.est != 0.0 => {
+            // A construct's own items only: cross-loadings and method factors are in `declared`.
+            (ParameterKind::Loading, Matrix::Lambda)
+                if (p.free.is_some() || p.est != 0.0)
+                    && constructs.get(p.col).is_some_and(|c| c.1.contains(&observed[p.row])) =>
+            {
                 if let Some(map) = loadings.get_mut(&names[p.col]) {
                     map.insert(observed[p.row].clone(), Estimate { est: p.est, se: p.se, std: p.std });
                 }
@@ -297,7 +331,7 @@ pub fn summarise(
             _ => {}
         }
     }
-    let moments = fit.latent_moments();
+    let moments = constructs_only(fit.latent_moments(), names.len());
     let mut offset = 0;
     let reliability = constructs
         .iter()
@@ -314,6 +348,7 @@ pub fn summarise(
             (name.clone(), Reliability { omega, alpha })
         })
         .collect();
+    let latent = |k: usize| names.get(k).cloned().unwrap_or_else(|| format!("method factor {}", k + 1 - names.len()));
     let heywood = fit
         .heywood
         .iter()
@@ -321,8 +356,8 @@ pub fn summarise(
             kind: format!("{:?}", h.kind),
             parameter: match h.entry {
                 Some((Matrix::Theta, r, c)) if r == c => format!("error variance of `{}`", observed[r]),
-                Some((Matrix::Lambda, r, c)) => format!("loading of `{}` on `{}`", observed[r], names[c]),
-                Some((Matrix::Psi, r, c)) => format!("latent (co)variance `{}`, `{}`", names[r], names[c]),
+                Some((Matrix::Lambda, r, c)) => format!("loading of `{}` on `{}`", observed[r], latent(c)),
+                Some((Matrix::Psi, r, c)) => format!("latent (co)variance `{}`, `{}`", latent(r), latent(c)),
                 Some((m, r, c)) => format!("{m:?}[{r}, {c}]"),
                 None => "latent covariance matrix".into(),
             },
@@ -349,5 +384,27 @@ pub fn summarise(
         heywood,
         estimation,
         unpurified,
+        declared: Vec::new(),
+        suggestions: Vec::new(),
+        residuals: Vec::new(),
+    }
+}
+
+/// The latent moments of the first `m` latents (the constructs; method factors come after
+/// them and never reach the structure search). The pairs keep their column-major order, so
+/// the rows of `covariance_acov` that remain are those of the smaller matrix.
+fn constructs_only(full: LatentMoments, m: usize) -> LatentMoments {
+    if full.covariance.nrows() == m {
+        return full;
+    }
+    let keep: Vec<usize> = (0..full.pairs.len()).filter(|&e| full.pairs[e].0 < m && full.pairs[e].1 < m).collect();
+    let pick = |x: &DMatrix<f64>| DMatrix::from_fn(keep.len(), keep.len(), |a, b| x[(keep[a], keep[b])]);
+    LatentMoments {
+        pairs: keep.iter().map(|&e| full.pairs[e]).collect(),
+        covariance: full.covariance.view((0, 0), (m, m)).into_owned(),
+        covariance_acov: pick(&full.covariance_acov),
+        correlation: full.correlation.view((0, 0), (m, m)).into_owned(),
+        correlation_acov: pick(&full.correlation_acov),
+        jacobian: DMatrix::from_fn(keep.len(), full.jacobian.ncols(), |a, t| full.jacobian[(keep[a], t)]),
     }
 }

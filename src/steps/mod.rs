@@ -6,6 +6,7 @@
 pub mod constructs;
 pub mod covariance;
 pub mod discover;
+pub mod impurities;
 pub mod load;
 pub mod measure;
 pub mod missing_data;

@@ -13,7 +13,7 @@ use std::sync::Arc;
 use super::constructs::{EstimationRecord, ModelInput, Plan, SharedAcov, fit_constructs, pair_methods};
 use super::{Artifact, Inputs, Step, StepError, StepKind};
 use crate::spec::SpecFile;
-use crate::spec::types::{CiTest as CiTestKind, Knowledge as KnowledgeSpec, StructureSpec};
+use crate::spec::types::{CiTest as CiTestKind, Impurities, Knowledge as KnowledgeSpec, StructureSpec};
 use construe_stats::bvn::Z_975;
 use construe_stats::search::{
     CiTest, ColliderRule, EdgeKind, FisherZ, Knowledge, KnowledgeError, PcOptions, Reason, WaldPartial, enumerate_dags,
@@ -25,7 +25,8 @@ use construe_stats::sem::{FitIndices, Matrix, ParameterKind};
 /// v3: edge kinds stored as `EdgeKind` (the artifact's bytes changed; results.json did not).
 /// v4: the measurement model's estimator (DWLS / sandwich SEs) for the structural fits; the
 /// Wald tests read measure's robust latent covariance; `estimation` record added.
-pub const VERSION: u32 = 4;
+/// v5: the structural fits model the declared impurities (`impurities:`).
+pub const VERSION: u32 = 5;
 
 /// Class members fitted at most (the rest are counted, not fitted).
 const MAX_MEMBERS: usize = 8;
@@ -131,12 +132,19 @@ pub struct StructureStep {
     reliabilities: Vec<(String, Option<f64>)>,
     /// The moments' sampling covariance shared by sensitivity's refits (never in the key).
     shared: Option<Arc<SharedAcov>>,
+    impurities: Impurities,
 }
 
 impl StructureStep {
     pub fn from_spec(file: &SpecFile, params: &StructureSpec) -> StructureStep {
         let reliabilities = file.spec.constructs.iter().map(|(n, c)| (n.clone(), c.reliability)).collect();
-        StructureStep { params: params.clone(), knowledge: file.spec.knowledge.clone(), reliabilities, shared: None }
+        StructureStep {
+            params: params.clone(),
+            knowledge: file.spec.knowledge.clone(),
+            reliabilities,
+            shared: None,
+            impurities: file.spec.impurities.clone(),
+        }
     }
 
     /// The same step with `construct`'s reliability replaced (sensitivity).
@@ -211,7 +219,7 @@ impl Step for StructureStep {
     }
 
     fn params(&self) -> Value {
-        json!({"alpha": self.params.alpha, "test": self.params.test, "knowledge": self.knowledge, "reliabilities": self.reliabilities})
+        json!({"alpha": self.params.alpha, "test": self.params.test, "knowledge": self.knowledge, "reliabilities": self.reliabilities, "impurities": self.impurities})
     }
 
     fn inputs(&self) -> Vec<StepKind> {
@@ -272,8 +280,15 @@ impl Step for StructureStep {
         for dag in &class.dags {
             let paths: Vec<(usize, usize)> =
                 dag.edges().iter().filter(|e| e.is_directed()).map(|e| (e.from, e.to)).collect();
-            let (fit, _, correction) =
-                fit_constructs(&constructs, &input, measure.identification, &paths, "the structural model")?;
+            let fitted = fit_constructs(
+                &constructs,
+                &input,
+                measure.identification,
+                &paths,
+                &self.impurities,
+                "the structural model",
+            )?;
+            let (fit, correction) = (fitted.fit, fitted.correction);
             if estimation.is_none() {
                 estimation = Some(EstimationRecord::new(
                     "structural model",
