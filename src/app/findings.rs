@@ -103,6 +103,7 @@ fn fit_point(r: &Value, points: &mut Vec<Value>, cautions: &mut Vec<String>) {
     if let (Some(ur), Some(uc)) = (u["rmsea"].as_f64(), u["cfi"].as_f64()) {
         s.push_str(&format!(" With every declared item: RMSEA {ur:.3}, CFI {uc:.3}."));
     }
+    s.push_str(&diagnosis_sentence(m));
     points.push(point("Fit", s));
     if m["converged"] == Value::Bool(false) {
         cautions.push("The measurement model did not converge: treat its numbers as unreliable.".into());
@@ -111,6 +112,35 @@ fn fit_point(r: &Value, points: &mut Vec<Value>, cautions: &mut Vec<String>) {
         let names: Vec<String> = h.iter().map(|x| text(&x["parameter"])).collect();
         cautions.push(format!("Improper solution (Heywood case) for {}.", list(&names)));
     }
+}
+
+/// One sentence on the declared impurities modelled and, when the largest modification index
+/// reads as a material misfit, what it suggests (empty when there is nothing to say).
+fn diagnosis_sentence(m: &Value) -> String {
+    let mut s = String::new();
+    let modelled = m["declared"].as_array().map_or(0, |d| d.iter().filter(|x| x["modelled"] == true).count());
+    if modelled > 0 {
+        s.push_str(&format!(
+            " It estimates {modelled} declared impurit{} rather than dropping the items.",
+            if modelled == 1 { "y" } else { "ies" }
+        ));
+    }
+    let top = &m["suggestions"][0];
+    if top["judgement"] == "misspecified" {
+        let items: Vec<String> =
+            top["items"].as_array().map(|a| a.iter().map(|i| format!("`{}`", text(i))).collect()).unwrap_or_default();
+        let what = if top["kind"] == "cross_loading" {
+            format!("a loading of {} on {}", list(&items), text(&top["construct"]))
+        } else {
+            format!("an error covariance of {}", list(&items))
+        };
+        s.push_str(&format!(
+            " The largest modification index ({:.1}) suggests {what} (standardized change {:.2}); acting on it is exploratory (section 5).",
+            top["mi"].as_f64().unwrap_or(f64::NAN),
+            top["std_epc"].as_f64().unwrap_or(f64::NAN)
+        ));
+    }
+    s
 }
 
 fn structure_point(r: &Value, points: &mut Vec<Value>, cautions: &mut Vec<String>) {

@@ -152,7 +152,9 @@ pub enum SpecProblem {
     MethodFactorTooSmall { factor: String, count: usize },
     #[error("method factor `{factor}` has the name of a construct")]
     MethodFactorIsConstruct { factor: String },
-    #[error("method factor `{factor}` holds every item of construct `{construct}`, so the two factors cannot be told apart")]
+    #[error(
+        "method factor `{factor}` holds every item of construct `{construct}`, so the two factors cannot be told apart"
+    )]
     MethodFactorCoversConstruct { factor: String, construct: String },
 }
 

@@ -360,11 +360,8 @@ fn check_knowledge(spec: &Spec, out: &mut Vec<Finding>) {
 /// not holding every item of one construct (identification; see `types::Impurities`).
 fn check_impurities(spec: &Spec, out: &mut Vec<Finding>) {
     let imp = &spec.impurities;
-    let owner: HashMap<&str, &str> = spec
-        .constructs
-        .iter()
-        .flat_map(|(name, c)| c.items.iter().map(move |i| (i.as_str(), name.as_str())))
-        .collect();
+    let owner: HashMap<&str, &str> =
+        spec.constructs.iter().flat_map(|(name, c)| c.items.iter().map(move |i| (i.as_str(), name.as_str()))).collect();
     let items: Vec<&str> = spec.constructs.values().flat_map(|c| c.items.iter().map(String::as_str)).collect();
     let known = |place: &str, item: &str, path: String, out: &mut Vec<Finding>| -> Option<&str> {
         let found = owner.get(item).copied();
@@ -416,9 +413,7 @@ fn check_impurities(spec: &Spec, out: &mut Vec<Finding>) {
                 child(&base, "also"),
             )),
             Some(_) if !cross.insert((c.item.as_str(), c.also.as_str())) => out.push(Finding::value(
-                SpecProblem::DuplicateImpurity {
-                    what: format!("the cross-loading of `{}` on `{}`", c.item, c.also),
-                },
+                SpecProblem::DuplicateImpurity { what: format!("the cross-loading of `{}` on `{}`", c.item, c.also) },
                 base,
             )),
             _ => {}

@@ -12,9 +12,9 @@ use serde::{Deserialize, Serialize};
 
 use super::StepError;
 use super::covariance::{CovarianceOutput, PairMethod};
+use super::impurities::{DeclaredImpurity, apply, start_from};
 use super::load::{ItemKind, LoadOutput};
 use super::sampling::{Moments, Theory, sampling_covariance};
-use super::impurities::{DeclaredImpurity, apply, start_from};
 use crate::spec::types::{Estimation, EstimationMethod, Identification, Impurities, OrdinalEstimation, StandardErrors};
 use construe_stats::StatsError;
 use construe_stats::acov::{Dense, Element, SamplingCovariance};

@@ -296,7 +296,9 @@ impl Fitted {
             .take(LISTED)
             .map(|m| {
                 let (kind, items, construct) = match m.matrix {
-                    Matrix::Lambda => (ImpurityKind::CrossLoading, vec![obs[m.row].clone()], Some(names[m.col].clone())),
+                    Matrix::Lambda => {
+                        (ImpurityKind::CrossLoading, vec![obs[m.row].clone()], Some(names[m.col].clone()))
+                    }
                     _ => (ImpurityKind::ErrorCovariance, vec![obs[m.col].clone(), obs[m.row].clone()], None),
                 };
                 Suggestion {
@@ -317,11 +319,7 @@ impl Fitted {
         let residuals = res
             .iter()
             .take(LISTED)
-            .map(|r| ResidualRecord {
-                items: [obs[r.col].clone(), obs[r.row].clone()],
-                residual: r.residual,
-                z: r.z,
-            })
+            .map(|r| ResidualRecord { items: [obs[r.col].clone(), obs[r.row].clone()], residual: r.residual, z: r.z })
             .collect();
         Ok(Diagnosis { suggestions, residuals })
     }

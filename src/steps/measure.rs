@@ -262,8 +262,11 @@ impl Step for MeasureStep {
         };
         // A diagnosis that cannot be computed (a singular information) leaves the lists empty
         // rather than failing the measurement model.
-        let diagnosis =
-            if self.diagnose { fitted.diagnose(&input, constructs.len()).unwrap_or_default() } else { Diagnosis::default() };
+        let diagnosis = if self.diagnose {
+            fitted.diagnose(&input, constructs.len()).unwrap_or_default()
+        } else {
+            Diagnosis::default()
+        };
         let estimation =
             EstimationRecord::new("measurement model", &input.plan, &pair_methods(cov), n, fitted.correction.clone());
         let mut out = summarise(

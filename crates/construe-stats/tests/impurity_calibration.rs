@@ -161,8 +161,15 @@ const REVERSED: [usize; 3] = [2, 3, 7];
 
 fn method_factor_population() -> Population {
     let l = [0.7, 0.65, 0.6, 0.7, 0.65];
-    let lambda =
-        DMatrix::from_fn(10, 3, |i, k| if k < 2 && i / 5 == k { l[i % 5] } else if k == 2 && REVERSED.contains(&i) { 0.4 } else { 0.0 });
+    let lambda = DMatrix::from_fn(10, 3, |i, k| {
+        if k < 2 && i / 5 == k {
+            l[i % 5]
+        } else if k == 2 && REVERSED.contains(&i) {
+            0.4
+        } else {
+            0.0
+        }
+    });
     let phi = DMatrix::from_row_slice(3, 3, &[1.0, 0.3, 0.0, 0.3, 1.0, 0.0, 0.0, 0.0, 1.0]);
     Population { lambda, phi, errors: Vec::new() }
 }

@@ -57,6 +57,9 @@ pub const DELTA_CROSS_LOADING: f64 = 0.2;
 /// (Saris, Satorra & van der Veld 2009 use 0.75).
 pub const HIGH_POWER: f64 = 0.75;
 
+/// Most candidates whose robust (DWLS) index is computed; see `modification_indices`.
+pub const ROBUST_MAX: usize = 300;
+
 /// What the modification index and its power say together (Saris, Satorra & van der Veld 2009,
 /// table 2).
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -172,13 +175,13 @@ fn moments(layout: &ParamLayout, imp: &Implied, d: &Discrepancy) -> Result<Momen
 
 /// The normal-equation matrix of the parameters `cols`, bordered by the constraints' Jacobian
 /// when there are constraints: [Delta'W Delta, C'; C, 0].
-fn system(m: &Moments, h: &DMatrix<f64>, cols: &[usize]) -> DMatrix<f64> {
+fn system(m: &Moments, h: &dyn Fn(usize, usize) -> f64, cols: &[usize]) -> DMatrix<f64> {
     let q = cols.len();
     let r = m.constraint.as_ref().map_or(0, DMatrix::nrows);
     let mut k = DMatrix::zeros(q + r, q + r);
     for (a, &t) in cols.iter().enumerate() {
         for (b, &u) in cols.iter().enumerate() {
-            k[(a, b)] = h[(t, u)];
+            k[(a, b)] = h(t, u);
         }
     }
     if let Some(c) = &m.constraint {
@@ -228,7 +231,18 @@ pub fn modification_indices(
     free.dedup();
     let imp = &fit.moments;
     let m = moments(&layout, imp, &d)?;
-    let h = m.delta.transpose() * &m.wdelta;
+    // Only the rows of the free parameters and the candidates' own diagonal entries of
+    // Delta'W Delta are needed: q x Q products rather than Q x Q.
+    let delta_free = DMatrix::from_fn(m.delta.nrows(), free.len(), |e, a| m.delta[(e, free[a])]);
+    let h_free = delta_free.transpose() * &m.wdelta;
+    let h = |t: usize, u: usize| match free.binary_search(&t) {
+        Ok(a) => h_free[(a, u)],
+        Err(_) if t == u => m.delta.column(t).dot(&m.wdelta.column(t)),
+        Err(_) => match free.binary_search(&u) {
+            Ok(b) => h_free[(b, t)],
+            Err(_) => f64::NAN, // two candidates: never asked for
+        },
+    };
     let b = m.wdelta.transpose() * &m.residual;
     let q = free.len();
     let kf = system(&m, &h, &free);
@@ -253,7 +267,7 @@ pub fn modification_indices(
         let Some(j) = index_of(matrix, row, col) else { continue };
         let mut kj = DVector::zeros(kinv.nrows());
         for (a, &t) in free.iter().enumerate() {
-            kj[a] = h[(t, j)];
+            kj[a] = h(t, j);
         }
         if let Some(c) = &m.constraint {
             for i in 0..c.nrows() {
@@ -261,8 +275,9 @@ pub fn modification_indices(
             }
         }
         let u = &kinv * &kj;
-        let schur = h[(j, j)] - kj.dot(&u);
-        if !(schur > 1e-10 * h[(j, j)].abs().max(f64::MIN_POSITIVE)) {
+        let hjj = h(j, j);
+        let schur = hjj - kj.dot(&u);
+        if !(schur > 1e-10 * hjj.abs().max(f64::MIN_POSITIVE)) {
             continue;
         }
         let epc = (b[j] - kj.dot(&z)) / schur;
@@ -277,6 +292,13 @@ pub fn modification_indices(
             Discrepancy::Ml { .. } => None,
         };
         raw.push(Raw { at: (matrix, row, col), epc, schur, a });
+    }
+    if matches!(d, Discrepancy::Dwls { .. }) && raw.len() > ROBUST_MAX {
+        // The robust variance costs a sandwich per candidate: only the `ROBUST_MAX` with the
+        // largest naive index (EPC^2 times the information, the index DWLS would have if its
+        // weight were V's inverse) are carried on; the largest robust ones are among them.
+        raw.sort_by(|x, y| (y.epc * y.epc * y.schur).total_cmp(&(x.epc * x.epc * x.schur)));
+        raw.truncate(ROBUST_MAX);
     }
     let variances: Option<Vec<f64>> = match d {
         Discrepancy::Dwls { v, .. } if !raw.is_empty() => {
@@ -334,7 +356,7 @@ pub fn standardized_residuals(model: &SemModel, fit: &SemFit, d: Discrepancy) ->
     let m = moments(layout, imp, &d)?;
     let h = m.delta.transpose() * &m.wdelta;
     let all: Vec<usize> = (0..layout.len()).collect();
-    let kinv = system(&m, &h, &all).try_inverse().ok_or_else(|| StatsError::Singular {
+    let kinv = system(&m, &|t, u| h[(t, u)], &all).try_inverse().ok_or_else(|| StatsError::Singular {
         what: "normal equations of the fitted model (the model may not be identified)".into(),
     })?;
     let q = layout.len();
