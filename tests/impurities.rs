@@ -13,7 +13,7 @@ fn with_spec(spec: &str) -> Case {
 #[test]
 fn bad_declarations_are_reported_at_their_place() {
     let spec = format!(
-        "{SMALL_SPEC}impurities:\n  correlated_errors: [[a1, a1], [a2, zz], [a1, b1], [b1, a1]]\n  cross_loadings: [{{item: a3, also: alpha}}, {{item: b2, also: gama}}]\n  method_factors: {{alpha: [a1, b1], one: [a2], all: [a1, a2, a3]}}\n"
+        "{SMALL_SPEC}impurities:\n  correlated_errors: [[a1, a1], [a2, zz], [a1, b1], [b1, a1]]\n  cross_loadings: [{{item: a3, also: alpha}}, {{item: b2, also: betta}}]\n  method_factors: {{alpha: [a1, b1], one: [a2], all: [a1, a2, a3]}}\n"
     );
     let out = with_spec(&spec).run(["check", "spec.yaml"]);
     out.failure(1)
@@ -21,7 +21,7 @@ fn bad_declarations_are_reported_at_their_place() {
         .stderr_contains("`zz` in `impurities.correlated_errors` is not an item of any construct")
         .stderr_contains("the correlated error of `b1` and `a1` is declared twice")
         .stderr_contains("item `a3` belongs to construct `alpha` already; `also` must name another construct")
-        .stderr_contains("`impurities.cross_loadings` names `gama`, which is not a declared construct")
+        .stderr_contains("`impurities.cross_loadings` names `betta`, which is not a declared construct")
         .stderr_contains("did you mean `beta`?")
         .stderr_contains("method factor `alpha` has the name of a construct")
         .stderr_contains("method factor `one` has 1 item; it needs at least 2")
@@ -30,8 +30,8 @@ fn bad_declarations_are_reported_at_their_place() {
         )
         .no_report();
     let expected = "error: `zz` in `impurities.correlated_errors` is not an item of any construct
-  at spec.yaml:14:38
-  14 |   correlated_errors: [[a1, a1], [a2, zz], [a1, b1], [b1, a1]]
+  at spec.yaml:13:38
+  13 |   correlated_errors: [[a1, a1], [a2, zz], [a1, b1], [b1, a1]]
      |                                      ^^
 ";
     assert!(out.stderr.contains(expected), "{}", out.stderr);

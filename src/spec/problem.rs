@@ -217,7 +217,8 @@ impl SpecProblem {
                 Some("an item can indicate only one declared construct; purification looks for cross-loadings".into())
             }
             ImpossibleRequirement { .. } => Some("drop the requirement, or change the tiers or `forbid`".into()),
-            ErrorWithItself { .. } | DuplicateImpurity { .. } => Some("keep one declaration of each impurity".into()),
+            ErrorWithItself { .. } => Some("an item's error variance is always estimated; name the two items whose errors covary".into()),
+            DuplicateImpurity { .. } => Some("keep one declaration of each impurity".into()),
             CrossLoadingOnOwnConstruct { .. } => {
                 Some("a cross-loading adds a loading on a second construct; the item's own loading is always estimated".into())
             }
