@@ -433,7 +433,6 @@ pub fn fit_constructs(
         }
     }
     let pure = model.clone().with_names(observed.clone(), names.clone()).map_err(stats)?;
-    let mut model = model;
     let (declared, methods) = apply(&mut model, impurities, constructs, &observed);
     let latent_names: Vec<String> = names.iter().cloned().chain(methods).collect();
     let model = model.with_names(observed.clone(), latent_names).map_err(stats)?;

@@ -331,7 +331,9 @@ mod tests {
     use crate::spec::types::CrossLoadingSpec;
     use construe_stats::sem::Identification;
 
-    fn setup() -> (Vec<(String, Vec<String>, Option<f64>)>, SemModel) {
+    type Constructs = Vec<(String, Vec<String>, Option<f64>)>;
+
+    fn setup() -> (Constructs, SemModel) {
         let constructs = vec![
             ("f".to_string(), vec!["a".to_string(), "b".to_string(), "c".to_string()], None),
             ("g".to_string(), vec!["d".to_string(), "e".to_string(), "h".to_string()], None),

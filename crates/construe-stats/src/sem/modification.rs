@@ -277,7 +277,8 @@ pub fn modification_indices(
         let u = &kinv * &kj;
         let hjj = h(j, j);
         let schur = hjj - kj.dot(&u);
-        if !(schur > 1e-10 * hjj.abs().max(f64::MIN_POSITIVE)) {
+        // Nil (or NaN) information given the free parameters: not identified if freed.
+        if schur.is_nan() || schur <= 1e-10 * hjj.abs().max(f64::MIN_POSITIVE) {
             continue;
         }
         let epc = (b[j] - kj.dot(&z)) / schur;
