@@ -176,3 +176,29 @@ fn a_declared_correlated_error_keeps_the_structure_true() {
     let (est, se) = (e["est"].as_f64().unwrap(), e["se"].as_f64().unwrap());
     assert!((est - 0.3).abs() <= 2.0 * se, "declared error covariance {est} (SE {se}) against 0.3");
 }
+
+// Omega of a construct whose items share a method factor: the factor's variance is part of the
+// sum's variance, not of the construct's, so omega is (sum of loadings)^2 over the implied
+// variance of the sum, below the pure-model formula's value.
+#[test]
+fn omega_counts_declared_impurities_as_non_construct_variance() {
+    let case = Case::new()
+        .file("model.yaml", FORK_MODEL)
+        .spec(&format!("{FORK_SPEC}impurities:\n  method_factors: {{wording: [x2, x3, y2]}}\n"));
+    case.run(["simulate", "model.yaml", "--out", "fork.csv"]).success();
+    case.run(["run", "spec.yaml"]).success();
+    let r: Value = serde_json::from_str(&case.read("reports/fork/v1/results.json")).unwrap();
+    let m = &r["measure"];
+    let e: Vec<f64> = ["x1", "x2", "x3"].iter().map(|i| m["error_variances"][i]["est"].as_f64().unwrap()).collect();
+    let omega = m["reliability"]["x"]["omega"].as_f64().unwrap();
+    let method: Vec<f64> =
+        m["declared"][0]["estimates"].as_array().unwrap().iter().map(|e| e["est"].as_f64().unwrap()).collect();
+    // The construct's variance is 1 (unit-variance identification), so the loadings in the
+    // items' metric are the unstandardized ones.
+    let lu: Vec<f64> = ["x1", "x2", "x3"].iter().map(|i| m["loadings"]["x"][i]["est"].as_f64().unwrap()).collect();
+    let common = lu.iter().sum::<f64>().powi(2);
+    let pure = common / (common + e.iter().sum::<f64>());
+    let with_method = common / (common + e.iter().sum::<f64>() + (method[0] + method[1]).powi(2));
+    assert!((omega - with_method).abs() < 1e-9, "omega {omega} vs {with_method}");
+    assert!(omega < pure, "{omega} < {pure}");
+}

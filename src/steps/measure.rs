@@ -63,7 +63,8 @@ pub struct NamedMatrix {
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct Reliability {
     /// McDonald's omega from the fitted loadings; `null` for a single indicator (or when it cannot
-    /// be computed).
+    /// be computed). When declared impurities touch the construct's items, its denominator is
+    /// the model-implied variance of their sum.
     pub omega: Option<f64>,
     /// Cronbach's alpha of the kept items; `null` for a single indicator (or when it cannot be
     /// computed).
@@ -345,7 +346,25 @@ pub fn summarise(
             let sd = moments.covariance[(j, j)].max(0.0).sqrt();
             let lambda: Vec<f64> = idx.iter().map(|&i| fit.matrices.lambda[(i, j)] * sd).collect();
             let theta: Vec<f64> = idx.iter().map(|&i| fit.matrices.theta[(i, i)]).collect();
-            let omega = if items.len() >= 2 { mcdonald_omega(&lambda, &theta).ok() } else { None };
+            // With a declared impurity among the construct's items (a cross-loading, a method
+            // factor, a correlated error), the variance of their sum is more than (sum of
+            // loadings)^2 + sum of error variances: the denominator is then the model-implied
+            // variance of the sum (McDonald 1999, eq. 6.20b, with the implied covariances;
+            // for a pure construct the two are equal).
+            let impure = idx.iter().any(|&i| {
+                (0..fit.matrices.lambda.ncols()).any(|k| k != j && fit.matrices.lambda[(i, k)] != 0.0)
+                    || idx.iter().any(|&l| l != i && fit.matrices.theta[(i, l)] != 0.0)
+            });
+            let omega = match (items.len() >= 2, impure) {
+                (false, _) => None,
+                (true, false) => mcdonald_omega(&lambda, &theta).ok(),
+                (true, true) => {
+                    let total: f64 =
+                        idx.iter().flat_map(|&a| idx.iter().map(move |&b| (a, b))).map(|ab| fit.implied[ab]).sum();
+                    let common = lambda.iter().sum::<f64>().powi(2);
+                    (total > 0.0).then(|| common / total)
+                }
+            };
             let full: Vec<usize> = items.iter().filter_map(|i| all_items.iter().position(|a| a == i)).collect();
             let alpha = if items.len() >= 2 { cronbach_alpha(s_full, &full).ok() } else { None };
             (name.clone(), Reliability { omega, alpha })
