@@ -11,6 +11,7 @@ pub mod error;
 pub mod fdr;
 pub mod groups_ordinal;
 pub mod impute;
+pub mod invariance;
 pub mod missing;
 pub mod mixed;
 pub mod moments;

@@ -24,7 +24,8 @@ use nalgebra::{DMatrix, DVector, SymmetricEigen};
 use statrs::distribution::{ChiSquared, ContinuousCDF};
 
 use super::OrdinalGroups;
-use super::model::{Equalities, ParamMap, Release};
+use super::model::{Equalities, ParamMap};
+use crate::invariance::{ParamKind, Release};
 use crate::StatsError;
 use crate::sem::{Correction, FitIndices, StatisticCorrection, robust_indices};
 
@@ -297,13 +298,12 @@ impl OrdinalGroups {
         Ok(GroupsFit { equalities: eq.clone(), map, full, acov, naive, df, correction, indices, iterations })
     }
 
-    /// U_d = P₁ - P₀ at `fit`'s estimate for `fit` against the model with `slots` released, and
-    /// the two ranks.
-    fn released_projectors(&self, fit: &GroupsFit, slots: &[usize]) -> Result<(DMatrix<f64>, DMatrix<f64>, usize), StatsError> {
-        let general = fit.map.release(slots);
-        let bad = || StatsError::InvalidInput("a latent response variance is not positive at the estimate".into());
-        let (_, j0) = self.layout.evaluate(&fit.map, &fit.full, true).ok_or_else(bad)?;
-        let (_, j1) = self.layout.evaluate(&general, &fit.full, true).ok_or_else(bad)?;
+    /// The projectors P₀ (of `map`) and P₁ (of `map` with `slots` released) at `full`, and the
+    /// rank gained.
+    fn released_projectors(&self, map: &ParamMap, full: &[f64], slots: &[usize]) -> Result<(DMatrix<f64>, DMatrix<f64>, usize), StatsError> {
+        let general = map.release(slots);
+        let (_, j0) = self.layout.evaluate(map, full, true).ok_or_else(outside)?;
+        let (_, j1) = self.layout.evaluate(&general, full, true).ok_or_else(outside)?;
         let (p0, r0) = self.projector(&j0);
         let (p1, r1) = self.projector(&j1);
         Ok((p0, p1, r1.saturating_sub(r0)))
@@ -311,57 +311,88 @@ impl OrdinalGroups {
 
     /// The full slots `releases` make free.
     fn slots_of(&self, releases: &[Release]) -> Vec<usize> {
-        let mut slots: Vec<usize> = releases
-            .iter()
-            .flat_map(|r| self.layout.release_slots(r.item, r.parameter, r.group))
-            .collect();
+        let mut slots: Vec<usize> =
+            releases.iter().flat_map(|r| self.layout.release_slots(r.item, r.kind, r.group)).collect();
         slots.sort_unstable();
         slots.dedup();
         slots
     }
 
-    /// Robust score test of `releases` at `fit` (see the module doc): large values say that
-    /// freeing those parameters would improve the fit. df is the rank gained (0 for a release
-    /// that changes nothing, such as the thresholds of a 3-category item).
-    pub fn score_test(&self, fit: &GroupsFit, releases: &[Release]) -> Result<ConstraintStatistic, StatsError> {
-        let slots = self.slots_of(releases);
-        let (sigma, _) = self
-            .layout
-            .evaluate(&fit.map, &fit.full, false)
-            .ok_or_else(|| StatsError::InvalidInput("a latent response variance is not positive at the estimate".into()))?;
+    /// Robust score test of freeing the full parameters `slots` at the estimate `full` of the
+    /// model `eq` (see the module doc), conditional on freeing `given` as well (0 df and a
+    /// statistic of 0 for a release that changes nothing, such as the thresholds of a
+    /// 3-category item): Q(slots ∪ given) - Q(given), Q(s) = e'W J_s H_s⁺ J_s'W e.
+    fn score(&self, eq: &Equalities, full: &[f64], slots: &[usize], given: &[usize]) -> Result<ConstraintStatistic, StatsError> {
+        let map = self.layout.map(eq)?;
+        let (sigma, _) = self.layout.evaluate(&map, full, false).ok_or_else(outside)?;
         let e = self.residual(&sigma);
-        let (p0, p1, df) = self.released_projectors(fit, &slots)?;
+        let base = map.release(given);
+        let (p0, p1, df) = self.released_projectors(&base, full, slots)?;
         let ud = p1 - p0;
         let naive = e.dot(&(&ud * &e));
         let (trace, trace_squared) = self.traces(&ud);
         adjusted(naive, df, trace, trace_squared)
     }
 
-    /// Robust difference test of `restricted` against `general`, a fit with fewer constraints
-    /// (each equality of `general` holds in `restricted`): T₀ - T₁ adjusted with U_d from the
-    /// parameters `general` frees, evaluated at `restricted`'s estimate.
+    /// Robust score test of `release` at the estimate `full` of the model `eq`. Releasing an
+    /// item's thresholds releases the rest of the item (`Equalities::constrained`); so that the
+    /// test of its thresholds does not also carry a loading difference, which the loading's own
+    /// test finds, it is conditional on the loading being free: the improvement from freeing
+    /// the thresholds beyond freeing the loading.
+    pub fn score_release(&self, eq: &Equalities, full: &[f64], release: Release) -> Result<ConstraintStatistic, StatsError> {
+        let k = self.layout.categories[release.item];
+        let slots = self.slots_of(&[release]);
+        let loading = Release { kind: ParamKind::Loading, ..release };
+        let given = if release.kind == ParamKind::Threshold && eq.constrained(release.item, ParamKind::Loading, release.group, k) {
+            self.slots_of(&[loading])
+        } else {
+            Vec::new()
+        };
+        self.score(eq, full, &slots, &given)
+    }
+
+    /// Robust difference test of the fit `restricted` against `general`, a fit with fewer
+    /// constraints (each equality of `general` holds in `restricted`): T₀ - T₁ adjusted with U_d
+    /// from the parameters `general` frees, evaluated at `restricted`'s estimate.
     pub fn difference_test(&self, restricted: &GroupsFit, general: &GroupsFit) -> Result<ConstraintStatistic, StatsError> {
-        let releases = self.difference_releases(&restricted.equalities, &general.equalities);
+        self.difference_at(&restricted.equalities, &restricted.full, restricted.naive, &general.equalities, general.naive)
+    }
+
+    /// `difference_test` from the two models' constraints, the restricted estimate and both
+    /// naive statistics.
+    pub fn difference_at(
+        &self,
+        restricted: &Equalities,
+        full: &[f64],
+        naive_restricted: f64,
+        general: &Equalities,
+        naive_general: f64,
+    ) -> Result<ConstraintStatistic, StatsError> {
+        let releases = self.difference_releases(restricted, general);
         let slots = self.slots_of(&releases);
-        let (p0, p1, df) = self.released_projectors(restricted, &slots)?;
+        let map = self.layout.map(restricted)?;
+        let (p0, p1, df) = self.released_projectors(&map, full, &slots)?;
         let (trace, trace_squared) = self.traces(&(p1 - p0));
-        adjusted(restricted.naive - general.naive, df, trace, trace_squared)
+        adjusted(naive_restricted - naive_general, df, trace, trace_squared)
     }
 
     /// The item parameters constrained under `restricted` but not under `general`.
     pub fn difference_releases(&self, restricted: &Equalities, general: &Equalities) -> Vec<Release> {
-        use super::model::ItemParameter::{Intercept, Loading, Residual, Thresholds};
         let mut out = Vec::new();
         for g in (0..self.layout.groups).filter(|&g| g != self.layout.reference) {
             for j in 0..self.layout.p {
                 let k = self.layout.categories[j];
-                for parameter in [Thresholds, Loading, Intercept, Residual] {
-                    if restricted.constrained(j, parameter, g, k) && !general.constrained(j, parameter, g, k) {
-                        out.push(Release { item: j, parameter, group: g });
+                for kind in [ParamKind::Threshold, ParamKind::Loading, ParamKind::Intercept, ParamKind::Residual] {
+                    if restricted.constrained(j, kind, g, k) && !general.constrained(j, kind, g, k) {
+                        out.push(Release { item: j, kind, group: g });
                     }
                 }
             }
         }
         out
     }
+}
+
+fn outside() -> StatsError {
+    StatsError::InvalidInput("a latent response variance is not positive at the estimate".into())
 }

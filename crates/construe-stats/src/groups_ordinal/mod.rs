@@ -15,6 +15,7 @@
 //! Estabrook's identification for two categories), so their thresholds step imposes nothing
 //! and their strict step is implied by the scalar one.
 
+mod engine;
 mod fit;
 mod model;
 mod statistics;
@@ -25,15 +26,18 @@ mod tests;
 use nalgebra::{DMatrix, DVector};
 
 pub use fit::{ConstraintStatistic, GroupsFit};
-pub use model::{Equalities, ItemParameter, Layout, ParamMap, Release, Slot};
+pub use model::{Equalities, Layout, ParamMap, Slot};
+pub use engine::ordinal_kinds;
 pub use statistics::{CategoryMerge, GroupData, GroupStatistics};
 
 use crate::StatsError;
+use crate::invariance::{GroupDesign, LatentEstimate};
 
 /// The two-group (or more) threshold model's data: the stacked statistics, their weights and
 /// sampling covariances. Groups are independent samples.
 #[derive(Debug, Clone, PartialEq)]
 pub struct OrdinalGroups {
+    design: GroupDesign,
     layout: Layout,
     /// Statistics of all groups stacked (each group: thresholds, then correlations).
     values: DVector<f64>,
@@ -46,26 +50,19 @@ pub struct OrdinalGroups {
     merges: Vec<CategoryMerge>,
 }
 
-/// A latent mean and variance of one construct in one group, relative to the reference group
-/// (mean 0, variance 1 there). `None` SEs mark values fixed by the constraints.
-#[derive(Debug, Clone, PartialEq)]
-pub struct LatentEstimate {
-    pub group: usize,
-    pub construct: usize,
-    pub mean: f64,
-    pub mean_se: Option<f64>,
-    pub variance: f64,
-    pub variance_se: Option<f64>,
-}
-
 impl OrdinalGroups {
-    /// From each group's answers. `construct[j]` is item j's construct (0-based, each with at
-    /// least two items), `levels[j]` its number of categories (codes 0..levels[j]), `reference`
-    /// the group others are compared with. Categories some group never used are merged with a
-    /// neighbour in every group (`merges`). Errors: fewer than two groups, codes out of range,
-    /// an item with fewer than two categories used in every group, a pair of items without
-    /// enough complete rows in a group.
-    pub fn new(groups: &[GroupData<'_>], construct: &[usize], levels: &[usize], reference: usize) -> Result<Self, StatsError> {
+    /// The engine for the ordinal items of `design` from each group's answers (`groups`, in the
+    /// order of `design.groups`); `levels[j]` is item j's number of categories (codes
+    /// 0..levels[j]). `design.n` is replaced by the groups' row counts. Categories some group
+    /// never used are merged with a neighbour in every group (`merges`). Errors: a design that
+    /// does not validate, a group count other than the design's, codes out of range, an item
+    /// with fewer than two categories used in every group, a pair of items without enough
+    /// complete rows in a group.
+    pub fn new(design: GroupDesign, groups: &[GroupData<'_>], levels: &[usize]) -> Result<Self, StatsError> {
+        design.validate()?;
+        if groups.len() != design.groups.len() {
+            return Err(StatsError::SizeMismatch { what: "groups of answers", expected: design.groups.len(), found: groups.len() });
+        }
         for g in groups {
             if g.items.len() != levels.len() {
                 return Err(StatsError::SizeMismatch { what: "item columns in a group", expected: levels.len(), found: g.items.len() });
@@ -86,20 +83,20 @@ impl OrdinalGroups {
                 GroupStatistics::from_codes(&merged, &categories)
             })
             .collect::<Result<Vec<_>, _>>()?;
-        let mut out = Self::from_statistics(stats, construct, &categories, reference)?;
+        let mut out = Self::from_statistics(design, stats, &categories)?;
         out.merges = merges;
         Ok(out)
     }
 
     /// From given statistics (each group's thresholds and correlations in the `Layout` order,
-    /// with their sampling covariance); the weights are 1 / the diagonal of each covariance.
-    pub fn from_statistics(
-        stats: Vec<GroupStatistics>,
-        construct: &[usize],
-        categories: &[usize],
-        reference: usize,
-    ) -> Result<Self, StatsError> {
-        let layout = Layout::new(construct, categories, stats.len(), reference)?;
+    /// with their sampling covariance, in the order of `design.groups`); the weights are 1 / the
+    /// diagonal of each covariance; `design.n` is replaced by the statistics' n.
+    pub fn from_statistics(mut design: GroupDesign, stats: Vec<GroupStatistics>, categories: &[usize]) -> Result<Self, StatsError> {
+        design.validate()?;
+        if stats.len() != design.groups.len() {
+            return Err(StatsError::SizeMismatch { what: "groups of statistics", expected: design.groups.len(), found: stats.len() });
+        }
+        let layout = Layout::new(&design.item_construct, categories, stats.len(), design.reference)?;
         let k = layout.n_stats();
         let mut values = DVector::zeros(k * stats.len());
         let mut weights = DVector::zeros(k * stats.len());
@@ -120,7 +117,8 @@ impl OrdinalGroups {
             acov.push(s.acov);
             n.push(s.n);
         }
-        Ok(OrdinalGroups { layout, values, weights, acov, n, merges: Vec::new() })
+        design.n.clone_from(&n);
+        Ok(OrdinalGroups { design, layout, values, weights, acov, n, merges: Vec::new() })
     }
 
     pub fn layout(&self) -> &Layout {
@@ -185,12 +183,12 @@ impl OrdinalGroups {
         full
     }
 
-    /// Latent means and variances of every construct in every non-reference group, with
-    /// sandwich SEs where they are free.
+    /// Latent means and variances of every construct in every group (the reference's fixed at
+    /// 0 and 1), with sandwich SEs where they are free.
     pub fn latent(&self, fit: &GroupsFit) -> Vec<LatentEstimate> {
         let lay = &self.layout;
         let mut out = Vec::new();
-        for g in (0..lay.groups).filter(|&g| g != lay.reference) {
+        for g in 0..lay.groups {
             for f in 0..lay.m {
                 let (mi, vi) = (lay.kappa(g, f), lay.phi(g, f, f));
                 out.push(LatentEstimate {

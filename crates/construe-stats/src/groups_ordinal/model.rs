@@ -13,28 +13,7 @@
 use nalgebra::{DMatrix, DVector};
 
 use crate::StatsError;
-
-/// An item parameter whose equality across groups the ladder tests and partial invariance
-/// releases.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord)]
-pub enum ItemParameter {
-    /// All of the item's thresholds τ_jc.
-    Thresholds,
-    /// The loading λ_j.
-    Loading,
-    /// The intercept ν_j (for ordinal items: a shift of all the item's thresholds at once).
-    Intercept,
-    /// The unique (residual) variance θ_j.
-    Residual,
-}
-
-/// One equality released in one non-reference group (partial invariance).
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord)]
-pub struct Release {
-    pub item: usize,
-    pub parameter: ItemParameter,
-    pub group: usize,
-}
+use crate::invariance::{Constraints, ParamKind, Release};
 
 /// Cumulative equality constraints across groups, in the order of Wu & Estabrook (2016):
 /// thresholds, then loadings, then intercepts, then unique variances; minus `released`.
@@ -60,24 +39,37 @@ impl Equalities {
         }
     }
 
-    fn released(&self, item: usize, parameter: ItemParameter, group: usize) -> bool {
-        self.released.iter().any(|r| r.item == item && r.parameter == parameter && r.group == group)
+    /// The constraints of the shared ladder: each kind held equal sets its flag.
+    pub fn from_constraints(c: &Constraints) -> Self {
+        let has = |k: ParamKind| c.kinds.contains(&k);
+        Equalities {
+            thresholds: has(ParamKind::Threshold),
+            loadings: has(ParamKind::Loading),
+            intercepts: has(ParamKind::Intercept),
+            residuals: has(ParamKind::Residual),
+            released: c.released.clone(),
+        }
     }
 
-    /// Whether `parameter` of `item` in non-reference `group` is held equal to the reference
-    /// group's under these constraints (an intercept or residual constraint binds only while the
-    /// item's thresholds are equal, and a residual one only for items of three or more
-    /// categories: see `Layout::map`).
-    pub fn constrained(&self, item: usize, parameter: ItemParameter, group: usize, categories: usize) -> bool {
-        let free = |p: ItemParameter| self.released(item, p, group);
-        let thresholds = self.thresholds && !free(ItemParameter::Thresholds);
-        match parameter {
-            ItemParameter::Thresholds => thresholds,
-            ItemParameter::Loading => self.loadings && !free(ItemParameter::Loading),
-            ItemParameter::Intercept => thresholds && self.intercepts && !free(ItemParameter::Intercept),
-            ItemParameter::Residual => {
-                thresholds && categories > 2 && self.residuals && !free(ItemParameter::Residual)
-            }
+    fn released(&self, item: usize, kind: ParamKind, group: usize) -> bool {
+        self.released.iter().any(|r| r.item == item && r.kind == kind && r.group == group)
+    }
+
+    /// Whether `kind` of `item` in non-reference `group` is held equal to the reference
+    /// group's under these constraints. Every other constraint of an item binds only while its
+    /// thresholds are equal: with free thresholds the item's latent response has no common
+    /// location or scale across groups, so neither its intercept nor its loading nor its unique
+    /// variance can be compared (Wu & Estabrook 2016), and releasing an item's thresholds
+    /// releases the rest of it. A unique variance binds only for items of three or more
+    /// categories (see `Layout::map`).
+    pub fn constrained(&self, item: usize, kind: ParamKind, group: usize, categories: usize) -> bool {
+        let free = |k: ParamKind| self.released(item, k, group);
+        let thresholds = self.thresholds && !free(ParamKind::Threshold);
+        match kind {
+            ParamKind::Threshold => thresholds,
+            ParamKind::Loading => thresholds && self.loadings && !free(ParamKind::Loading),
+            ParamKind::Intercept => thresholds && self.intercepts && !free(ParamKind::Intercept),
+            ParamKind::Residual => thresholds && categories > 2 && self.residuals && !free(ParamKind::Residual),
         }
     }
 }
@@ -229,13 +221,13 @@ impl Layout {
         self.n_tau + j * self.p - j * (j + 1) / 2 + (l - j - 1)
     }
 
-    /// The full slots that releasing `parameter` of `item` in `group` makes free.
-    pub fn release_slots(&self, item: usize, parameter: ItemParameter, group: usize) -> Vec<usize> {
-        match parameter {
-            ItemParameter::Thresholds => (0..self.categories[item] - 1).map(|c| self.tau(group, item, c)).collect(),
-            ItemParameter::Loading => vec![self.lambda(group, item)],
-            ItemParameter::Intercept => vec![self.nu(group, item)],
-            ItemParameter::Residual => vec![self.theta(group, item)],
+    /// The full slots that releasing `kind` of `item` in `group` makes free.
+    pub fn release_slots(&self, item: usize, kind: ParamKind, group: usize) -> Vec<usize> {
+        match kind {
+            ParamKind::Threshold => (0..self.categories[item] - 1).map(|c| self.tau(group, item, c)).collect(),
+            ParamKind::Loading => vec![self.lambda(group, item)],
+            ParamKind::Intercept => vec![self.nu(group, item)],
+            ParamKind::Residual => vec![self.theta(group, item)],
         }
     }
 
@@ -244,7 +236,8 @@ impl Layout {
     /// - reference group: thresholds and loadings free, ν = 0, θ = 1, κ = 0, Φ_ff = 1, latent
     ///   covariances free;
     /// - other groups, per item: thresholds equal to the reference's or free; loading equal or
-    ///   free; with its thresholds free the item keeps ν = 0, θ = 1 (configural); with equal
+    ///   free (free whenever its thresholds are: `Equalities::constrained`); with its
+    ///   thresholds free the item keeps ν = 0, θ = 1 (configural); with equal
     ///   thresholds ν is free (fixed 0 under intercept equality) and θ is free for items of 3 or
     ///   more categories (fixed 1 under residual equality), while a binary item keeps θ = 1
     ///   throughout (one threshold cannot carry both a location and a scale);
@@ -276,7 +269,7 @@ impl Layout {
         for g in (0..self.groups).filter(|&g| g != r) {
             for j in 0..self.p {
                 let k = self.categories[j];
-                let equal_tau = eq.constrained(j, ItemParameter::Thresholds, g, k);
+                let equal_tau = eq.constrained(j, ParamKind::Threshold, g, k);
                 for c in 0..k - 1 {
                     if equal_tau {
                         slots[self.tau(g, j, c)] = slots[self.tau(r, j, c)];
@@ -284,16 +277,16 @@ impl Layout {
                         new(&mut slots, self.tau(g, j, c));
                     }
                 }
-                if eq.constrained(j, ItemParameter::Loading, g, k) {
+                if eq.constrained(j, ParamKind::Loading, g, k) {
                     slots[self.lambda(g, j)] = slots[self.lambda(r, j)];
                 } else {
                     new(&mut slots, self.lambda(g, j));
                 }
-                if equal_tau && !eq.constrained(j, ItemParameter::Intercept, g, k) {
+                if equal_tau && !eq.constrained(j, ParamKind::Intercept, g, k) {
                     new(&mut slots, self.nu(g, j));
                 }
                 slots[self.theta(g, j)] = Slot::Fixed(1.0);
-                if equal_tau && k > 2 && !eq.constrained(j, ItemParameter::Residual, g, k) {
+                if equal_tau && k > 2 && !eq.constrained(j, ParamKind::Residual, g, k) {
                     new(&mut slots, self.theta(g, j));
                 }
             }
