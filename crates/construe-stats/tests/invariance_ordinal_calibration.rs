@@ -84,7 +84,10 @@ struct Summary {
     flagged: [usize; P],
     covered: [usize; 2],
     failed: usize,
-    kinds: Vec<String>,
+    /// Replicates that released x1's loading and x6's intercept (the kinds the differences are).
+    right_kind: [usize; 2],
+    /// Every (item, kind) released, with its count.
+    kinds: Vec<(String, usize)>,
 }
 
 impl Summary {
@@ -106,11 +109,19 @@ fn calibrate(cell: Cell, replicates: usize, seed: u64) -> Summary {
             .collect();
         let engine = OrdinalGroups::new(design(), &data, &levels).unwrap();
         let ladder = run_ladder(&engine, &LadderOptions::default()).unwrap();
+        let mut flagged = [false; P];
         for t in &ladder.noninvariant {
-            if !summary.kinds.contains(&format!("x{} {}", t.release.item, t.release.kind)) {
-                summary.kinds.push(format!("x{} {}", t.release.item, t.release.kind));
+            let name = format!("x{} {}", t.release.item, t.release.kind);
+            match summary.kinds.iter_mut().find(|k| k.0 == name) {
+                Some(k) => k.1 += 1,
+                None => summary.kinds.push((name.clone(), 1)),
             }
-            summary.flagged[t.release.item] += 1;
+            flagged[t.release.item] = true;
+            summary.right_kind[0] += usize::from(name == format!("x{LOADING_ITEM} loading"));
+            summary.right_kind[1] += usize::from(name == format!("x{SHIFT_ITEM} intercept"));
+        }
+        for (count, hit) in summary.flagged.iter_mut().zip(flagged) {
+            *count += usize::from(hit);
         }
         if ladder.latent_means.is_empty() {
             summary.failed += 1;
@@ -127,11 +138,14 @@ fn calibrate(cell: Cell, replicates: usize, seed: u64) -> Summary {
 
 fn report(cell: Cell, s: &Summary) {
     let rates: Vec<String> = (0..P).map(|j| format!("x{j} {:.3}", s.rate(s.flagged[j]))).collect();
+    let kinds: Vec<String> = s.kinds.iter().map(|(k, n)| format!("{k} {n}")).collect();
     println!(
-        "{cell:?}: {} replicates; flagged: {}; kinds seen: {}; latent mean covered a {:.3}, b {:.3}; no mean comparison {}",
+        "{cell:?}: {} replicates; items flagged: {}; x{LOADING_ITEM} loading released {:.3}, x{SHIFT_ITEM} intercept released {:.3}; releases: {}; latent mean covered a {:.3}, b {:.3}; no mean comparison {}",
         s.replicates,
         rates.join(", "),
-        s.kinds.join(", "),
+        s.rate(s.right_kind[0]),
+        s.rate(s.right_kind[1]),
+        kinds.join(", "),
         s.rate(s.covered[0]),
         s.rate(s.covered[1]),
         s.failed
