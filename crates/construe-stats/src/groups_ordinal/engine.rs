@@ -7,9 +7,9 @@
 //! equal; strict = + unique variances equal. A release of an item's thresholds releases the
 //! rest of that item in that group (`Equalities::constrained`).
 
+use super::OrdinalGroups;
 use super::fit::GroupsFit;
 use super::model::Equalities;
-use super::OrdinalGroups;
 use crate::StatsError;
 use crate::invariance::{
     ConstraintTest, Constraints, DiffTest, GroupDesign, GroupEngine, ItemEstimate, Level, LevelFit, ParamKind, Release,
@@ -100,7 +100,12 @@ impl GroupEngine for OrdinalGroups {
 
     /// `OrdinalGroups::score_release` for each candidate; `statistic` is the
     /// scaled-and-shifted one.
-    fn score_tests(&self, c: &Constraints, fit: &LevelFit, candidates: &[Release]) -> Result<Vec<ConstraintTest>, StatsError> {
+    fn score_tests(
+        &self,
+        c: &Constraints,
+        fit: &LevelFit,
+        candidates: &[Release],
+    ) -> Result<Vec<ConstraintTest>, StatsError> {
         let eq = Equalities::from_constraints(c);
         if !self.raw_ok(&fit.raw) {
             return Err(StatsError::SizeMismatch {

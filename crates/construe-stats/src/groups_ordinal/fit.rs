@@ -25,8 +25,8 @@ use statrs::distribution::{ChiSquared, ContinuousCDF};
 
 use super::OrdinalGroups;
 use super::model::{Equalities, ParamMap};
-use crate::invariance::{ParamKind, Release};
 use crate::StatsError;
+use crate::invariance::{ParamKind, Release};
 use crate::sem::{Correction, FitIndices, StatisticCorrection, robust_indices};
 
 const MAX_ITERATIONS: usize = 500;
@@ -202,7 +202,10 @@ impl OrdinalGroups {
                     for k in 0..ridge.nrows() {
                         ridge[(k, k)] += 1e-8 * (1.0 + h[(k, k)]);
                     }
-                    ridge.cholesky().ok_or_else(|| StatsError::Singular { what: "the ordinal multi-group information".into() })?.solve(&g)
+                    ridge
+                        .cholesky()
+                        .ok_or_else(|| StatsError::Singular { what: "the ordinal multi-group information".into() })?
+                        .solve(&g)
                 }
             };
             let expected = g.dot(&d);
@@ -240,10 +243,9 @@ impl OrdinalGroups {
     /// Standard errors, corrected statistic and indices at the estimate.
     fn finish(&self, eq: &Equalities, map: ParamMap, x: &[f64], iterations: usize) -> Result<GroupsFit, StatsError> {
         let full = map.full(x);
-        let (sigma, j) = self
-            .layout
-            .evaluate(&map, &full, true)
-            .ok_or_else(|| StatsError::InvalidInput("a latent response variance is not positive at the estimate".into()))?;
+        let (sigma, j) = self.layout.evaluate(&map, &full, true).ok_or_else(|| {
+            StatsError::InvalidInput("a latent response variance is not positive at the estimate".into())
+        })?;
         let e = self.residual(&sigma);
         let naive = self.weighted_ss(&e);
         let wj = self.weighted(&j);
@@ -300,7 +302,12 @@ impl OrdinalGroups {
 
     /// The projectors P₀ (of `map`) and P₁ (of `map` with `slots` released) at `full`, and the
     /// rank gained.
-    fn released_projectors(&self, map: &ParamMap, full: &[f64], slots: &[usize]) -> Result<(DMatrix<f64>, DMatrix<f64>, usize), StatsError> {
+    fn released_projectors(
+        &self,
+        map: &ParamMap,
+        full: &[f64],
+        slots: &[usize],
+    ) -> Result<(DMatrix<f64>, DMatrix<f64>, usize), StatsError> {
         let general = map.release(slots);
         let (_, j0) = self.layout.evaluate(map, full, true).ok_or_else(outside)?;
         let (_, j1) = self.layout.evaluate(&general, full, true).ok_or_else(outside)?;
@@ -322,7 +329,13 @@ impl OrdinalGroups {
     /// model `eq` (see the module doc), conditional on freeing `given` as well (0 df and a
     /// statistic of 0 for a release that changes nothing, such as the thresholds of a
     /// 3-category item): Q(slots ∪ given) - Q(given), Q(s) = e'W J_s H_s⁺ J_s'W e.
-    fn score(&self, eq: &Equalities, full: &[f64], slots: &[usize], given: &[usize]) -> Result<ConstraintStatistic, StatsError> {
+    fn score(
+        &self,
+        eq: &Equalities,
+        full: &[f64],
+        slots: &[usize],
+        given: &[usize],
+    ) -> Result<ConstraintStatistic, StatsError> {
         let map = self.layout.map(eq)?;
         let (sigma, _) = self.layout.evaluate(&map, full, false).ok_or_else(outside)?;
         let e = self.residual(&sigma);
@@ -339,11 +352,18 @@ impl OrdinalGroups {
     /// test of its thresholds does not also carry a loading difference, which the loading's own
     /// test finds, it is conditional on the loading being free: the improvement from freeing
     /// the thresholds beyond freeing the loading.
-    pub fn score_release(&self, eq: &Equalities, full: &[f64], release: Release) -> Result<ConstraintStatistic, StatsError> {
+    pub fn score_release(
+        &self,
+        eq: &Equalities,
+        full: &[f64],
+        release: Release,
+    ) -> Result<ConstraintStatistic, StatsError> {
         let k = self.layout.categories[release.item];
         let slots = self.slots_of(&[release]);
         let loading = Release { kind: ParamKind::Loading, ..release };
-        let given = if release.kind == ParamKind::Threshold && eq.constrained(release.item, ParamKind::Loading, release.group, k) {
+        let given = if release.kind == ParamKind::Threshold
+            && eq.constrained(release.item, ParamKind::Loading, release.group, k)
+        {
             self.slots_of(&[loading])
         } else {
             Vec::new()
@@ -354,8 +374,18 @@ impl OrdinalGroups {
     /// Robust difference test of the fit `restricted` against `general`, a fit with fewer
     /// constraints (each equality of `general` holds in `restricted`): T₀ - T₁ adjusted with U_d
     /// from the parameters `general` frees, evaluated at `restricted`'s estimate.
-    pub fn difference_test(&self, restricted: &GroupsFit, general: &GroupsFit) -> Result<ConstraintStatistic, StatsError> {
-        self.difference_at(&restricted.equalities, &restricted.full, restricted.naive, &general.equalities, general.naive)
+    pub fn difference_test(
+        &self,
+        restricted: &GroupsFit,
+        general: &GroupsFit,
+    ) -> Result<ConstraintStatistic, StatsError> {
+        self.difference_at(
+            &restricted.equalities,
+            &restricted.full,
+            restricted.naive,
+            &general.equalities,
+            general.naive,
+        )
     }
 
     /// `difference_test` from the two models' constraints, the restricted estimate and both

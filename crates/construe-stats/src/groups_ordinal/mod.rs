@@ -25,9 +25,9 @@ mod tests;
 
 use nalgebra::{DMatrix, DVector};
 
+pub use engine::ordinal_kinds;
 pub use fit::{ConstraintStatistic, GroupsFit};
 pub use model::{Equalities, Layout, ParamMap, Slot};
-pub use engine::ordinal_kinds;
 pub use statistics::{CategoryMerge, GroupData, GroupStatistics};
 
 use crate::StatsError;
@@ -61,11 +61,19 @@ impl OrdinalGroups {
     pub fn new(design: GroupDesign, groups: &[GroupData<'_>], levels: &[usize]) -> Result<Self, StatsError> {
         design.validate()?;
         if groups.len() != design.groups.len() {
-            return Err(StatsError::SizeMismatch { what: "groups of answers", expected: design.groups.len(), found: groups.len() });
+            return Err(StatsError::SizeMismatch {
+                what: "groups of answers",
+                expected: design.groups.len(),
+                found: groups.len(),
+            });
         }
         for g in groups {
             if g.items.len() != levels.len() {
-                return Err(StatsError::SizeMismatch { what: "item columns in a group", expected: levels.len(), found: g.items.len() });
+                return Err(StatsError::SizeMismatch {
+                    what: "item columns in a group",
+                    expected: levels.len(),
+                    found: g.items.len(),
+                });
             }
         }
         let (tables, categories, merges) = statistics::merge_categories(groups, levels)?;
@@ -77,7 +85,10 @@ impl OrdinalGroups {
                     .iter()
                     .zip(&tables)
                     .map(|(codes, table)| {
-                        codes.iter().map(|&c| if c == crate::mixed::MISSING_CODE { c } else { table[c as usize] }).collect()
+                        codes
+                            .iter()
+                            .map(|&c| if c == crate::mixed::MISSING_CODE { c } else { table[c as usize] })
+                            .collect()
                     })
                     .collect();
                 GroupStatistics::from_codes(&merged, &categories)
@@ -91,10 +102,18 @@ impl OrdinalGroups {
     /// From given statistics (each group's thresholds and correlations in the `Layout` order,
     /// with their sampling covariance, in the order of `design.groups`); the weights are 1 / the
     /// diagonal of each covariance; `design.n` is replaced by the statistics' n.
-    pub fn from_statistics(mut design: GroupDesign, stats: Vec<GroupStatistics>, categories: &[usize]) -> Result<Self, StatsError> {
+    pub fn from_statistics(
+        mut design: GroupDesign,
+        stats: Vec<GroupStatistics>,
+        categories: &[usize],
+    ) -> Result<Self, StatsError> {
         design.validate()?;
         if stats.len() != design.groups.len() {
-            return Err(StatsError::SizeMismatch { what: "groups of statistics", expected: design.groups.len(), found: stats.len() });
+            return Err(StatsError::SizeMismatch {
+                what: "groups of statistics",
+                expected: design.groups.len(),
+                found: stats.len(),
+            });
         }
         let layout = Layout::new(&design.item_construct, categories, stats.len(), design.reference)?;
         let k = layout.n_stats();
@@ -104,12 +123,18 @@ impl OrdinalGroups {
         let mut n = Vec::with_capacity(stats.len());
         for (g, s) in stats.into_iter().enumerate() {
             if s.values.len() != k || s.acov.nrows() != k || s.acov.ncols() != k {
-                return Err(StatsError::SizeMismatch { what: "statistics in a group", expected: k, found: s.values.len() });
+                return Err(StatsError::SizeMismatch {
+                    what: "statistics in a group",
+                    expected: k,
+                    found: s.values.len(),
+                });
             }
             for e in 0..k {
                 let v = s.acov[(e, e)];
                 if !(v > 0.0 && v.is_finite()) || !s.values[e].is_finite() {
-                    return Err(StatsError::Singular { what: format!("the sampling variance of statistic {e} in group {g}") });
+                    return Err(StatsError::Singular {
+                        what: format!("the sampling variance of statistic {e} in group {g}"),
+                    });
                 }
                 values[g * k + e] = s.values[e];
                 weights[g * k + e] = 1.0 / v;
@@ -152,8 +177,10 @@ impl OrdinalGroups {
             let r = |j: usize, l: usize| s[lay.corr_stat(j.min(l), j.max(l))];
             let std: Vec<f64> = (0..lay.p)
                 .map(|j| {
-                    let same: Vec<f64> =
-                        (0..lay.p).filter(|&l| l != j && lay.construct[l] == lay.construct[j]).map(|l| r(j, l)).collect();
+                    let same: Vec<f64> = (0..lay.p)
+                        .filter(|&l| l != j && lay.construct[l] == lay.construct[j])
+                        .map(|l| r(j, l))
+                        .collect();
                     let mean = same.iter().sum::<f64>() / same.len().max(1) as f64;
                     mean.clamp(0.04, 0.81).sqrt()
                 })

@@ -29,7 +29,9 @@ pub struct Equalities {
 impl Equalities {
     /// Errors unless each set of constraints includes the ones before it.
     pub(super) fn check(&self) -> Result<(), StatsError> {
-        let ok = (!self.loadings || self.thresholds) && (!self.intercepts || self.loadings) && (!self.residuals || self.intercepts);
+        let ok = (!self.loadings || self.thresholds)
+            && (!self.intercepts || self.loadings)
+            && (!self.residuals || self.intercepts);
         if ok {
             Ok(())
         } else {
@@ -146,13 +148,21 @@ impl Layout {
     pub fn new(construct: &[usize], categories: &[usize], groups: usize, reference: usize) -> Result<Self, StatsError> {
         let p = construct.len();
         if categories.len() != p {
-            return Err(StatsError::SizeMismatch { what: "item category counts", expected: p, found: categories.len() });
+            return Err(StatsError::SizeMismatch {
+                what: "item category counts",
+                expected: p,
+                found: categories.len(),
+            });
         }
         if let Some(&k) = categories.iter().find(|&&k| k < 2) {
             return Err(StatsError::InvalidInput(format!("an ordinal item needs at least 2 categories, found {k}")));
         }
         if groups < 2 {
-            return Err(StatsError::NotEnoughData { what: "a multi-group comparison".into(), needed: 2, found: groups });
+            return Err(StatsError::NotEnoughData {
+                what: "a multi-group comparison".into(),
+                needed: 2,
+                found: groups,
+            });
         }
         if reference >= groups {
             return Err(StatsError::OutOfRange { what: "reference group", index: reference, len: groups });
@@ -170,7 +180,16 @@ impl Layout {
             tau_offset.push(n_tau);
             n_tau += k - 1;
         }
-        Ok(Layout { p, m, groups, reference, construct: construct.to_vec(), categories: categories.to_vec(), tau_offset, n_tau })
+        Ok(Layout {
+            p,
+            m,
+            groups,
+            reference,
+            construct: construct.to_vec(),
+            categories: categories.to_vec(),
+            tau_offset,
+            n_tau,
+        })
     }
 
     pub fn n_tau(&self) -> usize {

@@ -73,7 +73,9 @@ pub(super) fn merge_categories(
         }
         let keep: Vec<usize> = (0..k).filter(|&c| used[c]).collect();
         if keep.len() < 2 {
-            return Err(StatsError::Constant { what: format!("item {j} (fewer than 2 categories used in every group)") });
+            return Err(StatsError::Constant {
+                what: format!("item {j} (fewer than 2 categories used in every group)"),
+            });
         }
         let mut table = vec![0_u8; k];
         for c in 0..k {
