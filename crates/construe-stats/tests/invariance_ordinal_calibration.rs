@@ -50,7 +50,7 @@ fn cuts(cell: Cell, j: usize) -> Vec<f64> {
 /// One group's codes; `second` applies the differences.
 fn draw(cell: Cell, second: bool, rng: &mut impl Rng) -> Vec<Vec<u8>> {
     let s = (1.0 - LATENT_CORRELATION * LATENT_CORRELATION).sqrt();
-    let mut items = vec![Vec::with_capacity(N); P];
+    let mut items: Vec<Vec<u8>> = (0..P).map(|_| Vec::with_capacity(N)).collect();
     for _ in 0..N {
         let z: [f64; 2] = [StandardNormal.sample(rng), StandardNormal.sample(rng)];
         let mean = if second { MEAN_DIFFERENCE } else { 0.0 };

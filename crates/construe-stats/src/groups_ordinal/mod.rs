@@ -131,7 +131,7 @@ impl OrdinalGroups {
             }
             for e in 0..k {
                 let v = s.acov[(e, e)];
-                if !(v > 0.0 && v.is_finite()) || !s.values[e].is_finite() {
+                if v <= 0.0 || !v.is_finite() || !s.values[e].is_finite() {
                     return Err(StatsError::Singular {
                         what: format!("the sampling variance of statistic {e} in group {g}"),
                     });

@@ -44,13 +44,13 @@ pub struct GroupStatistics {
     pub acov: DMatrix<f64>,
 }
 
+/// Per item: old code -> merged category, the number of merged categories; and the merges.
+pub(super) type Merged = (Vec<Vec<u8>>, Vec<usize>, Vec<CategoryMerge>);
+
 /// Per item, the old code -> merged category table and the number of merged categories, with
 /// the merges: categories empty in some group go to the next kept category above (or the last
 /// kept one below, for the top).
-pub(super) fn merge_categories(
-    groups: &[GroupData<'_>],
-    levels: &[usize],
-) -> Result<(Vec<Vec<u8>>, Vec<usize>, Vec<CategoryMerge>), StatsError> {
+pub(super) fn merge_categories(groups: &[GroupData<'_>], levels: &[usize]) -> Result<Merged, StatsError> {
     let p = levels.len();
     let mut tables = Vec::with_capacity(p);
     let mut counts_out = Vec::with_capacity(p);
@@ -78,13 +78,13 @@ pub(super) fn merge_categories(
             });
         }
         let mut table = vec![0_u8; k];
-        for c in 0..k {
+        for (c, slot) in table.iter_mut().enumerate() {
             let into = keep.iter().copied().find(|&x| x >= c).or_else(|| keep.last().copied()).unwrap_or(c);
             if into != c {
                 merges.push(CategoryMerge { item: j, empty: c, into });
             }
             let rank = keep.iter().position(|&x| x == into).unwrap_or(0);
-            table[c] = u8::try_from(rank).unwrap_or(u8::MAX - 1);
+            *slot = u8::try_from(rank).unwrap_or(u8::MAX - 1);
         }
         tables.push(table);
         counts_out.push(keep.len());

@@ -168,8 +168,8 @@ fn close(what: &str, ours: f64, theirs: f64, tol: f64) {
 
 /// Against an independent numpy/scipy implementation (tests/reference/invariance_ordinal/
 /// generate.py: scipy least_squares on the DWLS residuals, numerical Jacobians): two groups,
-/// items of 5, 5, 4 | 5, 3, 2 categories on two constructs, at configural, thresholds,
-/// + loadings, + intercepts, + unique variances, and two partial models. The discrepancy to
+/// items of 5, 5, 4 | 5, 3, 2 categories on two constructs, at configural, thresholds, then
+/// loadings, intercepts and unique variances added, and two partial models. The discrepancy to
 /// 1e-5, every parameter to 1e-4, sandwich SEs, tr(UV) and tr((UV)²), the robust difference
 /// tests between consecutive levels and the score tests of loadings and intercepts to 1e-4
 /// (relative beyond 1).
@@ -260,7 +260,7 @@ fn matches_the_independent_scipy_implementation() {
 /// 0.1 per item), n rows.
 fn one_factor_codes(p: usize, n: usize, cuts: &[f64], rng: &mut impl rand::Rng) -> Vec<Vec<u8>> {
     use rand_distr::{Distribution, StandardNormal};
-    let mut items = vec![Vec::with_capacity(n); p];
+    let mut items: Vec<Vec<u8>> = (0..p).map(|_| Vec::with_capacity(n)).collect();
     for _ in 0..n {
         let eta: f64 = StandardNormal.sample(rng);
         for (j, column) in items.iter_mut().enumerate() {
