@@ -25,11 +25,15 @@ pub struct FciOptions {
     pub max_cond: Option<usize>,
     /// Run the Possible-D-SEP stage (true for FCI; false gives the cheaper skeleton of PC).
     pub possible_dsep: bool,
+    /// Allow selection bias: apply Zhang's rules R5-R7, which only selection can trigger in
+    /// the population (they need undirected edges). Off by default: on sample data they would
+    /// read a chance chordless cycle of circles as selection into the sample.
+    pub selection_bias: bool,
 }
 
 impl Default for FciOptions {
     fn default() -> Self {
-        FciOptions { alpha: 0.05, max_cond: None, possible_dsep: true }
+        FciOptions { alpha: 0.05, max_cond: None, possible_dsep: true, selection_bias: false }
     }
 }
 
@@ -153,7 +157,7 @@ pub(crate) fn combinations(items: &[usize], k: usize) -> Vec<Vec<usize>> {
 ///    endpoint's set (stable: all sets are computed before any removal).
 /// 3. Reset every mark to a circle; set the marks the knowledge implies (below); orient the
 ///    unshielded colliders (R0); then Zhang's (2008) rules R1-R4 to exhaustion, then R5-R10
-///    with R1-R4 until none applies. A rule only ever turns a circle into a tail or arrowhead;
+///    (R5-R7 only with `selection_bias`) with R1-R4 until none applies. A rule only ever turns a circle into a tail or arrowhead;
 ///    a rule that would change a fixed mark is recorded as a `MarkConflict`.
 ///
 /// Knowledge as marks (`MarkReason`): a tier later than another says the later construct is
@@ -258,7 +262,7 @@ pub fn fci(test: &dyn CiTest, knowledge: &Knowledge, options: &FciOptions) -> Re
     // 3. orientation on the final skeleton, every mark a circle again
     let sepsets: BTreeMap<(usize, usize), Vec<usize>> =
         removed.iter().map(|(&k, r)| (k, r.sepset.clone())).collect();
-    let mut o = Orienter::new(g, sepsets);
+    let mut o = Orienter::new(g, sepsets, options.selection_bias);
     for a in 0..n {
         for b in 0..n {
             if a == b || !o.g.is_adjacent(a, b) {

@@ -46,11 +46,13 @@ pub(crate) struct Orienter {
     sepsets: BTreeMap<(usize, usize), Vec<usize>>,
     pub marks: Vec<MarkSet>,
     pub conflicts: Vec<MarkConflict>,
+    /// Whether R5-R7 (selection bias) apply.
+    selection: bool,
 }
 
 impl Orienter {
     /// Starts from the skeleton of `g` with a circle at every end.
-    pub fn new(g: Pag, sepsets: BTreeMap<(usize, usize), Vec<usize>>) -> Orienter {
+    pub fn new(g: Pag, sepsets: BTreeMap<(usize, usize), Vec<usize>>, selection: bool) -> Orienter {
         let n = g.n();
         let mut fresh = Pag::new(n);
         for a in 0..n {
@@ -60,13 +62,13 @@ impl Orienter {
                 }
             }
         }
-        Orienter { g: fresh, sepsets, marks: Vec::new(), conflicts: Vec::new() }
+        Orienter { g: fresh, sepsets, marks: Vec::new(), conflicts: Vec::new(), selection }
     }
 
     /// Keeps the marks of `g` as they are and knows no separating sets (rule tests).
     #[cfg(test)]
     pub fn keeping(g: Pag) -> Orienter {
-        Orienter { g, sepsets: BTreeMap::new(), marks: Vec::new(), conflicts: Vec::new() }
+        Orienter { g, sepsets: BTreeMap::new(), marks: Vec::new(), conflicts: Vec::new(), selection: true }
     }
 
     fn sepset(&self, a: usize, b: usize) -> Option<&Vec<usize>> {
@@ -127,13 +129,15 @@ impl Orienter {
         triples
     }
 
-    /// R1-R4 to exhaustion, then R5-R10 (with R1-R4) until no rule applies (Zhang 2008).
+    /// R1-R4 to exhaustion, then R5-R10 (with R1-R4) until no rule applies (Zhang 2008);
+    /// R5-R7 only when selection bias is allowed.
     pub fn close(&mut self) {
         loop {
             if self.r1() || self.r2() || self.r3() || self.r4() {
                 continue;
             }
-            if self.r5() || self.r6() || self.r7() || self.r8() || self.r9() || self.r10() {
+            let selection = self.selection && (self.r5() || self.r6() || self.r7());
+            if selection || self.r8() || self.r9() || self.r10() {
                 continue;
             }
             break;

@@ -135,7 +135,7 @@ fn oracle_possible_d_sep_removes_an_edge_the_adjacency_stage_keeps() {
     let r = run(&oracle, &Knowledge::new(5));
     let xy = r.removed.iter().find(|rem| (rem.a, rem.b) == (x, y)).unwrap();
     assert_eq!((xy.stage, xy.sepset.clone()), (Stage::PossibleDSep, vec![u1, u2, v]));
-    let without = fci(&oracle, &Knowledge::new(5), &FciOptions { alpha: 0.01, max_cond: None, possible_dsep: false }).unwrap();
+    let without = fci(&oracle, &Knowledge::new(5), &FciOptions { alpha: 0.01, possible_dsep: false, ..FciOptions::default() }).unwrap();
     assert!(without.pag.is_adjacent(x, y));
 }
 

@@ -70,6 +70,21 @@ impl PagEdgeKind {
     }
 }
 
+impl From<PagEdgeKind> for super::graph::EdgeKind {
+    /// The results word of a PAG edge. `a -o b` (selection bias only) has no word of its own
+    /// and is written `undirected`; its marks say the rest.
+    fn from(k: PagEdgeKind) -> Self {
+        use super::graph::EdgeKind as E;
+        match k {
+            PagEdgeKind::Directed => E::Directed,
+            PagEdgeKind::Bidirected => E::Bidirected,
+            PagEdgeKind::PartiallyDirected => E::PartiallyDirected,
+            PagEdgeKind::Nondirected => E::Nondirected,
+            PagEdgeKind::Undirected | PagEdgeKind::PartiallyUndirected => E::Undirected,
+        }
+    }
+}
+
 impl Mark {
     fn min_rank(self, other: Mark) -> Mark {
         if self.rank() <= other.rank() { self } else { other }
@@ -253,5 +268,17 @@ mod tests {
         assert_eq!(serde_json::to_value(Mark::Arrow).unwrap(), "arrow");
         assert!(PagEdgeKind::Nondirected.allows_hidden_cause() && !PagEdgeKind::Directed.allows_hidden_cause());
         assert_eq!(PagEdgeKind::of(Mark::Circle, Mark::Tail), PagEdgeKind::PartiallyUndirected);
+        use crate::search::graph::EdgeKind;
+        let words: Vec<serde_json::Value> = [
+            PagEdgeKind::Directed,
+            PagEdgeKind::Bidirected,
+            PagEdgeKind::PartiallyDirected,
+            PagEdgeKind::Nondirected,
+            PagEdgeKind::Undirected,
+        ]
+        .into_iter()
+        .map(|k| serde_json::to_value(EdgeKind::from(k)).unwrap())
+        .collect();
+        assert_eq!(words, ["directed", "bidirected", "partially_directed", "nondirected", "undirected"]);
     }
 }
