@@ -250,13 +250,12 @@ impl Step for StructureStep {
         // `search: fci | both`: FCI on the same tests (structure_fci.rs)
         let fci = match self.params.search {
             Search::Pc => None,
-            Search::Fci | Search::Both => {
-                Some(super::structure_fci::search(test.as_ref(), &knowledge, &names, self.params.alpha)?)
+            Search::Fci => {
+                let f = super::structure_fci::search(test.as_ref(), &knowledge, &names, self.params.alpha)?;
+                return Ok(Artifact::Structure(Box::new(super::structure_fci::without_model(&self.params, measure.n, f))));
             }
+            Search::Both => Some(super::structure_fci::search(test.as_ref(), &knowledge, &names, self.params.alpha)?),
         };
-        if let (Search::Fci, Some(f)) = (self.params.search, fci) {
-            return Ok(Artifact::Structure(Box::new(super::structure_fci::without_model(&self.params, measure.n, f))));
-        }
         let options = PcOptions { alpha: self.params.alpha, max_cond: None, colliders: ColliderRule::Standard };
         let result = pc(test.as_ref(), &knowledge, &options).map_err(err("the PC search"))?;
         let edges = result
