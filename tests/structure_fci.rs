@@ -82,7 +82,10 @@ fn fci_reports_the_planted_hidden_cause_and_both_keeps_pc() {
     assert!(st["fci"]["hidden_causes"].as_array().unwrap().iter().any(|h| h["required"] == true));
     assert!(st["fit"].is_null() && st["effects"].as_array().unwrap().is_empty());
     let md = case.read("reports/hidden-fci/v1/report.md");
-    assert!(md.contains("a ↔ b") && md.contains("A hidden common cause (and no causation either way): a and b"), "{md}");
+    assert!(
+        md.contains("a ↔ b") && md.contains("A hidden common cause (and no causation either way): a and b"),
+        "{md}"
+    );
     let html = case.read("reports/hidden-fci/v1/report.html");
     assert!(html.contains("dg-head-start") && html.contains("no structural model is fitted"));
 

@@ -841,7 +841,8 @@ mod pag_tests {
         assert_eq!(svg.matches(r#"marker-start="url(#dg-head-start)""#).count(), 2, "edge and legend");
         assert_eq!(svg.matches(r#"marker-start="url(#dg-circle-start)""#).count(), 4);
         assert_eq!(svg.matches(r#"marker-end="url(#dg-circle-end)""#).count(), 2);
-        for words in ["a hidden common cause, neither causes the other", "circle to arrowhead", "circles at both ends"] {
+        for words in ["a hidden common cause, neither causes the other", "circle to arrowhead", "circles at both ends"]
+        {
             assert!(svg.contains(words), "legend lacks {words}");
         }
         let problems = layout_problems(&svg);

@@ -56,7 +56,9 @@ pub(crate) fn environment() -> Result<Environment<'static>, ReportError> {
     env.add_filter("md", markdown_filter);
     env.add_filter("code", markdown_code);
     env.add_filter("pct", pct);
-    for (name, text) in [("report.html", HTML), ("report.md", MARKDOWN), ("pag.html", PAG_HTML), ("pag.md", PAG_MARKDOWN)] {
+    for (name, text) in
+        [("report.html", HTML), ("report.md", MARKDOWN), ("pag.html", PAG_HTML), ("pag.md", PAG_MARKDOWN)]
+    {
         env.add_template(name, text).map_err(|source| ReportError::Template { name: name.into(), source })?;
     }
     Ok(env)

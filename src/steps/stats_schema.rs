@@ -123,11 +123,16 @@ mod tests {
 
     #[test]
     fn edge_kind_mirror_has_the_serialized_words() {
-        let words: Vec<Value> =
-            [EdgeKind::Undirected, EdgeKind::Directed, EdgeKind::Bidirected, EdgeKind::PartiallyDirected, EdgeKind::Nondirected]
-                .iter()
-                .map(|k| serde_json::to_value(k).unwrap())
-                .collect();
+        let words: Vec<Value> = [
+            EdgeKind::Undirected,
+            EdgeKind::Directed,
+            EdgeKind::Bidirected,
+            EdgeKind::PartiallyDirected,
+            EdgeKind::Nondirected,
+        ]
+        .iter()
+        .map(|k| serde_json::to_value(k).unwrap())
+        .collect();
         assert_eq!(schema_of::<EdgeKindSchema>()["enum"], Value::Array(words));
         use construe_stats::search::Mark;
         let marks: Vec<Value> =

@@ -252,7 +252,11 @@ impl Step for StructureStep {
             Search::Pc => None,
             Search::Fci => {
                 let f = super::structure_fci::search(test.as_ref(), &knowledge, &names, self.params.alpha)?;
-                return Ok(Artifact::Structure(Box::new(super::structure_fci::without_model(&self.params, measure.n, f))));
+                return Ok(Artifact::Structure(Box::new(super::structure_fci::without_model(
+                    &self.params,
+                    measure.n,
+                    f,
+                ))));
             }
             Search::Both => Some(super::structure_fci::search(test.as_ref(), &knowledge, &names, self.params.alpha)?),
         };

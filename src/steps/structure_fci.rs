@@ -82,7 +82,9 @@ fn reason_words(r: MarkReason) -> String {
 /// the marks' meaning; no selection bias assumed).
 pub fn meaning(kind: EdgeKind, a: &str, b: &str) -> String {
     match kind {
-        EdgeKind::Directed => format!("{a} causes {b} (directly or through constructs not in the model); {b} does not cause {a}"),
+        EdgeKind::Directed => {
+            format!("{a} causes {b} (directly or through constructs not in the model); {b} does not cause {a}")
+        }
         EdgeKind::Bidirected => format!("{a} and {b} share a hidden common cause, and neither causes the other"),
         EdgeKind::PartiallyDirected => {
             format!("{a} causes {b}, or both share a hidden common cause (or both hold); {b} does not cause {a}")
@@ -117,7 +119,8 @@ pub fn search(test: &dyn CiTest, knowledge: &Knowledge, names: &[String], alpha:
                 parts.push(format!("{what} at {}: {source}", name(at)));
             }
         }
-        let reason = if parts.is_empty() { "no mark follows from the data or the knowledge".into() } else { parts.join("; ") };
+        let reason =
+            if parts.is_empty() { "no mark follows from the data or the knowledge".into() } else { parts.join("; ") };
         if e.kind.allows_hidden_cause() {
             hidden_causes.push(HiddenCause {
                 a: a.clone(),
@@ -224,7 +227,10 @@ mod tests {
             ]
         );
         assert_eq!(f.edges[1].reason, "arrowhead at b: collider; arrowhead at c: collider");
-        assert_eq!(f.edges[1].meaning.as_deref(), Some("b and c share a hidden common cause, and neither causes the other"));
+        assert_eq!(
+            f.edges[1].meaning.as_deref(),
+            Some("b and c share a hidden common cause, and neither causes the other")
+        );
         assert_eq!(f.hidden_causes.iter().filter(|h| h.required).count(), 1);
         assert_eq!(f.hidden_causes.len(), 3);
         assert_eq!(f.removed.len(), 3);

@@ -260,8 +260,7 @@ pub fn fci(test: &dyn CiTest, knowledge: &Knowledge, options: &FciOptions) -> Re
     }
 
     // 3. orientation on the final skeleton, every mark a circle again
-    let sepsets: BTreeMap<(usize, usize), Vec<usize>> =
-        removed.iter().map(|(&k, r)| (k, r.sepset.clone())).collect();
+    let sepsets: BTreeMap<(usize, usize), Vec<usize>> = removed.iter().map(|(&k, r)| (k, r.sepset.clone())).collect();
     let mut o = Orienter::new(g, sepsets, options.selection_bias);
     for a in 0..n {
         for b in 0..n {

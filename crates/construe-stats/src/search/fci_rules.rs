@@ -205,7 +205,8 @@ impl Orienter {
                         x != d && self.g.is_adjacent(x, d) && self.is(x, b, Mark::Arrow) && self.is(x, d, Mark::Circle)
                     })
                     .collect();
-                let hit = cands.iter().enumerate().any(|(k, &a)| cands[k + 1..].iter().any(|&c| !self.g.is_adjacent(a, c)));
+                let hit =
+                    cands.iter().enumerate().any(|(k, &a)| cands[k + 1..].iter().any(|&c| !self.g.is_adjacent(a, c)));
                 if hit {
                     any |= self.fix(d, b, Mark::Arrow, MarkReason::Rule(3));
                 }
@@ -298,7 +299,13 @@ impl Orienter {
         if self.extend(&mut path, &mut on, target, edge_ok) { Some(path) } else { None }
     }
 
-    fn extend(&self, path: &mut Vec<usize>, on: &mut [bool], target: usize, edge_ok: &dyn Fn(usize, usize) -> bool) -> bool {
+    fn extend(
+        &self,
+        path: &mut Vec<usize>,
+        on: &mut [bool],
+        target: usize,
+        edge_ok: &dyn Fn(usize, usize) -> bool,
+    ) -> bool {
         let v = path[path.len() - 1];
         if v == target {
             return true;
@@ -328,7 +335,8 @@ impl Orienter {
     /// non-adjacent => a - b and every edge of the path undirected (selection bias only).
     fn r5(&mut self) -> bool {
         let n = self.g.n();
-        let circle = |g: &Pag, u: usize, v: usize| g.mark(u, v) == Some(Mark::Circle) && g.mark(v, u) == Some(Mark::Circle);
+        let circle =
+            |g: &Pag, u: usize, v: usize| g.mark(u, v) == Some(Mark::Circle) && g.mark(v, u) == Some(Mark::Circle);
         for a in 0..n {
             for b in self.g.adjacent(a) {
                 if !circle(&self.g, a, b) {
@@ -341,8 +349,8 @@ impl Orienter {
                     let g = &self.g;
                     let ok = |u: usize, v: usize| v != b && circle(g, u, v);
                     // the path runs a, c, ..., d and then d o-o b, with d not adjacent to a
-                    let found = self.g.adjacent(b).into_iter().filter(|&d| d != a && !self.g.is_adjacent(a, d)).find_map(
-                        |d| {
+                    let found =
+                        self.g.adjacent(b).into_iter().filter(|&d| d != a && !self.g.is_adjacent(a, d)).find_map(|d| {
                             if !circle(&self.g, d, b) {
                                 return None;
                             }
@@ -351,8 +359,7 @@ impl Orienter {
                                 let x = p[p.len() - 2];
                                 !self.g.is_adjacent(x, b)
                             })
-                        },
-                    );
+                        });
                     if let Some(mut path) = found {
                         path.push(b);
                         path.push(a);
@@ -461,7 +468,8 @@ impl Orienter {
     fn r10(&mut self) -> bool {
         let mut any = false;
         for (a, c) in self.partially_directed() {
-            let parents: Vec<usize> = self.g.adjacent(c).into_iter().filter(|&p| p != a && self.directed(p, c)).collect();
+            let parents: Vec<usize> =
+                self.g.adjacent(c).into_iter().filter(|&p| p != a && self.directed(p, c)).collect();
             if parents.len() < 2 {
                 continue;
             }
@@ -477,9 +485,8 @@ impl Orienter {
                 })
                 .collect();
             let hit = (0..parents.len()).any(|i| {
-                ((i + 1)..parents.len()).any(|j| {
-                    firsts[i].iter().any(|&m| firsts[j].iter().any(|&w| m != w && !self.g.is_adjacent(m, w)))
-                })
+                ((i + 1)..parents.len())
+                    .any(|j| firsts[i].iter().any(|&m| firsts[j].iter().any(|&w| m != w && !self.g.is_adjacent(m, w))))
             });
             if hit {
                 any |= self.fix(c, a, Mark::Tail, MarkReason::Rule(10));

@@ -135,7 +135,9 @@ fn oracle_possible_d_sep_removes_an_edge_the_adjacency_stage_keeps() {
     let r = run(&oracle, &Knowledge::new(5));
     let xy = r.removed.iter().find(|rem| (rem.a, rem.b) == (x, y)).unwrap();
     assert_eq!((xy.stage, xy.sepset.clone()), (Stage::PossibleDSep, vec![u1, u2, v]));
-    let without = fci(&oracle, &Knowledge::new(5), &FciOptions { alpha: 0.01, possible_dsep: false, ..FciOptions::default() }).unwrap();
+    let without =
+        fci(&oracle, &Knowledge::new(5), &FciOptions { alpha: 0.01, possible_dsep: false, ..FciOptions::default() })
+            .unwrap();
     assert!(without.pag.is_adjacent(x, y));
 }
 
@@ -355,4 +357,3 @@ fn possible_d_sep_follows_colliders_and_triangles() {
     let g = Pag::from_symbols(4, &[(0, "o-o", 1), (1, "o-o", 2), (0, "o-o", 2), (2, "o-o", 3), (1, "o-o", 3)]);
     assert_eq!(possible_d_sep(&g, 0), vec![1, 2, 3]);
 }
-

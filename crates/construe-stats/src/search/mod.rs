@@ -18,11 +18,11 @@ pub mod pc;
 
 pub use ci::{CiResult, CiTest, DSepOracle, FisherZ, WaldPartial};
 pub use enumerate::{Enumeration, enumerate_dags};
+pub use fci::{FciOptions, FciResult, HiddenDSepOracle, MarkReason, fci};
 pub use graph::{Edge, EdgeKind, Graph, Link};
 pub use knowledge::{Knowledge, KnowledgeError};
 pub use meek::MeekOrientation;
+pub use pag::{Mark, Pag, PagEdge, PagEdgeKind};
 pub use pc::{
     ColliderRule, Conflict, ConflictKind, PcEdge, PcOptions, PcResult, Reason, Removed, Triple, TripleKind, pc,
 };
-pub use fci::{FciOptions, FciResult, HiddenDSepOracle, MarkReason, fci};
-pub use pag::{Mark, Pag, PagEdge, PagEdgeKind};
