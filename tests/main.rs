@@ -23,6 +23,7 @@ mod robustness;
 mod schemas;
 mod sensitivity;
 mod simulate;
+mod structure_fci;
 mod tetrads;
 mod types;
 mod verify;

@@ -91,6 +91,7 @@ pub fn report_context(spec: &SpecFile, execution: &Execution, results: &Value) -
         "resample": results.get("resample"),
         "edge_support": edge_support(execution),
         "diagram": diagram,
+        "pag_diagram": super::pag_view::diagram_of_both(spec, execution),
         "truth": truth_comparison(spec, execution),
         "sensitivity": results.get("sensitivity"),
         "sensitivity_plots": sensitivity_plots(spec, execution),

@@ -43,6 +43,7 @@ pub fn findings(results: &Value) -> Value {
     let kept = measurement_point(results, &mut points);
     fit_point(results, &mut points, &mut cautions);
     structure_point(results, &mut points, &mut cautions);
+    points.extend(super::pag_view::finding(&results["structure"]));
     sensitivity_point(results, &mut points, &mut cautions);
     data_cautions(results, &mut cautions);
     json!({"points": points, "kept": kept, "cautions": cautions})
@@ -145,6 +146,9 @@ fn diagnosis_sentence(m: &Value) -> String {
 
 fn structure_point(r: &Value, points: &mut Vec<Value>, cautions: &mut Vec<String>) {
     let st = &r["structure"];
+    if st["search"] == "fci" {
+        return; // FCI's graph has its own finding (pag_view)
+    }
     let Some(edges) = st["edges"].as_array() else { return };
     let boot = r["resample"]["edges"].as_array();
     let support = |a: &str, b: &str| -> Option<(f64, f64)> {

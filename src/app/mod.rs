@@ -7,6 +7,7 @@ pub mod context;
 pub mod diff;
 pub mod findings;
 pub mod lints;
+pub mod pag_view;
 pub mod plan;
 pub mod power;
 pub mod run;

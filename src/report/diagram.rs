@@ -128,7 +128,8 @@ fn layers(nodes: &[Node], links: &[Link]) -> Vec<usize> {
     // keeps a cyclic input from looping.
     for _ in 0..nodes.len() {
         let mut changed = false;
-        for l in links.iter().filter(|l| l.kind.is_directed()) {
+        // an FCI edge `from o-> to` says `to` does not cause `from`: laid out as directed
+        for l in links.iter().filter(|l| l.kind.is_directed() || l.kind == EdgeKind::PartiallyDirected) {
             if layer[l.to] <= layer[l.from] {
                 layer[l.to] = layer[l.from] + 1;
                 changed = true;
@@ -396,10 +397,17 @@ pub fn diagram(nodes: &[Node], links: &[Link], dropped: &[String]) -> String {
     let mut segments: Vec<Segment> = Vec::new();
     for r in &routes {
         let l = &links[r.link];
-        let colour = if l.kind.is_directed() { INK } else { ACCENT };
+        let colour = if l.kind.is_directed() || l.kind == EdgeKind::PartiallyDirected { INK } else { ACCENT };
         let width = l.support.map_or(1.6, |s| 0.9 + 2.6 * s.clamp(0.0, 1.0));
         let dash = if l.support.is_some_and(|s| s < FRAGILE) { r#" stroke-dasharray="6 4""# } else { "" };
-        let marker = if l.kind.is_directed() { r#" marker-end="url(#dg-head)""# } else { "" };
+        // FCI's marks (`search: fci`): arrowheads, circles, or nothing at each end
+        let marker = match l.kind {
+            EdgeKind::Directed => r#" marker-end="url(#dg-head)""#,
+            EdgeKind::Undirected => "",
+            EdgeKind::Bidirected => r#" marker-start="url(#dg-head-start)" marker-end="url(#dg-head)""#,
+            EdgeKind::PartiallyDirected => r#" marker-start="url(#dg-circle-start)" marker-end="url(#dg-head)""#,
+            EdgeKind::Nondirected => r#" marker-start="url(#dg-circle-start)" marker-end="url(#dg-circle-end)""#,
+        };
         let _ = write!(
             edges_svg,
             r#"<path d="{}" fill="none" stroke="{colour}" stroke-width="{width:.2}"{dash}{marker}/>"#,
@@ -468,10 +476,36 @@ pub fn diagram(nodes: &[Node], links: &[Link], dropped: &[String]) -> String {
         );
         lg.line(&s, "directed edge: the data orient it (cause above, effect below)");
     }
-    if links.iter().any(|l| !l.kind.is_directed()) {
+    if links.iter().any(|l| l.kind == EdgeKind::Undirected) {
         let y = lg.y;
         let s = format!(r#"<line x1="{x0}" y1="{y:.1}" x2="{x1}" y2="{y:.1}" stroke="{ACCENT}" stroke-width="1.6"/>"#);
         lg.line(&s, "undirected edge: the data cannot orient it");
+    }
+    for (kind, markers, words) in [
+        (
+            EdgeKind::Bidirected,
+            r#" marker-start="url(#dg-head-start)" marker-end="url(#dg-head)""#,
+            "arrowheads at both ends: a hidden common cause, neither causes the other",
+        ),
+        (
+            EdgeKind::PartiallyDirected,
+            r#" marker-start="url(#dg-circle-start)" marker-end="url(#dg-head)""#,
+            "circle to arrowhead: a cause of the lower, or a hidden common cause, or both",
+        ),
+        (
+            EdgeKind::Nondirected,
+            r#" marker-start="url(#dg-circle-start)" marker-end="url(#dg-circle-end)""#,
+            "circles at both ends: linked; direction and hidden causes left open",
+        ),
+    ] {
+        if links.iter().any(|l| l.kind == kind) {
+            let y = lg.y;
+            let colour = if kind == EdgeKind::PartiallyDirected { INK } else { ACCENT };
+            let s = format!(
+                r#"<line x1="{x0}" y1="{y:.1}" x2="{x1}" y2="{y:.1}" stroke="{colour}" stroke-width="1.6"{markers}/>"#
+            );
+            lg.line(&s, words);
+        }
     }
     if links.iter().any(|l| l.support.is_some()) {
         let s = format!(
@@ -524,7 +558,7 @@ pub fn diagram(nodes: &[Node], links: &[Link], dropped: &[String]) -> String {
     let mut s = String::new();
     let _ = write!(
         s,
-        r##"<svg xmlns="http://www.w3.org/2000/svg" class="diagram" viewBox="0 0 {width:.0} {height:.0}" width="{width:.0}" height="{height:.0}" role="img" aria-label="path diagram"><defs><marker id="dg-head" viewBox="0 0 10 10" refX="9" refY="5" markerUnits="userSpaceOnUse" markerWidth="10" markerHeight="10" orient="auto"><path d="M0,0 L10,5 L0,10 z" fill="{INK}"/></marker><marker id="dg-small" viewBox="0 0 10 10" refX="9" refY="5" markerUnits="userSpaceOnUse" markerWidth="6" markerHeight="6" orient="auto"><path d="M0,0 L10,5 L0,10 z" fill="#8a8f96"/></marker></defs>"##
+        r##"<svg xmlns="http://www.w3.org/2000/svg" class="diagram" viewBox="0 0 {width:.0} {height:.0}" width="{width:.0}" height="{height:.0}" role="img" aria-label="path diagram"><defs><marker id="dg-head" viewBox="0 0 10 10" refX="9" refY="5" markerUnits="userSpaceOnUse" markerWidth="10" markerHeight="10" orient="auto"><path d="M0,0 L10,5 L0,10 z" fill="{INK}"/></marker><marker id="dg-small" viewBox="0 0 10 10" refX="9" refY="5" markerUnits="userSpaceOnUse" markerWidth="6" markerHeight="6" orient="auto"><path d="M0,0 L10,5 L0,10 z" fill="#8a8f96"/></marker><marker id="dg-head-start" viewBox="0 0 10 10" refX="9" refY="5" markerUnits="userSpaceOnUse" markerWidth="10" markerHeight="10" orient="auto-start-reverse"><path d="M0,0 L10,5 L0,10 z" fill="{INK}"/></marker><marker id="dg-circle-start" viewBox="0 0 10 10" refX="0.5" refY="5" markerUnits="userSpaceOnUse" markerWidth="9" markerHeight="9" orient="auto"><circle cx="5" cy="5" r="4" fill="#fff" stroke="{INK}" stroke-width="1.4"/></marker><marker id="dg-circle-end" viewBox="0 0 10 10" refX="9.5" refY="5" markerUnits="userSpaceOnUse" markerWidth="9" markerHeight="9" orient="auto"><circle cx="5" cy="5" r="4" fill="#fff" stroke="{INK}" stroke-width="1.4"/></marker></defs>"##
     );
     s.push_str(&edges_svg);
     s.push_str(&body);
@@ -773,5 +807,45 @@ mod tests {
         assert!(p.iter().any(|s| s.contains("font size 9")), "{p:?}");
         assert!(p.iter().any(|s| s.contains("overlap")), "{p:?}");
         assert!(p.iter().any(|s| s.contains("an edge crosses text `abc`")), "{p:?}");
+    }
+}
+
+#[cfg(test)]
+mod pag_tests {
+    use super::*;
+
+    // FCI's edges (`search: fci`) are drawn with their end marks: two arrowheads for a hidden
+    // common cause, a circle and an arrowhead for `o->`, two circles for `o-o`, each kind
+    // explained in the legend, and the layout stays readable.
+    #[test]
+    fn pag_edges_are_drawn_with_their_marks_and_explained() {
+        let node = |name: &str, column: usize, items: &[&str]| Node {
+            name: name.into(),
+            column,
+            items: items.iter().map(|s| s.to_string()).collect(),
+        };
+        let nodes = vec![
+            node("fare_burden", 0, &["fare_share"]),
+            node("crowding", 1, &["cr1", "cr2", "cr3"]),
+            node("punctuality", 1, &["pu1", "pu2", "pu3"]),
+            node("trust", 2, &["tr1", "tr2", "tr3"]),
+        ];
+        let link = |from, to, kind| Link { from, to, kind, coefficient: None, support: None };
+        let links = vec![
+            link(0, 1, EdgeKind::PartiallyDirected),
+            link(1, 2, EdgeKind::Bidirected),
+            link(2, 3, EdgeKind::Nondirected),
+            link(1, 3, EdgeKind::Directed),
+        ];
+        let svg = diagram(&nodes, &links, &[]);
+        assert_eq!(svg.matches(r#"marker-start="url(#dg-head-start)""#).count(), 2, "edge and legend");
+        assert_eq!(svg.matches(r#"marker-start="url(#dg-circle-start)""#).count(), 4);
+        assert_eq!(svg.matches(r#"marker-end="url(#dg-circle-end)""#).count(), 2);
+        for words in ["a hidden common cause, neither causes the other", "circle to arrowhead", "circles at both ends"]
+        {
+            assert!(svg.contains(words), "legend lacks {words}");
+        }
+        let problems = layout_problems(&svg);
+        assert!(problems.is_empty(), "{problems:#?}");
     }
 }

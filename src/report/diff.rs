@@ -240,6 +240,9 @@ fn edge_map(r: &Value) -> Option<BTreeMap<(String, String), String>> {
                 let shown = match kind {
                     EdgeKind::Directed => format!("{from} → {to}"),
                     EdgeKind::Undirected => format!("{from} — {to}"),
+                    EdgeKind::Bidirected => format!("{from} ↔ {to}"),
+                    EdgeKind::PartiallyDirected => format!("{from} o→ {to}"),
+                    EdgeKind::Nondirected => format!("{from} o–o {to}"),
                 };
                 (key, shown)
             })

@@ -39,6 +39,9 @@ pub enum ReportError {
 const HTML: &str = include_str!("../../templates/report.html");
 const MARKDOWN: &str = include_str!("../../templates/report.md");
 const STYLE: &str = include_str!("../../templates/style.css");
+/// FCI's graph (`structure.search: fci | both`), included by the two reports.
+const PAG_HTML: &str = include_str!("../../templates/pag.html");
+const PAG_MARKDOWN: &str = include_str!("../../templates/pag.md");
 
 /// The template environment: HTML autoescaped (by the `.html` name); in Markdown every printed
 /// value is escaped by `formatter` unless a filter here already made it safe. Filters for
@@ -53,7 +56,9 @@ pub(crate) fn environment() -> Result<Environment<'static>, ReportError> {
     env.add_filter("md", markdown_filter);
     env.add_filter("code", markdown_code);
     env.add_filter("pct", pct);
-    for (name, text) in [("report.html", HTML), ("report.md", MARKDOWN)] {
+    for (name, text) in
+        [("report.html", HTML), ("report.md", MARKDOWN), ("pag.html", PAG_HTML), ("pag.md", PAG_MARKDOWN)]
+    {
         env.add_template(name, text).map_err(|source| ReportError::Template { name: name.into(), source })?;
     }
     Ok(env)

@@ -156,6 +156,8 @@ pub enum SpecProblem {
         "method factor `{factor}` holds every item of construct `{construct}`, so the two factors cannot be told apart"
     )]
     MethodFactorCoversConstruct { factor: String, construct: String },
+    #[error("`sensitivity` refits the structural model, but `structure.search: fci` fits none")]
+    SensitivityWithoutModel,
 }
 
 impl SpecProblem {
@@ -182,6 +184,7 @@ impl SpecProblem {
             DwlsInformation => Some("weighted least squares has no information matrix of its own; use `standard_errors: sandwich` (or `auto`)".into()),
             NormalTheoryOnOrdinal { .. } => Some("drop `test: wishart` (the default, `auto`, tests the polychoric matrix by the delta method with its sampling covariance from the respondents' answers)".into()),
             MissingPrerequisite { .. } => Some("add the analysis it needs under `analyses`".into()),
+            SensitivityWithoutModel => Some("use `search: both` (PC's fitted model, with FCI's graph beside it), or drop `sensitivity`".into()),
             ScaleScore { .. } => Some("conditioning on a sum or mean of noisy items does not screen off what they measure; model the construct from its items instead, and drop the score".into()),
             CoarsenedSingleIndicator { .. } => Some("a coarse measure of a construct in the middle of a causal chain cannot screen off what it transmits; add indicators or state a reliability with care".into()),
             UnusualAlpha { .. } => Some("levels between 0.001 and 0.2 are usual; a very small one hides real dependence, a large one admits chance findings".into()),

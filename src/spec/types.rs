@@ -463,6 +463,23 @@ pub struct StructureSpec {
     /// The conditional independence test.
     #[serde(default)]
     pub test: CiTest,
+    /// The search: `pc` (no hidden common causes of the constructs), `fci` (allows them), or
+    /// `both` (PC with its fitted model, and FCI beside it).
+    #[serde(default)]
+    pub search: Search,
+}
+
+/// Which structure search runs.
+#[derive(Debug, Clone, Copy, Default, Serialize, Deserialize, PartialEq, Eq, JsonSchema)]
+#[serde(rename_all = "snake_case")]
+pub enum Search {
+    /// PC: assumes no unmeasured common cause of two constructs; fits the structural model.
+    #[default]
+    Pc,
+    /// FCI: allows unmeasured common causes; returns a partial ancestral graph, no fitted model.
+    Fci,
+    /// PC and its fitted model, with FCI's graph beside it.
+    Both,
 }
 
 /// The conditional independence test of the structure search.

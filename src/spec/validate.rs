@@ -539,6 +539,9 @@ fn check_analyses(spec: &Spec, available: Option<&Vec<String>>, out: &mut Vec<Fi
     }
     if let Some(s) = &a.structure {
         alpha("`structure.alpha`", s.alpha, "analyses.structure.alpha", out);
+        if s.search == crate::spec::types::Search::Fci && a.sensitivity.is_some() {
+            out.push(Finding::value(SpecProblem::SensitivityWithoutModel, "analyses.structure.search"));
+        }
     }
     if let Some(s) = &a.sensitivity {
         if a.structure.is_none() {

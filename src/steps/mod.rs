@@ -16,6 +16,7 @@ pub mod sampling;
 pub mod sensitivity;
 pub mod stats_schema;
 pub mod structure;
+pub mod structure_fci;
 pub mod tetrads;
 
 use std::collections::BTreeMap;

@@ -78,6 +78,10 @@ impl std::fmt::Display for Statement {
         match self {
             Statement::Edge { from, to, kind: EdgeKind::Directed } => write!(f, "edge {from} → {to}"),
             Statement::Edge { from, to, kind: EdgeKind::Undirected } => write!(f, "edge {from} — {to}"),
+            // FCI's kinds (`structure.search: fci`)
+            Statement::Edge { from, to, kind: EdgeKind::Bidirected } => write!(f, "edge {from} ↔ {to}"),
+            Statement::Edge { from, to, kind: EdgeKind::PartiallyDirected } => write!(f, "edge {from} o→ {to}"),
+            Statement::Edge { from, to, kind: EdgeKind::Nondirected } => write!(f, "edge {from} o–o {to}"),
             Statement::NoEdge { a, b } => write!(f, "no edge between {a} and {b}"),
             Statement::Effect { from, to, verdict } => write!(f, "effect {from} → {to} is {verdict}"),
         }

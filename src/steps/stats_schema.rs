@@ -29,13 +29,29 @@ pub struct FitIndicesSchema {
 }
 
 /// Whether an edge is oriented: `directed` (from -> to) or `undirected` (the data and the
-/// knowledge leave the orientation open).
+/// knowledge leave the orientation open); with `search: fci` also `bidirected` (from <-> to:
+/// a hidden common cause, neither causes the other), `partially_directed` (from o-> to: to
+/// does not cause from) and `nondirected` (from o-o to: nothing settled).
 #[derive(JsonSchema)]
-#[schemars(rename = "EdgeKind", rename_all = "lowercase")]
+#[schemars(rename = "EdgeKind", rename_all = "snake_case")]
 #[allow(dead_code)]
 pub enum EdgeKindSchema {
     Undirected,
     Directed,
+    Bidirected,
+    PartiallyDirected,
+    Nondirected,
+}
+
+/// The mark at one end of an edge of a partial ancestral graph (`search: fci`): `tail` (this
+/// end causes the other), `arrow` (this end does not cause the other), `circle` (undetermined).
+#[derive(JsonSchema)]
+#[schemars(rename = "Mark", rename_all = "lowercase")]
+#[allow(dead_code)]
+pub enum MarkSchema {
+    Tail,
+    Circle,
+    Arrow,
 }
 
 /// How the test statistic was corrected: `none` (the normal-theory likelihood-ratio
@@ -107,9 +123,21 @@ mod tests {
 
     #[test]
     fn edge_kind_mirror_has_the_serialized_words() {
-        let words: Vec<Value> =
-            [EdgeKind::Undirected, EdgeKind::Directed].iter().map(|k| serde_json::to_value(k).unwrap()).collect();
+        let words: Vec<Value> = [
+            EdgeKind::Undirected,
+            EdgeKind::Directed,
+            EdgeKind::Bidirected,
+            EdgeKind::PartiallyDirected,
+            EdgeKind::Nondirected,
+        ]
+        .iter()
+        .map(|k| serde_json::to_value(k).unwrap())
+        .collect();
         assert_eq!(schema_of::<EdgeKindSchema>()["enum"], Value::Array(words));
+        use construe_stats::search::Mark;
+        let marks: Vec<Value> =
+            [Mark::Tail, Mark::Circle, Mark::Arrow].iter().map(|k| serde_json::to_value(k).unwrap()).collect();
+        assert_eq!(schema_of::<MarkSchema>()["enum"], Value::Array(marks));
     }
 
     #[test]

@@ -13,7 +13,7 @@ use std::sync::Arc;
 use super::constructs::{EstimationRecord, ModelInput, Plan, SharedAcov, fit_constructs, pair_methods};
 use super::{Artifact, Inputs, Step, StepError, StepKind};
 use crate::spec::SpecFile;
-use crate::spec::types::{CiTest as CiTestKind, Impurities, Knowledge as KnowledgeSpec, StructureSpec};
+use crate::spec::types::{CiTest as CiTestKind, Impurities, Knowledge as KnowledgeSpec, Search, StructureSpec};
 use construe_stats::bvn::Z_975;
 use construe_stats::search::{
     CiTest, ColliderRule, EdgeKind, FisherZ, Knowledge, KnowledgeError, PcOptions, Reason, WaldPartial, enumerate_dags,
@@ -26,7 +26,8 @@ use construe_stats::sem::{FitIndices, Matrix, ParameterKind};
 /// v4: the measurement model's estimator (DWLS / sandwich SEs) for the structural fits; the
 /// Wald tests read measure's robust latent covariance; `estimation` record added.
 /// v5: the structural fits model the declared impurities (`impurities:`).
-pub const VERSION: u32 = 5;
+/// v6: `search` (pc | fci | both) and the FCI result (`fci`); edges may carry marks.
+pub const VERSION: u32 = 6;
 
 /// Class members fitted at most (the rest are counted, not fitted).
 const MAX_MEMBERS: usize = 8;
@@ -43,6 +44,13 @@ pub struct EdgeRecord {
     pub kind: EdgeKind,
     /// Why the edge has its orientation (for example `tier order`, `collider (...)`, `Meek rule 1`).
     pub reason: String,
+    /// `search: fci` only: the marks at `from` and at `to` (`tail`, `arrow`, `circle`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    #[schemars(with = "Option<[super::stats_schema::MarkSchema; 2]>")]
+    pub marks: Option<[construe_stats::search::Mark; 2]>,
+    /// `search: fci` only: what the edge says, in plain words.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub meaning: Option<String>,
 }
 
 /// Two constructs the search left non-adjacent.
@@ -93,8 +101,9 @@ pub struct MemberFit {
     pub r_squared: IndexMap<String, f64>,
 }
 
-/// The structure among the constructs: PC search, then a structural model of each member of the class.
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
+/// The structure among the constructs: PC search, then a structural model of each member of the
+/// class; or FCI's partial ancestral graph (`search: fci`), or both.
+#[derive(Debug, Clone, Default, PartialEq, Serialize, Deserialize, JsonSchema)]
 pub struct StructureOutput {
     /// The conditional independence test used.
     pub test: CiTestKind,
@@ -123,6 +132,13 @@ pub struct StructureOutput {
     pub class_complete: bool,
     /// How the structural models were estimated (`None` when the class had no member).
     pub estimation: Option<EstimationRecord>,
+    /// Which search ran (`pc`, `fci`, `both`). With `fci`, `edges` and `removed` are FCI's and
+    /// no structural model is fitted.
+    #[serde(default)]
+    pub search: Search,
+    /// FCI's result, when `search` is `fci` or `both`.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub fci: Option<super::structure_fci::FciOutput>,
 }
 
 #[derive(Clone)]
@@ -219,7 +235,7 @@ impl Step for StructureStep {
     }
 
     fn params(&self) -> Value {
-        json!({"alpha": self.params.alpha, "test": self.params.test, "knowledge": self.knowledge, "reliabilities": self.reliabilities, "impurities": self.impurities})
+        json!({"alpha": self.params.alpha, "test": self.params.test, "search": self.params.search, "knowledge": self.knowledge, "reliabilities": self.reliabilities, "impurities": self.impurities})
     }
 
     fn inputs(&self) -> Vec<StepKind> {
@@ -239,6 +255,19 @@ impl Step for StructureStep {
             CiTestKind::Fisher => Box::new(FisherZ::new(c, measure.n as f64).map_err(err("the Fisher-z tests"))?),
         };
         let knowledge = self.knowledge(&names)?;
+        // `search: fci | both`: FCI on the same tests (structure_fci.rs)
+        let fci = match self.params.search {
+            Search::Pc => None,
+            Search::Fci => {
+                let f = super::structure_fci::search(test.as_ref(), &knowledge, &names, self.params.alpha)?;
+                return Ok(Artifact::Structure(Box::new(super::structure_fci::without_model(
+                    &self.params,
+                    measure.n,
+                    f,
+                ))));
+            }
+            Search::Both => Some(super::structure_fci::search(test.as_ref(), &knowledge, &names, self.params.alpha)?),
+        };
         let options = PcOptions { alpha: self.params.alpha, max_cond: None, colliders: ColliderRule::Standard };
         let result = pc(test.as_ref(), &knowledge, &options).map_err(err("the PC search"))?;
         let edges = result
@@ -249,6 +278,8 @@ impl Step for StructureStep {
                 to: names[e.to].clone(),
                 kind: e.kind(),
                 reason: reason(e.reason),
+                marks: None,
+                meaning: None,
             })
             .collect();
         let removed = result
@@ -343,11 +374,16 @@ impl Step for StructureStep {
             class_complete: class.complete,
             members,
             estimation,
+            search: self.params.search,
+            fci,
         })))
     }
 
     fn describe(&self, artifact: &Artifact) -> String {
         let Artifact::Structure(s) = artifact else { return String::new() };
+        if s.search == Search::Fci {
+            return super::structure_fci::describe(s);
+        }
         let directed = s.edges.iter().filter(|e| e.kind.is_directed()).count();
         format!(
             "{} ({directed} directed) after {} tests; class of {}{}",

@@ -22,15 +22,23 @@ pub enum Link {
 }
 
 /// Whether an edge is oriented. Serialized as `"directed"` / `"undirected"` (the `kind` of
-/// results.json's `structure.edges`); the one type every layer compares edges by.
+/// results.json's `structure.edges`); the one type every layer compares edges by. FCI's edges
+/// add `"bidirected"`, `"partially_directed"` and `"nondirected"` (see `pag`).
 #[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Hash, Serialize, Deserialize)]
-#[serde(rename_all = "lowercase")]
+#[serde(rename_all = "snake_case")]
 pub enum EdgeKind {
     // Undirected first, so edges sort as they did when this was a `directed: bool`.
     /// `from - to`: the data and the knowledge leave the orientation open.
     Undirected,
     /// `from -> to`.
     Directed,
+    // The kinds below occur only in FCI's partial ancestral graphs (`pag::PagEdgeKind`).
+    /// `from <-> to`: the two share a hidden common cause and neither causes the other.
+    Bidirected,
+    /// `from o-> to`: `to` does not cause `from`; `from` causes `to`, or they share a hidden cause.
+    PartiallyDirected,
+    /// `from o-o to`: adjacent; causation either way or a hidden common cause.
+    Nondirected,
 }
 
 impl EdgeKind {
