@@ -179,8 +179,8 @@ fn the_size_criterion_is_reported() {
     assert!(sentence.starts_with("largest remaining tetrad "), "{sentence}");
     assert!(remaining[0]["tetrad"]["se"].as_f64().unwrap() > 0.0);
     assert!(beta["warnings"].is_array());
-    assert_eq!(r["discover"]["tolerance"], 0.05);
-    assert!(r["discover"]["evidence"].as_str().unwrap().contains("significantly outside 0.05"));
+    assert_eq!(r["discover"]["tolerance"], 0.02);
+    assert!(r["discover"]["evidence"].as_str().unwrap().contains("significantly outside 0.02"));
     assert!(r["discover"]["withheld"].is_array());
     let md = case.read("reports/small-panel/v1/report.md");
     assert!(md.contains("significantly larger than 0.02 in absolute value"), "{md}");

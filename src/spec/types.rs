@@ -358,8 +358,8 @@ pub struct DiscoverSpec {
     #[serde(default)]
     pub test: TetradTest,
     /// Size of a negligible tetrad, in correlation units, from 0 to 0.5: purity is judged
-    /// against it, and a cluster is reported only when the sample could tell a tetrad of twice
-    /// this from it. 0 is the exact test.
+    /// against it, and a cluster is reported only when the sample could tell a material tetrad
+    /// (0.10, or twice this if larger) from it. 0 is the exact test.
     #[serde(default = "default_discover_tolerance")]
     #[schemars(with = "DiscoverTolerance")]
     pub tolerance: f64,

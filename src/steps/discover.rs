@@ -66,7 +66,7 @@ pub struct WithheldCluster {
     pub se: f64,
     /// The smallest tetrad the sample tells from the tolerance.
     pub detectable: f64,
-    /// About the sample size at which a tetrad of twice the tolerance would be told from it.
+    /// About the sample size at which a material tetrad would be told from the tolerance.
     pub n_needed: usize,
 }
 
@@ -76,7 +76,8 @@ fn evidence_sentence(reported: usize, withheld: &[WithheldCluster], n: usize, to
         return "Purity judged by the exact test that tetrads vanish (tolerance 0).".into();
     }
     let rule = format!(
-        "A quad counts against purity only when its tetrads are significantly outside {tolerance}, and a cluster is reported only when the sample could tell a tetrad of twice that size from it."
+        "A quad counts against purity only when its tetrads are significantly outside {tolerance}, and a cluster is reported only when the sample could tell a material tetrad ({:.2}) from it.",
+        construe_stats::cluster::MATERIAL_TETRAD.max(2.0 * tolerance)
     );
     if withheld.is_empty() {
         return rule;
