@@ -136,3 +136,53 @@ fn the_default_test_after_the_joint_ordinal_estimator_is_refused_with_a_hint() {
         .stderr_contains("hint: set the covariance step's `ordinal: two_step` (the default)")
         .no_report();
 }
+
+// Issue 16: a facet must list items of its own construct, and a tolerance lies in [0, 0.5];
+// both are positioned errors at `check`.
+#[test]
+fn facets_and_tolerances_are_checked() {
+    let spec = SMALL_SPEC.replace(
+        "  beta: {items: [b1, b2, b3, x]}\n",
+        "  beta: {items: [b1, b2, b3, x], facets: {core: [b1, a1], empty: []}}\n",
+    ) + "  purify: {tolerance: 0.7}\n  discover: {tolerance: -0.1}\n";
+    let out = small(&spec).run(["check", "spec.yaml"]);
+    out.failure(1);
+    out.stderr_contains(
+        "error: facet `core` of construct `beta` lists `a1`, which is not an item of `beta`\n  at spec.yaml:9:54",
+    );
+    out.stderr_contains("error: facet `empty` of construct `beta` has no items");
+    out.stderr_contains("`purify.tolerance` must lie in [0, 0.5] (correlation units; 0 is the exact test), found 0.7");
+    out.stderr_contains(
+        "`discover.tolerance` must lie in [0, 0.5] (correlation units; 0 is the exact test), found -0.1",
+    );
+}
+
+// Issue 16: the size criterion is the default; results.json records the rule, each
+// construct's misfit, remaining tetrads and warnings, and the report explains the rule in one
+// sentence and shows the largest remaining tetrad beside the kept items.
+#[test]
+fn the_size_criterion_is_reported() {
+    let spec = SMALL_SPEC
+        .replace("  beta: {items: [b1, b2, b3, x]}\n", "  beta: {items: [b1, b2, b3, x], facets: {core: [b1, b2]}}\n")
+        + "  purify: {}\n  discover: {}\n";
+    let case = small(&spec);
+    case.run(["run", "spec.yaml"]).success();
+    let r = results(&case, "small-panel");
+    let p = &r["purify"];
+    assert_eq!(p["tolerance"], 0.02);
+    assert_eq!(p["misfit_threshold"], 0.1);
+    let beta = &p["constructs"]["beta"];
+    assert_eq!(beta["misfit"].as_object().unwrap().len(), beta["kept"].as_array().unwrap().len());
+    let remaining = beta["remaining"].as_array().unwrap();
+    assert!(!remaining.is_empty() && remaining.len() <= 3, "{beta}");
+    let sentence = remaining[0]["sentence"].as_str().unwrap();
+    assert!(sentence.starts_with("largest remaining tetrad "), "{sentence}");
+    assert!(remaining[0]["tetrad"]["se"].as_f64().unwrap() > 0.0);
+    assert!(beta["warnings"].is_array());
+    assert_eq!(r["discover"]["tolerance"], 0.02);
+    assert!(r["discover"]["evidence"].as_str().unwrap().contains("significantly outside 0.02"));
+    assert!(r["discover"]["withheld"].is_array());
+    let md = case.read("reports/small-panel/v1/report.md");
+    assert!(md.contains("significantly larger than 0.02 in absolute value"), "{md}");
+    assert!(md.contains("largest remaining tetrad"), "{md}");
+}

@@ -45,6 +45,7 @@ pub fn findings(results: &Value) -> Value {
     structure_point(results, &mut points, &mut cautions);
     points.extend(super::pag_view::finding(&results["structure"]));
     sensitivity_point(results, &mut points, &mut cautions);
+    purify_cautions(results, &mut cautions);
     data_cautions(results, &mut cautions);
     json!({"points": points, "kept": kept, "cautions": cautions})
 }
@@ -291,6 +292,35 @@ fn sensitivity_point(r: &Value, points: &mut Vec<Value>, cautions: &mut Vec<Stri
     }
 }
 
+/// Share of bootstrap replicates below which a kept item is called unstable (issue 16).
+pub const KEEP_STABLE: f64 = 0.8;
+
+/// Purification's warnings (a construct cut to the minimum, a facet or content group removed)
+/// and kept items the bootstrap keeps in fewer than `KEEP_STABLE` of its replicates.
+fn purify_cautions(r: &Value, cautions: &mut Vec<String>) {
+    let Some(constructs) = r["purify"]["constructs"].as_object() else { return };
+    let mut unstable = Vec::new();
+    for (name, c) in constructs {
+        for w in c["warnings"].as_array().into_iter().flatten() {
+            if let Some(m) = w["message"].as_str() {
+                cautions.push(format!("{name}: {m}."));
+            }
+        }
+        for item in c["kept"].as_array().into_iter().flatten().map(text) {
+            if let Some(share) = r["resample"]["items_kept"][&item].as_f64().filter(|s| *s < KEEP_STABLE) {
+                unstable.push(format!("{item} ({})", pct(share)));
+            }
+        }
+    }
+    if !unstable.is_empty() {
+        cautions.push(format!(
+            "The kept set is unstable in the bootstrap: {} kept in fewer than {} of replicates; another sample could keep other items.",
+            list(&unstable),
+            pct(KEEP_STABLE)
+        ));
+    }
+}
+
 fn data_cautions(r: &Value, cautions: &mut Vec<String>) {
     let c = &r["covariance"];
     if c["definiteness"]["positive_definite"] == Value::Bool(false) {
@@ -317,6 +347,24 @@ fn data_cautions(r: &Value, cautions: &mut Vec<String>) {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    // Issue 16: purification's warnings become cautions, and a kept item the bootstrap keeps in
+    // fewer than 80% of replicates is named with its share.
+    #[test]
+    fn purification_warnings_and_unstable_kept_items_are_cautions() {
+        let r = json!({
+            "purify": {"constructs": {
+                "crowding": {"kept": ["cr1", "cr2", "cr3"], "dropped": [{"item": "cr4"}, {"item": "cr5"}],
+                  "warnings": [{"kind": "minimum_reached", "facet": null, "items": ["cr1", "cr2", "cr3"],
+                    "message": "purification stopped at the minimum of 3 items (cr1, cr2, cr3)"}]},
+                "trust": {"kept": ["tr1", "tr2", "tr3", "tr4"], "dropped": [], "warnings": []}}},
+            "resample": {"items_kept": {"cr1": 0.95, "cr2": 0.62, "cr3": 0.8, "tr1": 0.79, "cr4": 0.1}, "failed": 0}
+        });
+        let cautions = findings(&r)["cautions"].to_string();
+        assert!(cautions.contains("crowding: purification stopped at the minimum of 3 items"), "{cautions}");
+        assert!(cautions.contains("cr2 (62%) and tr1 (79%) kept in fewer than 80% of replicates"), "{cautions}");
+        assert!(!cautions.contains("cr3 (") && !cautions.contains("cr4 ("), "{cautions}");
+    }
 
     #[test]
     fn edges_are_called_stable_or_fragile_by_their_bootstrap_share() {

@@ -74,6 +74,10 @@ pub enum SpecProblem {
     DuplicateItem { construct: String, item: String },
     #[error("construct `{construct}` has no items")]
     EmptyConstruct { construct: String },
+    #[error("facet `{facet}` of construct `{construct}` lists `{item}`, which is not an item of `{construct}`")]
+    FacetItemNotInConstruct { construct: String, facet: String, item: String, suggestion: Option<String> },
+    #[error("facet `{facet}` of construct `{construct}` has no items")]
+    EmptyFacet { construct: String, facet: String },
     #[error("{place} names `{name}`, which is not a declared construct")]
     UnknownConstruct { place: String, name: String, suggestion: Option<String> },
     #[error("construct `{construct}` is in two tiers ({first} and {second})")]
@@ -170,7 +174,8 @@ impl SpecProblem {
             | MissingColumn { suggestion, .. }
             | UnknownConstruct { suggestion, .. }
             | UnknownDataItem { suggestion, .. }
-            | ImpurityItemNotInConstruct { suggestion, .. } => suggestion.clone(),
+            | ImpurityItemNotInConstruct { suggestion, .. }
+            | FacetItemNotInConstruct { suggestion, .. } => suggestion.clone(),
             UnreadableTruthModel { hint, .. } => hint.clone(),
             InvalidTruthModel { path, .. } => Some(format!(
                 "`construe simulate {} --out FILE` shows every problem with its position",
@@ -232,6 +237,7 @@ impl SpecProblem {
             MethodFactorCoversConstruct { .. } => Some(
                 "a method factor must leave some of the construct's items out; for a construct of reverse-worded items alone, declare no method factor".into(),
             ),
+            EmptyFacet { .. } => Some("list the construct's items that share this content, or remove the facet".into()),
             _ => None,
         }
     }

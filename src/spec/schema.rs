@@ -10,12 +10,12 @@ const ROOT: &[&str] = &["construe", "title", "data", "constructs", "knowledge", 
 const DATA: &[&str] = &["waves", "matrix", "id_column", "missing_codes", "ordinal", "reverse"];
 const WAVE: &[&str] = &["id", "file"];
 const MATRIX: &[&str] = &["file", "kind", "n"];
-const CONSTRUCT: &[&str] = &["items", "reliability"];
+const CONSTRUCT: &[&str] = &["items", "reliability", "facets"];
 const KNOWLEDGE: &[&str] = &["tiers", "forbid", "require"];
 pub const ANALYSES: &[&str] = &["covariance", "purify", "discover", "measure", "structure", "sensitivity", "resample"];
 const COVARIANCE: &[&str] = &["missing", "ordinal"];
-const PURIFY: &[&str] = &["test", "alpha", "min_items"];
-const DISCOVER: &[&str] = &["items", "alpha", "test"];
+const PURIFY: &[&str] = &["test", "alpha", "min_items", "tolerance"];
+const DISCOVER: &[&str] = &["items", "alpha", "test", "tolerance"];
 const MEASURE: &[&str] = &["identification", "estimation"];
 const ESTIMATION: &[&str] = &["method", "standard_errors"];
 const STRUCTURE: &[&str] = &["alpha", "test", "search"];
@@ -53,6 +53,7 @@ fn allowed(path: &str) -> Allowed {
         ["data", "matrix"] => Only(MATRIX),
         ["data", "reverse"] | ["constructs"] => Any,
         ["constructs", _] => Only(CONSTRUCT),
+        ["constructs", _, "facets"] => Any,
         ["knowledge"] => Only(KNOWLEDGE),
         ["analyses"] => Only(ANALYSES),
         ["analyses", "covariance"] => Only(COVARIANCE),
@@ -119,12 +120,12 @@ data:
   ordinal: auto
   reverse: {x1: [1, 5]}
 constructs:
-  f: {items: [x1, x2, x3], reliability: 0.9}
+  f: {items: [x1, x2, x3], reliability: 0.9, facets: {core: [x1, x2]}}
 knowledge: {tiers: [[f]], forbid: [], require: []}
 analyses:
   covariance: {missing: pairwise, ordinal: two_step}
-  purify: {test: wishart, alpha: 0.01, min_items: 3}
-  discover: {items: all, alpha: 0.01, test: delta}
+  purify: {test: wishart, alpha: 0.01, min_items: 3, tolerance: 0.05}
+  discover: {items: all, alpha: 0.01, test: delta, tolerance: 0.05}
   measure: {identification: unit_variance, estimation: {method: auto, standard_errors: auto}}
   structure: {alpha: 0.05, test: wald}
   sensitivity: {reliability: {f: [0.5]}, prior: {f: {beta: [7, 3]}}, draws: 10, alpha: [0.01], seed: 3}

@@ -201,6 +201,10 @@ pub struct ConstructSpec {
     #[serde(default)]
     #[schemars(with = "Option<Reliability>")]
     pub reliability: Option<f64>,
+    /// Content groups of the construct's items (facet name -> its items, each an item of this
+    /// construct): purification warns when it removes every item of a facet.
+    #[serde(default, skip_serializing_if = "IndexMap::is_empty")]
+    pub facets: IndexMap<String, Vec<String>>,
 }
 
 /// What is known before looking at the data, as constraints on the structure search.
@@ -299,6 +303,13 @@ pub struct PurifySpec {
     #[serde(default = "default_min_items")]
     #[schemars(range(min = MIN_ITEMS_FLOOR, max = MAX_MIN_ITEMS))]
     pub min_items: usize,
+    /// Size of a negligible tetrad, in correlation units, from 0 to 0.5: a tetrad counts against
+    /// an item only when it is significantly larger than this, and an implicated item is
+    /// dropped only when one of its residual correlations also exceeds 0.10. 0 is the exact
+    /// test (any significant tetrad counts, every implicated item can go).
+    #[serde(default = "default_tolerance")]
+    #[schemars(with = "Tolerance")]
+    pub tolerance: f64,
 }
 
 /// The smallest `purify.min_items`: a tetrad needs 4 items, a latent variable 3.
@@ -326,6 +337,12 @@ fn default_tetrad_alpha() -> f64 {
 fn default_min_items() -> usize {
     3
 }
+fn default_tolerance() -> f64 {
+    construe_stats::purify::DEFAULT_TOLERANCE
+}
+fn default_discover_tolerance() -> f64 {
+    construe_stats::cluster::DEFAULT_TOLERANCE
+}
 fn default_structure_alpha() -> f64 {
     0.05
 }
@@ -345,6 +362,12 @@ pub struct DiscoverSpec {
     /// The tetrad test.
     #[serde(default)]
     pub test: TetradTest,
+    /// Size of a negligible tetrad, in correlation units, from 0 to 0.5: purity is judged
+    /// against it, and a cluster is reported only when the sample could tell a material tetrad
+    /// (0.10, or twice this if larger) from it. 0 is the exact test.
+    #[serde(default = "default_discover_tolerance")]
+    #[schemars(with = "DiscoverTolerance")]
+    pub tolerance: f64,
 }
 
 /// The item pool of cluster discovery: every item of the data, or a list.
@@ -720,4 +743,49 @@ pub struct CrossLoadingSpec {
     pub item: String,
     /// The other construct it also reflects.
     pub also: String,
+}
+
+/// A tetrad tolerance in correlation units: from 0 (the exact test) to `MAX_TOLERANCE`.
+/// Schema only; `validate.rs` tests `Tolerance::holds`.
+pub struct Tolerance;
+
+/// The largest tetrad tolerance: a tetrad of correlations lies in [-2, 2], and one of 0.5
+/// already means a gross violation.
+pub const MAX_TOLERANCE: f64 = 0.5;
+
+impl Tolerance {
+    pub fn holds(value: f64) -> bool {
+        (0.0..=MAX_TOLERANCE).contains(&value)
+    }
+}
+
+impl JsonSchema for Tolerance {
+    fn inline_schema() -> bool {
+        true
+    }
+
+    fn schema_name() -> Cow<'static, str> {
+        "Tolerance".into()
+    }
+
+    fn json_schema(_: &mut SchemaGenerator) -> Schema {
+        json_schema!({"type": "number", "minimum": 0.0, "maximum": MAX_TOLERANCE, "default": construe_stats::purify::DEFAULT_TOLERANCE})
+    }
+}
+
+/// `discover.tolerance`: as `Tolerance`, with discovery's default. Schema only.
+pub struct DiscoverTolerance;
+
+impl JsonSchema for DiscoverTolerance {
+    fn inline_schema() -> bool {
+        true
+    }
+
+    fn schema_name() -> Cow<'static, str> {
+        "DiscoverTolerance".into()
+    }
+
+    fn json_schema(_: &mut SchemaGenerator) -> Schema {
+        json_schema!({"type": "number", "minimum": 0.0, "maximum": MAX_TOLERANCE, "default": construe_stats::cluster::DEFAULT_TOLERANCE})
+    }
 }

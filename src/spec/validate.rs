@@ -11,7 +11,7 @@ use super::positions::{child, element};
 use super::problem::{Finding, SpecProblem};
 use super::types::{
     Alpha, Estimation, EstimationMethod, ItemPool, MIN_ITEMS_FLOOR, OrdinalSpec, Positive, Reliability, Spec,
-    StandardErrors, TetradTest,
+    StandardErrors, TetradTest, Tolerance,
 };
 use crate::data::MatrixProblem;
 
@@ -189,6 +189,7 @@ fn check_constructs(spec: &Spec, sources: &[SourceColumns], available: Option<&V
                 base.clone(),
             ));
         }
+        check_facets(name, c, &base, out);
         let mut in_this = HashSet::new();
         for (i, item) in c.items.iter().enumerate() {
             let path = element(&child(&base, "items"), i);
@@ -478,6 +479,7 @@ fn check_analyses(spec: &Spec, available: Option<&Vec<String>>, out: &mut Vec<Fi
     let construct_items = || spec.constructs.values().flat_map(|c| c.items.iter());
     if let Some(p) = &a.purify {
         alpha("`purify.alpha`", p.alpha, "analyses.purify.alpha", out);
+        tolerance("`purify.tolerance`", p.tolerance, "analyses.purify.tolerance", out);
         let ordinal = declared_ordinal(&mut construct_items());
         if p.test == TetradTest::Wishart && !ordinal.is_empty() {
             out.push(Finding::value(
@@ -508,6 +510,7 @@ fn check_analyses(spec: &Spec, available: Option<&Vec<String>>, out: &mut Vec<Fi
     }
     if let Some(d) = &a.discover {
         alpha("`discover.alpha`", d.alpha, "analyses.discover.alpha", out);
+        tolerance("`discover.tolerance`", d.tolerance, "analyses.discover.tolerance", out);
         let ordinal = match &d.items {
             ItemPool::All => declared_ordinal(&mut construct_items()),
             ItemPool::Items(pool) => declared_ordinal(&mut pool.iter()),
@@ -669,6 +672,37 @@ fn check_estimation(e: &Estimation, rows: bool, out: &mut Vec<Finding>) {
             SpecProblem::NeedsRows { analysis: "measure (standard_errors: sandwich)".into() },
             format!("{path}.standard_errors"),
         ));
+    }
+}
+
+/// A tetrad tolerance outside [0, `MAX_TOLERANCE`].
+fn tolerance(what: &str, value: f64, path: &str, out: &mut Vec<Finding>) {
+    if !Tolerance::holds(value) {
+        let range = format!("[0, {}] (correlation units; 0 is the exact test)", super::types::MAX_TOLERANCE);
+        out.push(Finding::value(SpecProblem::OutOfRange { what: what.into(), range, value }, path));
+    }
+}
+
+/// Each facet of a construct lists some of the construct's own items.
+fn check_facets(name: &str, c: &super::types::ConstructSpec, base: &str, out: &mut Vec<Finding>) {
+    let facets = child(base, "facets");
+    for (facet, items) in &c.facets {
+        let path = child(&facets, facet);
+        if items.is_empty() {
+            out.push(Finding::key(SpecProblem::EmptyFacet { construct: name.into(), facet: facet.clone() }, path));
+            continue;
+        }
+        for (i, item) in items.iter().enumerate() {
+            if !c.items.contains(item) {
+                let problem = SpecProblem::FacetItemNotInConstruct {
+                    construct: name.into(),
+                    facet: facet.clone(),
+                    item: item.clone(),
+                    suggestion: suggest(item, c.items.iter().map(String::as_str)),
+                };
+                out.push(Finding::value(problem, element(&path, i)));
+            }
+        }
     }
 }
 

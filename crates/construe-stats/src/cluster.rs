@@ -19,20 +19,56 @@ pub struct ClusterOptions {
     pub alpha: f64,
     /// Smallest cluster reported (at least 3, the size of a seed).
     pub min_size: usize,
+    /// Tetrad tolerance (units of the matrix's tetrads; correlation products for a
+    /// correlation matrix): a quad counts against purity only when its tetrads are
+    /// significantly outside it (`TetradTester::quad_excess_chi2`), and a cluster is reported
+    /// only when the sample could tell a material tetrad (`MATERIAL_TETRAD`) from it (see
+    /// `find_clusters`). 0 is the exact test, with no such check.
+    pub tolerance: f64,
 }
 
 impl Default for ClusterOptions {
     fn default() -> Self {
-        Self { alpha: 0.01, min_size: 3 }
+        Self { alpha: 0.01, min_size: 3, tolerance: DEFAULT_TOLERANCE }
     }
 }
 
+/// The default tetrad tolerance of cluster discovery, in correlation units: the same as
+/// purification's (`purify::DEFAULT_TOLERANCE`). A larger one (0.05) let an error correlation
+/// of 0.4 pass unseen at n = 1,000 in more than half of the samples of the crate's acceptance
+/// design (tests/acceptance.rs), since such a pair's tetrads are only about 0.10.
+pub const DEFAULT_TOLERANCE: f64 = 0.02;
+
+/// The tetrad size a reported cluster's purity checks must be able to see: twice the
+/// tolerance, and at least 0.10 (a residual correlation of about 0.2 between two items with
+/// loadings near 0.7, the size of a material correlated error or cross-loading).
+pub const MATERIAL_TETRAD: f64 = 0.10;
+
 /// Pure clusters found, largest first (ties: smallest first item), items ascending within a
-/// cluster; `unclustered` holds the rest of the pool, ascending.
-#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+/// cluster; `unclustered` holds the rest of the pool (including the items of withheld
+/// clusters), ascending.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct Clusters {
     pub clusters: Vec<Vec<usize>>,
     pub unclustered: Vec<usize>,
+    /// Clusters the search grew but does not report for lack of evidence, largest first.
+    pub withheld: Vec<Withheld>,
+}
+
+/// A cluster the search grew whose tetrads could not be told from the tolerance at this n.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Withheld {
+    /// Its items, ascending.
+    pub items: Vec<usize>,
+    /// The median standard error of the tetrads that judged its purity (its seed triple with
+    /// each other pool item).
+    pub se: f64,
+    /// The smallest tetrad the purity checks tell from the tolerance: tolerance + z se, z the
+    /// square root of their critical value.
+    pub detectable: f64,
+    /// Sample size at which `detectable` would reach the material size (`MATERIAL_TETRAD`, or
+    /// twice the tolerance if larger; standard errors shrink as 1 / sqrt(n)).
+    pub n_needed: usize,
 }
 
 /// Finds pure one-factor clusters among the `pool` items of `tester`'s covariance matrix.
@@ -63,6 +99,19 @@ pub struct Clusters {
 /// merged (they measure one latent), clusters smaller than `min_size` are returned to the
 /// unclustered items, and the largest are listed first. Deterministic: the parallel steps keep
 /// the sequential order of their results.
+///
+/// Size criterion (issue 16). With `tolerance` > 0 each quad is judged by the close-fit
+/// statistic `TetradTester::quad_excess_chi2` (the distance of its tetrads from the set where
+/// all are within the tolerance), against the same critical value. And a cluster is reported
+/// only when its purity verdicts had the power to see a material impurity: with s the median
+/// standard error of the tetrads of its seed triple with every other pool item, the smallest
+/// tetrad the purity checks tell from the tolerance is tol + z s, z the square root of their
+/// chi-square critical value (alpha Bonferroni-corrected over a triple's quads); when that
+/// exceeds the material size m = max(`MATERIAL_TETRAD`, 2 tol), a material impurity would pass
+/// unseen more often than not, so the cluster is withheld (`Clusters::withheld`, with the n at
+/// which it would be judged: n (z s / (m - tol))^2) and its items count as unclustered. At small n this turns what
+/// would be a large cluster mixing several latents (no triple can be rejected) into a statement
+/// that the evidence is not enough. Tolerance 0 skips the check.
 pub fn find_clusters(tester: &TetradTester, pool: &[usize], options: &ClusterOptions) -> Result<Clusters, StatsError> {
     if !(options.alpha > 0.0 && options.alpha < 1.0) {
         return Err(StatsError::InvalidInput(format!("alpha {} is not in (0, 1)", options.alpha)));
@@ -78,27 +127,48 @@ pub fn find_clusters(tester: &TetradTester, pool: &[usize], options: &ClusterOpt
     if let Some(&bad) = items.iter().find(|&&i| i >= tester.n_items()) {
         return Err(StatsError::InvalidInput(format!("item {bad} is out of range for {} items", tester.n_items())));
     }
-    if items.len() < 4 {
-        return Ok(Clusters { clusters: Vec::new(), unclustered: items });
+    if !(options.tolerance.is_finite() && options.tolerance >= 0.0) {
+        return Err(StatsError::InvalidInput(format!(
+            "tolerance {} is not a finite non-negative number",
+            options.tolerance
+        )));
     }
-    let search = Search::new(tester, items, options.alpha);
+    if items.len() < 4 {
+        return Ok(Clusters { clusters: Vec::new(), unclustered: items, withheld: Vec::new() });
+    }
+    let search = Search::new(tester, items, options.alpha, options.tolerance);
     let found = search.seed_and_grow()?;
     let merged = search.merge(found)?;
     let m = search.items.len();
     let mut in_cluster = vec![false; m];
     let mut clusters: Vec<Vec<usize>> = Vec::new();
-    for members in merged.into_iter().filter(|c| c.len() >= options.min_size) {
+    let mut withheld: Vec<Withheld> = Vec::new();
+    // The search's own per-quad critical value on the z scale: a tetrad exceeding the
+    // tolerance by z standard errors makes the quad's statistic about crit.
+    let z = search.crit.sqrt();
+    for (members, seed) in merged.into_iter().filter(|(c, _)| c.len() >= options.min_size) {
+        let mut names: Vec<usize> = members.iter().map(|&x| search.items[x]).collect();
+        names.sort_unstable();
+        if options.tolerance > 0.0 {
+            let se = search.seed_se(seed)?;
+            let detectable = options.tolerance + z * se;
+            let material = MATERIAL_TETRAD.max(2.0 * options.tolerance);
+            if detectable > material {
+                let ratio = z * se / (material - options.tolerance);
+                let n_needed = ((tester.n_obs() as f64) * ratio * ratio).ceil() as usize;
+                withheld.push(Withheld { items: names, se, detectable, n_needed });
+                continue;
+            }
+        }
         for &x in &members {
             in_cluster[x] = true;
         }
-        clusters.push(members.iter().map(|&x| search.items[x]).collect());
-    }
-    for c in &mut clusters {
-        c.sort_unstable();
+        clusters.push(names);
     }
     clusters.sort_by(|a, b| b.len().cmp(&a.len()).then(a[0].cmp(&b[0])));
+    withheld.sort_by(|a, b| b.items.len().cmp(&a.items.len()).then(a.items[0].cmp(&b.items[0])));
     let unclustered = (0..m).filter(|&x| !in_cluster[x]).map(|x| search.items[x]).collect();
-    Ok(Clusters { clusters, unclustered })
+    Ok(Clusters { clusters, unclustered, withheld })
 }
 
 /// One search over a fixed pool; items are addressed by their position in `items`.
@@ -109,6 +179,8 @@ struct Search<'a> {
     order: Vec<usize>,
     /// Chi-square (df 2) critical value of one quad within a triple's Bonferroni family.
     crit: f64,
+    /// Tetrad tolerance of the close-fit statistic (0: exact).
+    tolerance: f64,
     /// For each position, the `NEIGHBOURS` positions of largest |correlation| with it.
     neighbours: Vec<Vec<usize>>,
     /// |correlation| of each pair of positions, and whether it differs from zero.
@@ -123,7 +195,7 @@ const NEIGHBOURS: usize = 8;
 type Found = (Vec<usize>, [usize; 3]);
 
 impl<'a> Search<'a> {
-    fn new(tester: &'a TetradTester, items: Vec<usize>, alpha: f64) -> Self {
+    fn new(tester: &'a TetradTester, items: Vec<usize>, alpha: f64, tolerance: f64) -> Self {
         let m = items.len();
         let stride = stride_for(m);
         let order = (0..m).map(|k| (k * stride) % m).collect();
@@ -148,7 +220,20 @@ impl<'a> Search<'a> {
                 others
             })
             .collect();
-        Self { tester, items, order, crit, neighbours, abs_r, correlated }
+        Self { tester, items, order, crit, tolerance, neighbours, abs_r, correlated }
+    }
+
+    /// Median standard error of the tetrads of the seed triple with every other pool item.
+    fn seed_se(&self, seed: [usize; 3]) -> Result<f64, StatsError> {
+        let [a, b, c] = seed.map(|x| self.items[x]);
+        let mut ses: Vec<f64> = Vec::new();
+        for d in (0..self.items.len()).filter(|d| !seed.contains(d)) {
+            for t in self.tester.test_quad([a, b, c, self.items[d]])? {
+                ses.push(t.se);
+            }
+        }
+        ses.sort_by(f64::total_cmp);
+        Ok(if ses.is_empty() { 0.0 } else { ses[ses.len() / 2] })
     }
 
     /// Early-exit purity screen of a triple. The fourth items most correlated with a triple
@@ -162,7 +247,7 @@ impl<'a> Search<'a> {
             if t.contains(&d) {
                 continue;
             }
-            if self.tester.quad_chi2([a, b, c, self.items[d]])? > crit {
+            if self.tester.quad_excess_chi2([a, b, c, self.items[d]], self.tolerance)? > crit {
                 return Ok(false);
             }
         }
@@ -238,7 +323,7 @@ impl<'a> Search<'a> {
 
     /// Merges clusters grown from seeds of one latent: seeds s and t belong together when
     /// {s1, s2, t1} and {s1, t1, t2} are pure triples.
-    fn merge(&self, found: Vec<Found>) -> Result<Vec<Vec<usize>>, StatsError> {
+    fn merge(&self, found: Vec<Found>) -> Result<Vec<Found>, StatsError> {
         let mut clusters: Vec<Option<Found>> = found.into_iter().map(Some).collect();
         for i in 0..clusters.len() {
             for j in i + 1..clusters.len() {
@@ -260,7 +345,7 @@ impl<'a> Search<'a> {
                 }
             }
         }
-        Ok(clusters.into_iter().flatten().map(|(members, _)| members).collect())
+        Ok(clusters.into_iter().flatten().collect())
     }
 }
 
@@ -328,7 +413,9 @@ mod tests {
             TetradTester::wishart(&sample_cov(&x), 2000).unwrap()
         };
         let pool: Vec<usize> = (0..12).collect();
-        find_clusters(&tester, &pool, &ClusterOptions::default()).unwrap()
+        // The exact test: with loadings as low as 0.55 the error covariance of 0.25 makes
+        // tetrads of about 0.08, not always significantly above the default tolerance.
+        find_clusters(&tester, &pool, &ClusterOptions { tolerance: 0.0, ..ClusterOptions::default() }).unwrap()
     }
 
     // A correlated-error pair (items 4, 5) inside a cluster makes both items impure (each
@@ -369,13 +456,100 @@ mod tests {
                     TetradTester::wishart(&sample_cov(&x), 2000).unwrap()
                 };
                 let pool: Vec<usize> = (0..17).collect();
-                let got = find_clusters(&tester, &pool, &ClusterOptions::default()).unwrap();
+                let exact = ClusterOptions { tolerance: 0.0, ..ClusterOptions::default() };
+                let got = find_clusters(&tester, &pool, &exact).unwrap();
                 let truth = vec![vec![0, 1, 2, 3, 4], vec![5, 6, 7, 8, 9], vec![10, 11, 12, 13, 14]];
                 ok[1] += usize::from(got.clusters == truth);
             }
             println!("delta {delta}: exact recovery {} and {} of {reps}", ok[0], ok[1]);
             assert!(ok.iter().all(|&k| k * 10 >= reps as usize * 9));
         }
+    }
+
+    /// Three correlated latents (0.6) with five indicators each (loadings 0.6-0.8), n rows.
+    fn mixed_small_case(n: usize, seed: u64) -> TetradTester {
+        let mut lambda = DMatrix::zeros(15, 3);
+        let loadings = [0.8, 0.7, 0.6, 0.75, 0.65];
+        for f in 0..3 {
+            for (k, &l) in loadings.iter().enumerate() {
+                lambda[(5 * f + k, f)] = l;
+            }
+        }
+        let phi = DMatrix::from_fn(3, 3, |a, b| if a == b { 1.0 } else { 0.6 });
+        let common = &lambda * &phi * lambda.transpose();
+        let theta = DMatrix::from_diagonal(&nalgebra::DVector::from_fn(15, |i, _| 1.0 - common[(i, i)]));
+        let sigma = crate::testkit::factor_cov(&lambda, &phi, &theta);
+        let x = draw_normal(&sigma, n, &mut ChaCha8Rng::seed_from_u64(seed));
+        TetradTester::wishart(&sample_cov(&x), n).unwrap()
+    }
+
+    fn mixes_latents(c: &[usize]) -> bool {
+        c.iter().any(|&i| i / 5 != c[0] / 5)
+    }
+
+    // Issue 16 (simulated mixed case at small n): three correlated latents, n = 120. The exact
+    // test cannot reject triples spread over the latents and returns clusters mixing them in
+    // most of 10 seeded samples; with the size criterion no reported cluster mixes latents,
+    // and every sample says the evidence is not enough, with an n needed above 120.
+    #[test]
+    fn low_power_withholds_mixed_clusters() {
+        let pool: Vec<usize> = (0..15).collect();
+        let (mut exact_mixed, mut withheld) = (0, 0);
+        for seed in 0..10 {
+            let tester = mixed_small_case(120, 1600 + seed);
+            let exact =
+                find_clusters(&tester, &pool, &ClusterOptions { tolerance: 0.0, ..ClusterOptions::default() }).unwrap();
+            exact_mixed += usize::from(exact.clusters.iter().any(|c| mixes_latents(c)));
+            let sized = find_clusters(&tester, &pool, &ClusterOptions::default()).unwrap();
+            assert!(sized.clusters.iter().all(|c| !mixes_latents(c)), "seed {seed}: {sized:?}");
+            assert!(sized.withheld.iter().all(|w| w.n_needed > 120 && w.detectable > 0.1), "{sized:?}");
+            withheld += usize::from(sized.clusters.is_empty() && !sized.withheld.is_empty());
+        }
+        assert!(exact_mixed >= 6, "the exact test mixed latents in only {exact_mixed} of 10 samples");
+        assert_eq!(withheld, 10);
+    }
+
+    // At n = 3000 the same design is judged: the three latents' clusters are reported, none
+    // withheld.
+    #[test]
+    fn large_samples_report_clusters() {
+        let pool: Vec<usize> = (0..15).collect();
+        let tester = mixed_small_case(3000, 1700);
+        let got = find_clusters(&tester, &pool, &ClusterOptions::default()).unwrap();
+        assert!(got.withheld.is_empty(), "{got:?}");
+        let mut clusters = got.clusters.clone();
+        clusters.sort();
+        assert_eq!(clusters, vec![(0..5).collect::<Vec<_>>(), (5..10).collect(), (10..15).collect()]);
+    }
+
+    // Long calibration of the withholding rule (issue 16):
+    // `cargo test -p construe-stats --lib withholding_rate_long -- --ignored --nocapture`.
+    // 100 samples of the three-latent design at n = 120 (no reported cluster may mix latents;
+    // share of samples reporting nothing) and at n = 3000 (share reporting the three true
+    // clusters, none withheld; at least 90 %). Measured: n = 120, no mixed cluster and nothing
+    // reported in 100/100; n = 3000, the three clusters in 100/100.
+    #[test]
+    #[ignore]
+    fn withholding_rate_long() {
+        let pool: Vec<usize> = (0..15).collect();
+        let (mut mixed_small, mut silent_small, mut exact_large) = (0, 0, 0);
+        for seed in 0..100 {
+            let small =
+                find_clusters(&mixed_small_case(120, 20_000 + seed), &pool, &ClusterOptions::default()).unwrap();
+            mixed_small += usize::from(small.clusters.iter().any(|c| mixes_latents(c)));
+            silent_small += usize::from(small.clusters.is_empty());
+            let large =
+                find_clusters(&mixed_small_case(3000, 30_000 + seed), &pool, &ClusterOptions::default()).unwrap();
+            let mut got = large.clusters.clone();
+            got.sort();
+            let truth: Vec<Vec<usize>> = (0..3).map(|f| (5 * f..5 * f + 5).collect()).collect();
+            exact_large += usize::from(got == truth && large.withheld.is_empty());
+        }
+        println!(
+            "n 120: mixed clusters reported in {mixed_small}/100, nothing reported in {silent_small}/100; n 3000: the three clusters in {exact_large}/100"
+        );
+        assert_eq!(mixed_small, 0);
+        assert!(exact_large >= 90);
     }
 
     #[test]

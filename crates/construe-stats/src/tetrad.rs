@@ -20,11 +20,11 @@ use super::StatsError;
 use super::acov::{Element, SamplingCovariance, check_element};
 
 /// The six off-diagonal pairs of a quad, as positions 0..4 in the quad's item order.
-const PAIRS: [(usize, usize); 6] = [(0, 1), (0, 2), (0, 3), (1, 2), (1, 3), (2, 3)];
+pub const PAIRS: [(usize, usize); 6] = [(0, 1), (0, 2), (0, 3), (1, 2), (1, 3), (2, 3)];
 
 /// For each tetrad w: indices into `PAIRS` of the two factors of its positive term, then of its
 /// negative term. t1 = s01 s23 - s02 s13, t2 = s01 s23 - s03 s12, t3 = s02 s13 - s03 s12.
-const TERMS: [[usize; 4]; 3] = [[0, 5, 1, 4], [0, 5, 2, 3], [1, 4, 2, 3]];
+pub const TERMS: [[usize; 4]; 3] = [[0, 5, 1, 4], [0, 5, 2, 3], [1, 4, 2, 3]];
 
 /// The 2 + 2 split of quad positions whose cross-covariance block has determinant t_w:
 /// t1 = det S[{i,l},{j,k}], t2 = det S[{i,k},{j,l}], t3 = det S[{i,j},{k,l}].
@@ -90,6 +90,26 @@ pub fn tetrad_differences(cov: &DMatrix<f64>, items: [usize; 4]) -> Result<[f64;
     check_square(cov)?;
     check_items(cov.nrows(), items)?;
     Ok(differences(&submatrix(cov, items)))
+}
+
+/// Close-fit p-value of one tetrad: the test of H0 |tau| <= `tolerance` against |tau| >
+/// `tolerance`, for a sample tetrad `diff` with standard error `se` and tau its population
+/// value. This is the idea of the close-fit test of RMSEA (Browne & Cudeck 1993; MacCallum,
+/// Browne & Sugawara 1996) applied to one tetrad: judge a constraint by whether its violation is
+/// larger than a negligible size, not by whether it is exactly zero. With the sample tetrad
+/// approximately N(tau, se^2), the probability of a |t| at least as large as the observed one is
+/// largest on the boundary |tau| = tolerance, where |t| / se is a folded normal:
+///
+/// `p = Phi(-(|t| - tol) / se) + Phi(-(|t| + tol) / se)`,
+///
+/// the supremum of the rejection probability over the null (so the test holds its level for
+/// every |tau| <= tol). `tolerance = 0` gives the usual two-sided p-value 2 (1 - Phi(|t| / se)).
+/// Units: `diff`, `se` and `tolerance` in the units of the matrix's tetrads (correlation
+/// products for a correlation matrix).
+pub fn close_fit_p(diff: f64, se: f64, tolerance: f64) -> f64 {
+    let normal = Normal::standard();
+    let a = diff.abs();
+    (normal.cdf(-(a - tolerance) / se) + normal.cdf(-(a + tolerance) / se)).min(1.0)
 }
 
 /// Wishart's (1928) exact sampling variance of one tetrad difference of the unbiased sample
@@ -445,6 +465,41 @@ impl TetradTester {
         Ok(-2.0 * p.max(f64::MIN_POSITIVE).ln())
     }
 
+    /// Close-fit version of `quad_chi2`: the statistic of the test that the quad's tetrads are
+    /// all within `tolerance` of zero (H0: |tau1|, |tau2|, |tau3| <= tol, with tau3 = tau2 - tau1),
+    /// the idea of RMSEA's close-fit test (Browne & Cudeck 1993; MacCallum, Browne & Sugawara
+    /// 1996). The statistic is the squared Mahalanobis distance, in the metric Omega^-1 of
+    /// `quad_chi2`, from the sample (t1, t2) to the hexagon {|t1| <= tol, |t2| <= tol,
+    /// |t2 - t1| <= tol}: zero inside, else the smallest distance to its six edges. For any
+    /// tau in that convex set the distance to the set is at most the distance to tau, which is
+    /// asymptotically chi-square(2), so comparing it with the df-2 chi-square keeps the level
+    /// over the whole null. `tolerance = 0` is `quad_chi2` itself. With a singular Omega the
+    /// larger-variance tetrad alone is used, its excess (|t| - tol)+ in place of |t|.
+    pub fn quad_excess_chi2(&self, items: [usize; 4], tolerance: f64) -> Result<f64, StatsError> {
+        if tolerance <= 0.0 {
+            return self.quad_chi2(items);
+        }
+        check_items(self.n_items(), items)?;
+        let sub = submatrix(&self.cov, items);
+        let t = differences(&sub);
+        let omega = match self.kind {
+            TetradTestKind::Wishart => normal_omega(&sub, self.n_obs),
+            TetradTestKind::Delta | TetradTestKind::Sampling => self.quad_omega(items, &sub)?,
+        };
+        let (a, b, c) = (omega[0][0], omega[0][1], omega[1][1]);
+        let det = a * c - b * b;
+        if det > 1e-12 * (a * c).abs() && a > 0.0 && c > 0.0 {
+            let w = [[c / det, -b / det], [-b / det, a / det]];
+            return Ok(hexagon_distance([t[0], t[1]], w, tolerance));
+        }
+        let (v, d) = if a >= c { (a, t[0]) } else { (c, t[1]) };
+        let var = positive_variance(v, items)?;
+        let excess = (d.abs() - tolerance).max(0.0);
+        let chi1 = excess * excess / var;
+        let p = ChiSquared::new(1.0).map_err(|e| StatsError::InvalidInput(e.to_string()))?.sf(chi1);
+        Ok(-2.0 * p.max(f64::MIN_POSITIVE).ln())
+    }
+
     /// Joint chi-square test that all `tetrads` vanish (Bollen & Ting 1993): with t the vector
     /// of sample tetrads and G their gradient with respect to the sample covariances,
     /// Omega = G Gamma G' / N_k, chi2 = t' Omega^+ t (Moore-Penrose inverse), df = rank(Omega),
@@ -633,6 +688,30 @@ fn sampling_omega(v: &DMatrix<f64>, sub: &Matrix4<f64>) -> [[f64; 3]; 3] {
         }
     }
     out
+}
+
+/// Squared distance (x - t)' W (x - t) from `t` to the hexagon {|x1| <= tol, |x2| <= tol,
+/// |x2 - x1| <= tol}, W positive definite: zero inside; outside, the minimum lies on the
+/// boundary, so it is the smallest over the six edges of the convex quadratic along each edge
+/// (minimised in closed form, clamped to the edge).
+fn hexagon_distance(t: [f64; 2], w: [[f64; 2]; 2], tol: f64) -> f64 {
+    let inside = t[0].abs() <= tol && t[1].abs() <= tol && (t[1] - t[0]).abs() <= tol;
+    if inside {
+        return 0.0;
+    }
+    let quad =
+        |x: [f64; 2], y: [f64; 2]| x[0] * (w[0][0] * y[0] + w[0][1] * y[1]) + x[1] * (w[1][0] * y[0] + w[1][1] * y[1]);
+    let vertices = [[tol, tol], [0.0, tol], [-tol, 0.0], [-tol, -tol], [0.0, -tol], [tol, 0.0]];
+    let mut best = f64::INFINITY;
+    for k in 0..6 {
+        let (p, q) = (vertices[k], vertices[(k + 1) % 6]);
+        let d = [q[0] - p[0], q[1] - p[1]];
+        let r = [p[0] - t[0], p[1] - t[1]];
+        let s = (-quad(r, d) / quad(d, d)).clamp(0.0, 1.0);
+        let x = [r[0] + s * d[0], r[1] + s * d[1]];
+        best = best.min(quad(x, x));
+    }
+    best
 }
 
 /// Normal-theory delta-method covariance of (t1, t2, t3): G Gamma G' / (N - 1) with
@@ -1112,6 +1191,50 @@ mod tests {
             println!("{kind:?}: P(p < .05) = {rej:.4}, P(p < .5) = {half:.4}");
             if kind == TetradTestKind::Delta {
                 assert!((0.04..=0.065).contains(&rej));
+            }
+        }
+    }
+
+    // Close-fit p-values and the hexagon distance against an independent numpy/scipy
+    // computation (tests/reference/tolerance/make_fixture.py: the supremum over a grid of the
+    // null's tau values, and a constrained SLSQP minimisation); Browne & Cudeck (1993)'s
+    // close-fit idea applied to tetrads.
+    #[test]
+    fn close_fit_matches_scipy() {
+        let v: Value = crate::reference!("tolerance/tolerance.json");
+        for c in v["close_fit"].as_array().unwrap() {
+            let f = |k: &str| c[k].as_f64().unwrap();
+            let got = close_fit_p(f("diff"), f("se"), f("tol"));
+            assert!((got - f("p")).abs() < 1e-6 * (1.0 + f("p")), "{c}: {got}");
+        }
+        for c in v["hexagon"].as_array().unwrap() {
+            let t = [c["t"][0].as_f64().unwrap(), c["t"][1].as_f64().unwrap()];
+            let w = [0, 1].map(|r| [0, 1].map(|k| c["w"][r][k].as_f64().unwrap()));
+            let want = c["distance"].as_f64().unwrap();
+            let got = hexagon_distance(t, w, c["tol"].as_f64().unwrap());
+            assert!((got - want).abs() < 1e-5 * (1.0 + want), "{c}: {got}");
+        }
+    }
+
+    // tolerance 0 is the exact test; a positive tolerance never makes a quad look worse, and a
+    // quad whose tetrads are all inside it scores 0.
+    #[test]
+    fn close_fit_reduces_to_the_exact_test() {
+        let mut rng = ChaCha8Rng::seed_from_u64(16);
+        let lambda: DMatrix<f64> = DMatrix::from_column_slice(6, 1, &[0.8, 0.7, 0.6, 0.75, 0.65, 0.55]);
+        let theta = DMatrix::from_diagonal(&nalgebra::DVector::from_fn(6, |i, _| 1.0 - lambda[(i, 0)].powi(2)));
+        let sigma = factor_cov(&lambda, &DMatrix::identity(1, 1), &theta);
+        let x = draw_normal(&sigma, 400, &mut rng);
+        let tester = TetradTester::wishart(&sample_cov(&x), 400).unwrap();
+        for q in quads(6) {
+            let exact = tester.quad_chi2(q).unwrap();
+            assert_eq!(tester.quad_excess_chi2(q, 0.0).unwrap(), exact);
+            let loose = tester.quad_excess_chi2(q, 0.02).unwrap();
+            assert!(loose <= exact + 1e-12 && loose >= 0.0);
+            assert_eq!(tester.quad_excess_chi2(q, 1.0).unwrap(), 0.0);
+            for t in tester.test_quad(q).unwrap() {
+                assert!((close_fit_p(t.diff, t.se, 0.0) - t.p).abs() < 1e-12);
+                assert!(close_fit_p(t.diff, t.se, 0.02) >= t.p);
             }
         }
     }

@@ -156,7 +156,8 @@ fn replicate(model: &Model, seed: u64) -> Recovery {
     let columns = model.draw(RECOVERY_N, seed).unwrap().values;
     let s = pearson(&columns, Deletion::Listwise).unwrap().covariance;
 
-    let options = PurifyOptions { test: TetradTestKind::Wishart, alpha: 0.01, min_items: 3 };
+    let options =
+        PurifyOptions { test: TetradTestKind::Wishart, alpha: 0.01, min_items: 3, ..PurifyOptions::default() };
     let purified = purify(&s, RECOVERY_N, None, &declared_groups(), &options).unwrap();
     let dropped: Vec<usize> = purified.groups.iter().flat_map(|g| g.dropped.iter().map(|d| d.item)).collect();
     let impure_dropped = dropped.contains(&CROSS_LOADER) && PAIR.iter().any(|i| dropped.contains(i));
@@ -164,7 +165,9 @@ fn replicate(model: &Model, seed: u64) -> Recovery {
 
     let tester = TetradTester::wishart(&s, RECOVERY_N).unwrap();
     let pool: Vec<usize> = (0..20).collect();
-    let found = find_clusters(&tester, &pool, &ClusterOptions { alpha: 0.01, min_size: 3 }).unwrap();
+    let found =
+        find_clusters(&tester, &pool, &ClusterOptions { alpha: 0.01, min_size: 3, ..ClusterOptions::default() })
+            .unwrap();
     let mut got = found.clusters.clone();
     got.sort();
     let exact: Vec<Vec<usize>> =
