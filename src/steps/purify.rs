@@ -200,6 +200,26 @@ pub struct PurifyStep {
     declared_pairs: Vec<(String, String)>,
 }
 
+/// The item pairs whose covariance the spec's `impurities:` declares to carry extra shared
+/// variance: each correlated error; every pair of items sharing a method factor; and a
+/// cross-loading item with each item of the construct it also reflects. Purification leaves the
+/// tetrads over these pairs out, so a declared impurity is modelled by `measure`, not dropped.
+fn declared_pairs(file: &SpecFile) -> Vec<(String, String)> {
+    let declared = &file.spec.impurities;
+    let mut pairs: Vec<(String, String)> = declared.correlated_errors.iter().map(|[a, b]| (a.clone(), b.clone())).collect();
+    for items in declared.method_factors.values() {
+        for (k, a) in items.iter().enumerate() {
+            pairs.extend(items[k + 1..].iter().map(|b| (a.clone(), b.clone())));
+        }
+    }
+    for cross in &declared.cross_loadings {
+        if let Some(other) = file.spec.constructs.get(&cross.also) {
+            pairs.extend(other.items.iter().filter(|b| **b != cross.item).map(|b| (cross.item.clone(), b.clone())));
+        }
+    }
+    pairs
+}
+
 impl PurifyStep {
     pub fn from_spec(file: &SpecFile, params: &PurifySpec) -> PurifyStep {
         let constructs = file.spec.constructs.iter().map(|(n, c)| (n.clone(), c.items.clone())).collect();
@@ -210,7 +230,7 @@ impl PurifyStep {
             .filter(|(_, c)| !c.facets.is_empty())
             .map(|(n, c)| (n.clone(), c.facets.clone()))
             .collect();
-        PurifyStep { params: params.clone(), constructs, facets, declared_pairs: Vec::new() }
+        PurifyStep { params: params.clone(), constructs, facets, declared_pairs: declared_pairs(file) }
     }
 
     /// The same step with `pairs` exempt (see `declared_pairs`).
@@ -391,5 +411,23 @@ impl Step for PurifyStep {
                 dropped.join(", ")
             )
         }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::declared_pairs;
+    use crate::spec::SpecFile;
+
+    #[test]
+    fn declared_impurities_become_exempt_pairs() {
+        let spec = "construe: 1\ntitle: t\ndata:\n  waves: [{id: w, file: w.csv}]\nconstructs:\n  a: {items: [a1, a2, a3, a4]}\n  b: {items: [b1, b2, b3]}\nimpurities:\n  correlated_errors: [[a1, a2]]\n  cross_loadings: [{item: a4, also: b}]\n  method_factors: {reversed: [a3, b2, b3]}\n";
+        let dir = tempfile::tempdir().unwrap();
+        let file = SpecFile::parse(&dir.path().join("spec.yaml"), spec.into()).unwrap();
+        let pairs: Vec<(&str, &str)> = declared_pairs(&file).iter().map(|(a, b)| (a.as_str(), b.as_str())).collect();
+        assert_eq!(
+            pairs,
+            [("a1", "a2"), ("a3", "b2"), ("a3", "b3"), ("b2", "b3"), ("a4", "b1"), ("a4", "b2"), ("a4", "b3")]
+        );
     }
 }
