@@ -10,6 +10,7 @@ pub mod disclosure;
 pub mod error;
 pub mod fdr;
 pub mod impute;
+pub mod invariance;
 pub mod missing;
 pub mod mixed;
 pub mod moments;
