@@ -9,6 +9,7 @@ pub mod cluster;
 pub mod disclosure;
 pub mod error;
 pub mod fdr;
+pub mod groups_continuous;
 pub mod impute;
 pub mod invariance;
 pub mod missing;
