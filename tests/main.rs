@@ -14,6 +14,7 @@ mod estimation;
 mod faults;
 mod guard;
 mod inputs;
+mod invariance;
 mod missing;
 mod power;
 mod reference;

@@ -44,6 +44,7 @@ pub fn findings(results: &Value) -> Value {
     fit_point(results, &mut points, &mut cautions);
     structure_point(results, &mut points, &mut cautions);
     sensitivity_point(results, &mut points, &mut cautions);
+    super::findings_invariance::invariance_point(results, &mut points, &mut cautions);
     data_cautions(results, &mut cautions);
     json!({"points": points, "kept": kept, "cautions": cautions})
 }
