@@ -26,7 +26,15 @@ analyses:
 /// One wave: two constructs (correlation 0.4, loadings 0.7, item variances 1), construct means
 /// `kappa`, item `shift_item`'s intercept raised by `shift`; ids from `first_id`; `region`
 /// alternates `east` / `west` when `with_region`. `coded`: 5-point answers.
-fn wave(n: usize, seed: u64, kappa: [f64; 2], shift: (usize, f64), first_id: usize, with_region: bool, coded: bool) -> String {
+fn wave(
+    n: usize,
+    seed: u64,
+    kappa: [f64; 2],
+    shift: (usize, f64),
+    first_id: usize,
+    with_region: bool,
+    coded: bool,
+) -> String {
     let mut l = DMatrix::zeros(8, 2);
     for i in 0..8 {
         l[(i, i / 4)] = 0.7;
@@ -36,7 +44,11 @@ fn wave(n: usize, seed: u64, kappa: [f64; 2], shift: (usize, f64), first_id: usi
     let sigma = testkit::factor_cov(&l, &phi, &theta);
     let x = testkit::draw_normal(&sigma, n, &mut testkit::seeded(seed));
     let mu = &l * DVector::from_column_slice(&kappa);
-    let mut out = String::from(if with_region { "rid,region,a1,a2,a3,a4,b1,b2,b3,b4\n" } else { "rid,a1,a2,a3,a4,b1,b2,b3,b4\n" });
+    let mut out = String::from(if with_region {
+        "rid,region,a1,a2,a3,a4,b1,b2,b3,b4\n"
+    } else {
+        "rid,a1,a2,a3,a4,b1,b2,b3,b4\n"
+    });
     for r in 0..n {
         out.push_str(&(first_id + r).to_string());
         if with_region {
@@ -113,17 +125,20 @@ fn shared_respondents_are_refused() {
     let c = two_waves(101, false);
     c.run(["run", "spec.yaml"])
         .failure(1)
-        .stderr_contains("500 values of id column `rid` appear in more than one group (for example in `spring` and `autumn`)")
+        .stderr_contains(
+            "500 values of id column `rid` appear in more than one group (for example in `spring` and `autumn`)",
+        )
         .stderr_contains("needs the longitudinal model")
         .no_report();
 }
 
-// Groups from a text column: `across: region` in one wave.
+// Groups from a text column: `across: region` in one wave, with the structure search per group.
 #[test]
 fn groups_from_a_column() {
-    let spec = SPEC
-        .replace("    - {id: autumn, file: autumn.csv}\n", "")
-        .replace("invariance: {}", "invariance: {across: region, reference: west, strict: true}");
+    let spec = SPEC.replace("    - {id: autumn, file: autumn.csv}\n", "").replace(
+        "invariance: {}",
+        "invariance: {across: region, reference: west, strict: true}\n  structure: {alpha: 0.05}",
+    );
     let c = Case::new().spec(&spec).file("spring.csv", wave(800, 7, [0.0, 0.0], (0, 0.0), 1, true, false));
     c.run(["run", "spec.yaml"]).success();
     let inv = &results(&c)["invariance"];
@@ -132,6 +147,11 @@ fn groups_from_a_column() {
     assert_eq!(inv["reference"], "west");
     assert_eq!(inv["n"], serde_json::json!({"east": 400, "west": 400}));
     assert_eq!(inv["levels"].as_array().unwrap().len(), 4, "strict was asked for");
+    // The structure search per group: comfort and loyalty (correlation 0.4) adjacent in both.
+    let sg = &inv["structure_by_group"];
+    assert_eq!(sg["same_skeleton"], true, "{sg}");
+    assert_eq!(sg["pairs"][0]["links"], serde_json::json!({"east": "undirected", "west": "undirected"}));
+    assert!(c.read("reports/rider-waves/v1/report.md").contains("The structure search in each group"));
 }
 
 // 5-point items need the threshold model: a clear refusal naming the items.
@@ -140,14 +160,18 @@ fn ordinal_items_are_refused_clearly() {
     let c = two_waves(1001, true);
     c.run(["run", "spec.yaml"])
         .failure(1)
-        .stderr_contains("measurement invariance is not yet available for ordinal items (a1, a2, a3, a4, b1, b2, b3, b4)")
+        .stderr_contains(
+            "measurement invariance is not yet available for ordinal items (a1, a2, a3, a4, b1, b2, b3, b4)",
+        )
         .no_report();
 }
 
 // `check`: one wave only, an unknown reference and an unknown grouping column, each positioned.
 #[test]
 fn check_positions_invariance_problems() {
-    let spec = SPEC.replace("    - {id: autumn, file: autumn.csv}\n", "").replace("invariance: {}", "invariance: {reference: autum}");
+    let spec = SPEC
+        .replace("    - {id: autumn, file: autumn.csv}\n", "")
+        .replace("invariance: {}", "invariance: {reference: autum}");
     let c = Case::new().spec(&spec).file("spring.csv", wave(100, 1, [0.0, 0.0], (0, 0.0), 1, false, false));
     let out = c.run(["check", "spec.yaml"]);
     out.failure(1);
@@ -158,7 +182,11 @@ fn check_positions_invariance_problems() {
   hint: add a wave, or compare groups within the data with `across: COLUMN` (for example a region column)
 ";
     assert!(out.stderr.contains(expected), "{}", out.stderr);
-    assert!(out.stderr.contains("`invariance.reference` names `autum`, which is not one of the waves"), "{}", out.stderr);
+    assert!(
+        out.stderr.contains("`invariance.reference` names `autum`, which is not one of the waves"),
+        "{}",
+        out.stderr
+    );
 
     let spec = SPEC.replace("invariance: {}", "invariance: {across: regoin}");
     let c = Case::new()

@@ -25,7 +25,8 @@ pub fn invariance_point(r: &Value, points: &mut Vec<Value>, cautions: &mut Vec<S
     let groups: Vec<String> = inv["groups"].as_array().into_iter().flatten().map(text).collect();
     let by_wave = inv["across"] == "wave";
     let label = if by_wave { "Across waves" } else { "Across groups" };
-    let who = if by_wave { list(&groups) } else { format!("the groups of `{}` ({})", text(&inv["across"]), list(&groups)) };
+    let who =
+        if by_wave { list(&groups) } else { format!("the groups of `{}` ({})", text(&inv["across"]), list(&groups)) };
     let freed: Vec<String> = inv["noninvariant"]
         .as_array()
         .into_iter()
@@ -46,14 +47,18 @@ pub fn invariance_point(r: &Value, points: &mut Vec<Value>, cautions: &mut Vec<S
                     if freed.len() == 1 { "is" } else { "are" }
                 )
             } else {
-                format!("the items measure the constructs alike in {who}: loadings and intercepts are equal (scalar invariance{p}), so construct means can be compared.")
+                format!(
+                    "the items measure the constructs alike in {who}: loadings and intercepts are equal (scalar invariance{p}), so construct means can be compared."
+                )
             }
         }
         "metric" => format!(
             "loadings are equal in {who}, but item intercepts differ beyond what freeing single items explains, so construct means are not compared{}.",
             if freed.is_empty() { String::new() } else { format!(" ({} differ)", list(&freed)) }
         ),
-        "configural" => format!("only the pattern of loadings is shared by {who}; loadings differ, so neither construct means nor relations are compared across them."),
+        "configural" => format!(
+            "only the pattern of loadings is shared by {who}; loadings differ, so neither construct means nor relations are compared across them."
+        ),
         _ => format!("the multi-group measurement model could not be fitted in {who}."),
     };
     let reference = text(&inv["reference"]);
@@ -78,7 +83,10 @@ pub fn invariance_point(r: &Value, points: &mut Vec<Value>, cautions: &mut Vec<S
         if moved.is_empty() {
             s.push_str(&format!(" No construct mean differs detectably from {reference}."));
         } else {
-            s.push_str(&format!(" Compared with {reference}: {}; the other means did not change detectably.", list(&moved)));
+            s.push_str(&format!(
+                " Compared with {reference}: {}; the other means did not change detectably.",
+                list(&moved)
+            ));
         }
     }
     let mut chars = s.chars();
@@ -102,13 +110,13 @@ mod tests {
     #[test]
     fn partial_scalar_with_a_changed_mean() {
         let r = json!({"invariance": {
-            "across": "wave", "groups": ["spring", "autumn"], "reference": "spring", "highest": "scalar",
-            "levels": [{"level": "configural"}, {"level": "metric", "diff": {"p": 0.4}}, {"level": "scalar", "partial": true, "diff": {"p": 0.21}}],
-            "noninvariant": [{"item": "pu2", "parameter": "intercept", "groups": ["autumn"]}],
-            "latent_means": [
-                {"construct": "trust", "group": "autumn", "diff": -0.31, "ci": [-0.45, -0.17]},
-                {"construct": "crowding", "group": "autumn", "diff": 0.05, "ci": [-0.1, 0.2]}
-            ]}});
+        "across": "wave", "groups": ["spring", "autumn"], "reference": "spring", "highest": "scalar",
+        "levels": [{"level": "configural"}, {"level": "metric", "diff": {"p": 0.4}}, {"level": "scalar", "partial": true, "diff": {"p": 0.21}}],
+        "noninvariant": [{"item": "pu2", "parameter": "intercept", "groups": ["autumn"]}],
+        "latent_means": [
+            {"construct": "trust", "group": "autumn", "diff": -0.31, "ci": [-0.45, -0.17]},
+            {"construct": "crowding", "group": "autumn", "diff": 0.05, "ci": [-0.1, 0.2]}
+        ]}});
         let (mut points, mut cautions) = (Vec::new(), Vec::new());
         invariance_point(&r, &mut points, &mut cautions);
         assert_eq!(points[0]["label"], "Across waves");
@@ -128,7 +136,12 @@ mod tests {
         let (mut points, mut cautions) = (Vec::new(), Vec::new());
         invariance_point(&r, &mut points, &mut cautions);
         assert_eq!(points[0]["label"], "Across groups");
-        assert!(points[0]["text"].as_str().unwrap().starts_with("Loadings are equal in the groups of `region` (east and west)"));
+        assert!(
+            points[0]["text"]
+                .as_str()
+                .unwrap()
+                .starts_with("Loadings are equal in the groups of `region` (east and west)")
+        );
         assert_eq!(cautions.len(), 1);
     }
 }

@@ -49,7 +49,14 @@ pub fn invariance_changes(ra: &Value, rb: &Value) -> Vec<String> {
             .as_array()
             .into_iter()
             .flatten()
-            .map(|n| format!("{} of {} ({})", s(&n["parameter"]), s(&n["item"]), n["groups"].as_array().into_iter().flatten().map(s).collect::<Vec<_>>().join(", ")))
+            .map(|n| {
+                format!(
+                    "{} of {} ({})",
+                    s(&n["parameter"]),
+                    s(&n["item"]),
+                    n["groups"].as_array().into_iter().flatten().map(s).collect::<Vec<_>>().join(", ")
+                )
+            })
             .collect()
     };
     if a.is_object() {
@@ -58,7 +65,12 @@ pub fn invariance_changes(ra: &Value, rb: &Value) -> Vec<String> {
         out.extend(fa.difference(&fb).map(|x| format!("no longer non-invariant: {x}")));
     }
     let means = |v: &Value| -> BTreeMap<(String, String), Value> {
-        v["latent_means"].as_array().into_iter().flatten().map(|m| ((s(&m["construct"]), s(&m["group"])), m.clone())).collect()
+        v["latent_means"]
+            .as_array()
+            .into_iter()
+            .flatten()
+            .map(|m| ((s(&m["construct"]), s(&m["group"])), m.clone()))
+            .collect()
     };
     let (ma, mb) = (means(a), means(b));
     for (k, mnew) in &mb {

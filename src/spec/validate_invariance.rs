@@ -50,7 +50,10 @@ pub fn check_invariance(spec: &Spec, sources: &[SourceColumns], out: &mut Vec<Fi
     let column = &inv.across;
     let at = format!("{BASE}.across");
     if spec.constructs.values().any(|c| c.items.contains(column)) {
-        out.push(Finding::value(SpecProblem::BadGroupColumn { column: column.clone(), what: "an item of a construct" }, at));
+        out.push(Finding::value(
+            SpecProblem::BadGroupColumn { column: column.clone(), what: "an item of a construct" },
+            at,
+        ));
         return;
     }
     if spec.data.id_column.as_ref() == Some(column) {

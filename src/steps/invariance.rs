@@ -15,11 +15,12 @@ use serde::{Deserialize, Serialize};
 use serde_json::{Value, json};
 use thiserror::Error;
 
+use super::group_structure::{self, GroupStructures};
 use super::load::ItemKind;
 use super::{Artifact, Inputs, Step, StepError, StepKind};
 use crate::data::read_labels;
 use crate::spec::SpecFile;
-use crate::spec::types::{ACROSS_WAVES, InvarianceSpec};
+use crate::spec::types::{ACROSS_WAVES, InvarianceSpec, Knowledge as KnowledgeSpec};
 use crate::spec::validate_invariance::MIN_GROUP_ROWS;
 use construe_stats::groups_continuous::{ContinuousEngine, ContinuousOptions, GroupMoments};
 use construe_stats::invariance::{GroupDesign, Ladder, LadderNote, LadderOptions, Level, ParamKind, run_ladder};
@@ -251,6 +252,8 @@ pub struct InvarianceOutput {
     pub means_from: Option<InvarianceLevel>,
     /// What the ladder had to say in words (why no means are compared, non-convergence).
     pub notes: Vec<String>,
+    /// The structure search run in each group and compared (when `structure` is in the spec).
+    pub structure_by_group: Option<GroupStructures>,
 }
 
 pub struct InvarianceStep {
@@ -262,6 +265,9 @@ pub struct InvarianceStep {
     waves: Vec<(String, PathBuf)>,
     id_column: Option<String>,
     missing_codes: Vec<f64>,
+    /// `structure.alpha` when the spec searches the structure (then also per group).
+    structure_alpha: Option<f64>,
+    knowledge: KnowledgeSpec,
 }
 
 impl InvarianceStep {
@@ -274,6 +280,8 @@ impl InvarianceStep {
             waves: s.data.waves.iter().map(|w| (w.id.clone(), file.resolve(&w.file))).collect(),
             id_column: s.data.id_column.clone(),
             missing_codes: s.data.missing_codes.clone(),
+            structure_alpha: s.analyses.structure.as_ref().map(|st| st.alpha),
+            knowledge: s.knowledge.clone(),
         }
     }
 
@@ -286,13 +294,17 @@ impl InvarianceStep {
     fn stacked_labels(&self, column: &str, rows: usize) -> Result<Vec<Option<String>>, StepError> {
         let mut out = Vec::with_capacity(rows);
         for (_, path) in &self.waves {
-            out.extend(read_labels(path, column)?.into_iter().map(|v| {
-                v.filter(|t| !t.parse::<f64>().is_ok_and(|x| self.missing_codes.contains(&x)))
-            }));
+            out.extend(
+                read_labels(path, column)?
+                    .into_iter()
+                    .map(|v| v.filter(|t| !t.parse::<f64>().is_ok_and(|x| self.missing_codes.contains(&x)))),
+            );
         }
         if out.len() != rows {
             let path = self.waves.first().map(|w| w.1.clone()).unwrap_or_default();
-            return Err(InvarianceError::RowMismatch { column: column.into(), path, found: out.len(), expected: rows }.into());
+            return Err(
+                InvarianceError::RowMismatch { column: column.into(), path, found: out.len(), expected: rows }.into()
+            );
         }
         Ok(out)
     }
@@ -326,6 +338,8 @@ impl Step for InvarianceStep {
             "partial": self.params.partial,
             "constructs": self.declared,
             "id_column": self.id_column,
+            "structure_alpha": self.structure_alpha,
+            "knowledge": self.knowledge,
         })
     }
 
@@ -355,7 +369,11 @@ impl Step for InvarianceStep {
         let mut left_out = Vec::new();
         for (name, items) in &self.declared {
             let items = kept.as_ref().and_then(|k| k.get(name).cloned()).unwrap_or_else(|| items.clone());
-            if items.len() >= 2 { constructs.insert(name.clone(), items) } else { left_out.push(name.clone()) };
+            if items.len() >= 2 {
+                constructs.insert(name.clone(), items);
+            } else {
+                left_out.push(name.clone());
+            }
         }
         if constructs.is_empty() {
             return Err(InvarianceError::NoConstructs.into());
@@ -425,7 +443,7 @@ impl Step for InvarianceStep {
         }
         let stats = |context: &str| {
             let context = context.to_string();
-            move |source| StepError::Stats { context: context.clone(), source }
+            move |source: construe_stats::StatsError| StepError::Stats { context: context.clone(), source }
         };
         let moments: Vec<GroupMoments> = per_group
             .iter()
@@ -451,14 +469,32 @@ impl Step for InvarianceStep {
             ..LadderOptions::default()
         };
         let ladder = run_ladder(&engine, &options).map_err(stats("the invariance ladder"))?;
-        Ok(Artifact::Invariance(Box::new(summarise(
+        // Per-group structure from the highest rung that holds (latent correlations are free
+        // per group on every rung).
+        let structure_by_group = match (self.structure_alpha, ladder.levels.iter().rev().find(|l| l.holds)) {
+            (Some(alpha), Some(rung)) if ladder.design.constructs.len() >= 2 => {
+                let covs: Vec<_> = (0..groups.len()).map(|g| engine.latent_covariance(&rung.fit, g)).collect();
+                Some(group_structure::compare(
+                    &ladder.design.constructs,
+                    &groups,
+                    &covs,
+                    &ladder.design.n,
+                    &self.knowledge,
+                    alpha,
+                )?)
+            }
+            _ => None,
+        };
+        let mut out = summarise(
             &ladder,
             &self.params.across,
             constructs,
             left_out,
             rows - used,
             "maximum likelihood with a mean structure, per group (complete rows)",
-        ))))
+        );
+        out.structure_by_group = structure_by_group;
+        Ok(Artifact::Invariance(Box::new(out)))
     }
 
     fn describe(&self, artifact: &Artifact) -> String {
@@ -516,7 +552,8 @@ fn summarise(
     estimator: &str,
 ) -> InvarianceOutput {
     let d = &ladder.design;
-    let diff = |t: &construe_stats::invariance::DiffTest| DiffRecord { chisq: t.chisq, df: t.df, p: t.p, scaled: t.scaled };
+    let diff =
+        |t: &construe_stats::invariance::DiffTest| DiffRecord { chisq: t.chisq, df: t.df, p: t.p, scaled: t.scaled };
     let levels = ladder
         .levels
         .iter()
@@ -617,6 +654,7 @@ fn summarise(
         latent_means,
         means_from: ladder.means_from.map(Into::into),
         notes,
+        structure_by_group: None,
     }
 }
 
@@ -639,7 +677,8 @@ mod tests {
 
     #[test]
     fn numeric_labels_sort_as_numbers() {
-        let labels: Vec<Option<String>> = ["10", "9", "2", "9"].iter().map(|s| Some((*s).to_string())).chain([None]).collect();
+        let labels: Vec<Option<String>> =
+            ["10", "9", "2", "9"].iter().map(|s| Some((*s).to_string())).chain([None]).collect();
         assert_eq!(sorted_levels(&labels), ["2", "9", "10"]);
         let labels: Vec<Option<String>> = ["north", "east"].iter().map(|s| Some((*s).to_string())).collect();
         assert_eq!(sorted_levels(&labels), ["east", "north"]);

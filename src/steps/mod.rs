@@ -6,6 +6,7 @@
 pub mod constructs;
 pub mod covariance;
 pub mod discover;
+pub mod group_structure;
 pub mod invariance;
 pub mod load;
 pub mod measure;
