@@ -176,8 +176,8 @@ fn check_positions_invariance_problems() {
     let out = c.run(["check", "spec.yaml"]);
     out.failure(1);
     let expected = "error: `invariance` across waves needs at least two waves; the spec has 1
-  at spec.yaml:13:3
-  13 |   invariance: {reference: autum}
+  at spec.yaml:12:3
+  12 |   invariance: {reference: autum}
      |   ^^^^^^^^^^
   hint: add a wave, or compare groups within the data with `across: COLUMN` (for example a region column)
 ";
