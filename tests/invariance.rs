@@ -196,7 +196,7 @@ fn check_positions_invariance_problems() {
     let out = c.run(["check", "spec.yaml"]);
     out.failure(1)
         .stderr_contains("wave `spring` has no column `regoin`")
-        .stderr_contains("at spec.yaml:13:27")
+        .stderr_contains("at spec.yaml:13:24")
         .stderr_contains("did you mean `region`?");
 }
 
