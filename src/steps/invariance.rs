@@ -424,8 +424,8 @@ impl Step for InvarianceStep {
         }
         let mut per_group: Vec<Vec<Vec<f64>>> = vec![vec![Vec::new(); items.len()]; groups.len()];
         let mut used = 0;
-        for r in 0..rows {
-            let Some(g) = group_of_row[r] else { continue };
+        for (r, group) in group_of_row.iter().enumerate() {
+            let Some(g) = *group else { continue };
             if cols.iter().any(|c| c.is_missing(r)) {
                 continue;
             }

@@ -209,7 +209,7 @@ impl ContinuousEngine {
     /// The value of a fixed unpacked entry: Phi diagonal 1, everything else (kappa) 0.
     fn fixed_value(&self, local: usize) -> f64 {
         let d = self.dims();
-        (0..d.m).any(|k| d.phi(k, k) == local).then_some(1.0).unwrap_or(0.0)
+        if (0..d.m).any(|k| d.phi(k, k) == local) { 1.0 } else { 0.0 }
     }
 
     fn unpack(&self, layout: &Layout, theta: &[f64]) -> Vec<f64> {

@@ -132,8 +132,8 @@ fn size(reps: usize, seed0: u64) -> ([usize; 3], usize) {
     let mut any_flag = 0;
     for r in 0..reps {
         let o = replicate(seed0 + r as u64, false);
-        for k in 0..3 {
-            rejected[k] += usize::from(o.rejected[k]);
+        for (count, hit) in rejected.iter_mut().zip(o.rejected) {
+            *count += usize::from(hit);
         }
         any_flag += usize::from(!o.flagged.is_empty());
     }
