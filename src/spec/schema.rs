@@ -127,7 +127,7 @@ analyses:
   structure: {alpha: 0.05, test: wald}
   sensitivity: {reliability: {f: [0.5]}, prior: {f: {beta: [7, 3]}}, draws: 10, alpha: [0.01], seed: 3}
   resample: {replicates: 10, seed: 11}
-  invariance: {across: wave, reference: a, alpha: 0.05, strict: false, partial: true}
+  invariance: {across: wave, reference: a, alpha: 0.1, strict: false, partial: true}
 report: {formats: [html, markdown], dir: reports, truth_model: model.yaml}
 "#;
 
