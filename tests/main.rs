@@ -15,6 +15,7 @@ mod faults;
 mod guard;
 mod impurities;
 mod inputs;
+mod invariance;
 mod missing;
 mod power;
 mod reference;

@@ -168,6 +168,8 @@ fn data_findings(spec: &SpecFile, sources: &[SourceColumns]) -> Vec<Finding> {
             }
         }
     }
+    let wave_rows: Vec<(String, usize)> = rows_by_wave.iter().map(|(w, r, _)| (w.clone(), *r)).collect();
+    crate::spec::validate_invariance::check_group_rows(&spec.spec, &wave_rows, &mut out);
     let listed_ordinal = |item: &str| match &data.ordinal {
         OrdinalSpec::Items(list) => list.iter().position(|i| i == item),
         _ => None,

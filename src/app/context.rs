@@ -97,6 +97,8 @@ pub fn report_context(spec: &SpecFile, execution: &Execution, results: &Value) -
         "sensitivity_plots": sensitivity_plots(spec, execution),
         "sensitivity_tables": sensitivity_tables(spec, results),
         "steps": steps,
+        "invariance": results.get("invariance"),
+        "invariance_plot": results.get("invariance").and_then(crate::report::means_plot::from_results),
     })
 }
 

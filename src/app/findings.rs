@@ -46,6 +46,7 @@ pub fn findings(results: &Value) -> Value {
     points.extend(super::pag_view::finding(&results["structure"]));
     sensitivity_point(results, &mut points, &mut cautions);
     purify_cautions(results, &mut cautions);
+    super::findings_invariance::invariance_point(results, &mut points, &mut cautions);
     data_cautions(results, &mut cautions);
     json!({"points": points, "kept": kept, "cautions": cautions})
 }

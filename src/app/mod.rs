@@ -6,6 +6,7 @@ pub mod check;
 pub mod context;
 pub mod diff;
 pub mod findings;
+pub mod findings_invariance;
 pub mod lints;
 pub mod pag_view;
 pub mod plan;

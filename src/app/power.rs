@@ -453,7 +453,8 @@ fn setup(req: &PowerRequest<'_>, warnings: &mut Vec<String>) -> Result<(Study, S
     let chain: Vec<Box<dyn Step>> = build_steps(&spec)
         .into_iter()
         .filter(|s| match s.kind() {
-            StepKind::Load => false,
+            // A drawn replicate is one wave with no grouping or id column to compare.
+            StepKind::Load | StepKind::Invariance => false,
             StepKind::Resample => req.with_resampling,
             StepKind::Sensitivity => req.with_sensitivity,
             _ => true,

@@ -129,6 +129,39 @@ pub fn columns(path: &Path, wanted: &[String]) -> Result<Vec<Column>, DataError>
     Ok(columns.into_iter().map(ColumnBuilder::finish).collect())
 }
 
+/// One column as text labels, trimmed; empty cells and `NA` are `None` (see `super::read_labels`).
+pub fn labels(path: &Path, column: &str) -> Result<Vec<Option<String>>, DataError> {
+    let mut reader = open(path)?;
+    let names = names(path, &mut reader)?;
+    let j = names
+        .iter()
+        .position(|n| n == column)
+        .ok_or_else(|| DataError::MissingColumn { path: path.to_path_buf(), column: column.to_string() })?;
+    let mut out = Vec::new();
+    let mut record = csv::ByteRecord::new();
+    while reader.read_byte_record(&mut record).map_err(|e| csv_error(path, e))? {
+        let row = out.len() + 1;
+        let line = record.position().map_or(0, |p| p.line() as usize);
+        if record.len() != names.len() {
+            return Err(DataError::FieldCount {
+                path: path.to_path_buf(),
+                row,
+                line,
+                found: record.len(),
+                expected: names.len(),
+            });
+        }
+        let text = std::str::from_utf8(&record[j])
+            .map_err(|_| DataError::NotUtf8 { path: path.to_path_buf(), row, line, column: column.to_string() })?
+            .trim();
+        out.push((!text.is_empty() && text != "NA").then(|| text.to_string()));
+    }
+    if out.is_empty() {
+        return Err(DataError::NoDataRows { path: path.to_path_buf() });
+    }
+    Ok(out)
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

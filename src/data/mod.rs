@@ -143,6 +143,39 @@ pub fn read_numeric_columns(path: &Path, wanted: &[String]) -> Result<Vec<Vec<f6
     })
 }
 
+/// One column of a data file as text labels (a grouping column, an id column), in row order;
+/// empty cells, `NA` and nulls are `None`. Numbers are written as Parquet casts them to text
+/// (`1`, `2.5`), CSV cells as they stand, trimmed.
+pub fn read_labels(path: &Path, column: &str) -> Result<Vec<Option<String>>, DataError> {
+    guarded(path, || match FileKind::of(path) {
+        Some(FileKind::Csv) => csv_file::labels(path, column),
+        Some(FileKind::Parquet) => {
+            let file = open_data(path)?;
+            parquet_footer::check_footer(path).map_err(|e| read_error(path, e))?;
+            let schema = ParquetReader::new(file).schema().map_err(|e| read_error(path, e))?;
+            if !schema.iter_names().any(|n| n.as_str() == column) {
+                return Err(DataError::MissingColumn { path: path.to_path_buf(), column: column.to_string() });
+            }
+            let df = ParquetReader::new(open_data(path)?)
+                .with_columns(Some(vec![column.to_string()]))
+                .finish()
+                .map_err(|e| read_error(path, e))?;
+            let series = df
+                .column(column)
+                .map_err(|_| DataError::MissingColumn { path: path.to_path_buf(), column: column.to_string() })?
+                .as_materialized_series()
+                .cast(&DataType::String)
+                .map_err(|e| read_error(path, e))?;
+            let text = series.str().map_err(|e| read_error(path, e))?;
+            Ok(text
+                .iter()
+                .map(|v| v.map(str::trim).filter(|t| !t.is_empty() && *t != "NA").map(str::to_string))
+                .collect())
+        }
+        None => Err(DataError::Unsupported { path: path.to_path_buf() }),
+    })
+}
+
 /// One file's requested columns in compact form, in the order asked. CSV is built compact row by
 /// row; Parquet columns are read as numbers and compacted one at a time.
 pub fn read_columns(path: &Path, wanted: &[String]) -> Result<Vec<Column>, DataError> {

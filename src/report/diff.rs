@@ -59,6 +59,7 @@ pub fn diff(ra: &Value, ma: &Value, rb: &Value, mb: &Value) -> Changes {
         Section { title: "Clusters".into(), lines: clusters(ra, rb) },
         Section { title: "Edges among constructs".into(), lines: edges(ra, rb) },
         Section { title: "Estimates and fit".into(), lines: estimates(ra, rb) },
+        Section { title: "Invariance across groups".into(), lines: super::diff_invariance::invariance_changes(ra, rb) },
     ];
     Changes { sections }
 }

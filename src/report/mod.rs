@@ -7,6 +7,8 @@
 
 pub mod diagram;
 pub mod diff;
+pub mod diff_invariance;
+pub mod means_plot;
 pub mod power;
 pub mod results;
 pub mod svg;

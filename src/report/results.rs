@@ -11,8 +11,8 @@ use serde_json::Value;
 
 use crate::steps::load::DataSummary;
 use crate::steps::{
-    Artifact, CovarianceOutput, DiscoverOutput, MeasureOutput, PurifyOutput, ResampleOutput, SensitivityOutput,
-    StepKind, StructureOutput,
+    Artifact, CovarianceOutput, DiscoverOutput, InvarianceOutput, MeasureOutput, PurifyOutput, ResampleOutput,
+    SensitivityOutput, StepKind, StructureOutput,
 };
 
 /// The version of results.json's shape, `major.minor`. The minor number grows when fields are
@@ -61,6 +61,11 @@ pub struct Results<'a> {
     #[serde(skip_serializing_if = "Option::is_none")]
     #[schemars(with = "ResampleOutput")]
     pub resample: Option<&'a ResampleOutput>,
+    /// Measurement invariance across waves or groups: the ladder's rungs and verdicts, the
+    /// parameters that differ, and the constructs' means relative to the reference group.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    #[schemars(with = "InvarianceOutput")]
+    pub invariance: Option<&'a InvarianceOutput>,
 }
 
 /// `data` is optional in the type only because `of` takes whatever artifacts it is given; every
@@ -84,6 +89,7 @@ impl<'a> Results<'a> {
             structure: None,
             sensitivity: None,
             resample: None,
+            invariance: None,
         };
         for artifact in artifacts.values() {
             match artifact {
@@ -95,6 +101,7 @@ impl<'a> Results<'a> {
                 Artifact::Structure(a) => r.structure = Some(a.as_ref()),
                 Artifact::Sensitivity(a) => r.sensitivity = Some(a.as_ref()),
                 Artifact::Resample(a) => r.resample = Some(a.as_ref()),
+                Artifact::Invariance(a) => r.invariance = Some(a.as_ref()),
             }
         }
         r

@@ -9,6 +9,7 @@ pub mod problem;
 pub mod schema;
 pub mod types;
 pub mod validate;
+pub mod validate_invariance;
 
 use std::path::{Path, PathBuf};
 

@@ -162,6 +162,17 @@ pub enum SpecProblem {
     MethodFactorCoversConstruct { factor: String, construct: String },
     #[error("`sensitivity` refits the structural model, but `structure.search: fci` fits none")]
     SensitivityWithoutModel,
+    #[error("`invariance` across waves needs at least two waves; the spec has {waves}")]
+    InvarianceOneGroup { waves: usize },
+    #[error("`invariance.reference` names `{reference}`, which is not one of the waves")]
+    UnknownReferenceGroup { reference: String, suggestion: Option<String> },
+    #[error("`invariance.across` names `{column}`, which is {what}")]
+    BadGroupColumn { column: String, what: &'static str },
+    #[error(
+        "wave `{group}` has {}; `invariance` needs at least {min} per group",
+        crate::spec::diagnostic::plural(*rows, "row")
+    )]
+    InvarianceSmallGroup { group: String, rows: usize, min: usize },
 }
 
 impl SpecProblem {
@@ -220,6 +231,14 @@ impl SpecProblem {
             ),
             DataNeverTogether { .. } => Some(
                 "with a planned-missing design, make sure every pair of items is asked of some respondents together; otherwise drop one of the two".into(),
+            ),
+            InvarianceOneGroup { .. } => Some(
+                "add a wave, or compare groups within the data with `across: COLUMN` (for example a region column)".into(),
+            ),
+            UnknownReferenceGroup { suggestion, .. } => suggestion.clone(),
+            BadGroupColumn { .. } => Some("name a column that sorts respondents into groups, such as region or age band".into()),
+            InvarianceSmallGroup { .. } => Some(
+                "a multi-group model needs a stable covariance matrix per group; merge small groups or drop the analysis".into(),
             ),
             ItemInTwoConstructs { .. } => {
                 Some("an item can indicate only one declared construct; purification looks for cross-loadings".into())

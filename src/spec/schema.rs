@@ -12,7 +12,8 @@ const WAVE: &[&str] = &["id", "file"];
 const MATRIX: &[&str] = &["file", "kind", "n"];
 const CONSTRUCT: &[&str] = &["items", "reliability", "facets"];
 const KNOWLEDGE: &[&str] = &["tiers", "forbid", "require"];
-pub const ANALYSES: &[&str] = &["covariance", "purify", "discover", "measure", "structure", "sensitivity", "resample"];
+pub const ANALYSES: &[&str] =
+    &["covariance", "purify", "discover", "measure", "structure", "sensitivity", "resample", "invariance"];
 const COVARIANCE: &[&str] = &["missing", "ordinal"];
 const PURIFY: &[&str] = &["test", "alpha", "min_items", "tolerance"];
 const DISCOVER: &[&str] = &["items", "alpha", "test", "tolerance"];
@@ -22,6 +23,7 @@ const STRUCTURE: &[&str] = &["alpha", "test", "search"];
 const SENSITIVITY: &[&str] = &["reliability", "prior", "draws", "alpha", "seed"];
 const PRIOR: &[&str] = &["beta"];
 const RESAMPLE: &[&str] = &["replicates", "seed"];
+const INVARIANCE: &[&str] = &["across", "reference", "alpha", "strict", "partial"];
 const REPORT: &[&str] = &["formats", "dir", "truth_model"];
 const IMPURITIES: &[&str] = &["correlated_errors", "cross_loadings", "method_factors"];
 const CROSS_LOADING: &[&str] = &["item", "also"];
@@ -66,6 +68,7 @@ fn allowed(path: &str) -> Allowed {
         ["analyses", "sensitivity", "reliability" | "prior"] => Any,
         ["analyses", "sensitivity", "prior", _] => Only(PRIOR),
         ["analyses", "resample"] => Only(RESAMPLE),
+        ["analyses", "invariance"] => Only(INVARIANCE),
         ["report"] => Only(REPORT),
         ["impurities"] => Only(IMPURITIES),
         ["impurities", "cross_loadings[]"] => Only(CROSS_LOADING),
@@ -130,6 +133,7 @@ analyses:
   structure: {alpha: 0.05, test: wald}
   sensitivity: {reliability: {f: [0.5]}, prior: {f: {beta: [7, 3]}}, draws: 10, alpha: [0.01], seed: 3}
   resample: {replicates: 10, seed: 11}
+  invariance: {across: wave, reference: a, alpha: 0.1, strict: false, partial: true}
 report: {formats: [html, markdown], dir: reports, truth_model: model.yaml}
 impurities:
   correlated_errors: [[x1, x2]]

@@ -247,6 +247,10 @@ pub struct Analyses {
     /// Bootstrap of the whole analysis (needs respondent rows).
     #[serde(default)]
     pub resample: Option<ResampleSpec>,
+    /// Measurement invariance across waves or groups, and the change in the constructs'
+    /// means (needs respondent rows).
+    #[serde(default)]
+    pub invariance: Option<InvarianceSpec>,
 }
 
 /// How the item correlation matrix is estimated.
@@ -787,5 +791,60 @@ impl JsonSchema for DiscoverTolerance {
 
     fn json_schema(_: &mut SchemaGenerator) -> Schema {
         json_schema!({"type": "number", "minimum": 0.0, "maximum": MAX_TOLERANCE, "default": construe_stats::cluster::DEFAULT_TOLERANCE})
+    }
+}
+
+/// `across: wave`: the spec's waves are the groups.
+pub const ACROSS_WAVES: &str = "wave";
+
+fn default_across() -> String {
+    ACROSS_WAVES.to_string()
+}
+
+fn default_invariance_alpha() -> f64 {
+    0.05
+}
+
+fn default_true() -> bool {
+    true
+}
+
+/// Do the items measure the same constructs in every group (configural, equal loadings,
+/// equal intercepts or thresholds, optionally equal residual variances), and how do the
+/// constructs' means and variances differ between groups?
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq, JsonSchema)]
+#[serde(deny_unknown_fields)]
+pub struct InvarianceSpec {
+    /// What makes the groups: `wave` (the default: each wave of `data.waves` is a group) or
+    /// the name of a data column whose distinct values are the groups (for example `region`).
+    #[serde(default = "default_across")]
+    pub across: String,
+    /// The group the others are compared with (its construct means are 0 and variances 1): a
+    /// wave id or a value of the `across` column. Default: the first wave, or the column's
+    /// first value in sorted order.
+    #[serde(default)]
+    pub reference: Option<String>,
+    /// Significance level of each rung's chi-square difference test and of the score tests
+    /// that free constraints, in (0, 1).
+    #[serde(default = "default_invariance_alpha")]
+    #[schemars(with = "Alpha")]
+    pub alpha: f64,
+    /// Also test equal residual variances (strict invariance).
+    #[serde(default)]
+    pub strict: bool,
+    /// When a rung fails, free the constraints responsible one at a time (partial invariance).
+    #[serde(default = "default_true")]
+    pub partial: bool,
+}
+
+impl Default for InvarianceSpec {
+    fn default() -> Self {
+        InvarianceSpec {
+            across: default_across(),
+            reference: None,
+            alpha: default_invariance_alpha(),
+            strict: false,
+            partial: true,
+        }
     }
 }

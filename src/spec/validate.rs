@@ -70,6 +70,7 @@ pub fn validate(spec: &Spec, sources: &[SourceColumns]) -> Vec<Finding> {
     check_knowledge(spec, &mut out);
     check_analyses(spec, available.as_ref(), &mut out);
     check_impurities(spec, &mut out);
+    super::validate_invariance::check_invariance(spec, sources, &mut out);
     // `report.truth_model` is read, parsed and checked once, by `SpecFile::parse` (its problems
     // arrive in `SpecFile::early`).
     if spec.report.formats.is_empty() {

@@ -7,6 +7,8 @@ pub mod constructs;
 pub mod covariance;
 pub mod discover;
 pub mod impurities;
+pub mod group_structure;
+pub mod invariance;
 pub mod load;
 pub mod measure;
 pub mod missing_data;
@@ -32,6 +34,7 @@ use construe_stats::StatsError;
 
 pub use covariance::{CovarianceOutput, CovarianceStep};
 pub use discover::{DiscoverOutput, DiscoverStep};
+pub use invariance::{InvarianceOutput, InvarianceStep};
 pub use load::{LoadOutput, LoadStep};
 pub use measure::{MeasureOutput, MeasureStep};
 pub use purify::{PurifyOutput, PurifyStep};
@@ -51,6 +54,7 @@ pub enum StepKind {
     Structure,
     Sensitivity,
     Resample,
+    Invariance,
 }
 
 impl StepKind {
@@ -64,6 +68,7 @@ impl StepKind {
             StepKind::Structure => "structure",
             StepKind::Sensitivity => "sensitivity",
             StepKind::Resample => "resample",
+            StepKind::Invariance => "invariance",
         }
     }
 }
@@ -105,6 +110,9 @@ pub enum StepError {
         .items.join(", ")
     )]
     NormalTheoryOnOrdinal { step: StepKind, items: Vec<String> },
+    /// The groups of `invariance` cannot be compared (too few, too small, shared respondents).
+    #[error(transparent)]
+    Invariance(#[from] invariance::InvarianceError),
 }
 
 impl StepError {
@@ -118,6 +126,7 @@ impl StepError {
                 | StepError::EstimationUnavailable { .. }
                 | StepError::NormalTheoryOnOrdinal { .. }
                 | StepError::SamplingUnavailable { .. }
+                | StepError::Invariance(_)
         )
     }
 }
@@ -133,6 +142,7 @@ pub enum Artifact {
     Structure(Box<StructureOutput>),
     Resample(Box<ResampleOutput>),
     Sensitivity(Box<SensitivityOutput>),
+    Invariance(Box<InvarianceOutput>),
 }
 
 /// The artifacts' byte encoding: postcard (serde, compact, little-endian). Every `f64` is
@@ -170,6 +180,7 @@ impl Artifact {
             Artifact::Structure(a) => write_exact(out, a.as_ref()),
             Artifact::Resample(a) => write_exact(out, a.as_ref()),
             Artifact::Sensitivity(a) => write_exact(out, a.as_ref()),
+            Artifact::Invariance(a) => write_exact(out, a.as_ref()),
         }
     }
 
@@ -184,6 +195,7 @@ impl Artifact {
             StepKind::Structure => read_exact(bytes).map(|a| Artifact::Structure(Box::new(a))),
             StepKind::Resample => read_exact(bytes).map(|a| Artifact::Resample(Box::new(a))),
             StepKind::Sensitivity => read_exact(bytes).map(|a| Artifact::Sensitivity(Box::new(a))),
+            StepKind::Invariance => read_exact(bytes).map(|a| Artifact::Invariance(Box::new(a))),
         }
     }
 }
@@ -267,6 +279,9 @@ pub fn build_steps(spec: &SpecFile) -> Vec<Box<dyn Step>> {
     }
     if let Some(r) = &spec.spec.analyses.resample {
         steps.push(Box::new(ResampleStep::new(r, analysis_steps(spec))));
+    }
+    if let Some(inv) = &spec.spec.analyses.invariance {
+        steps.push(Box::new(InvarianceStep::from_spec(spec, inv)));
     }
     steps
 }

@@ -10,6 +10,7 @@ pub mod disclosure;
 pub mod error;
 pub mod fdr;
 pub mod groups_ordinal;
+pub mod groups_continuous;
 pub mod impute;
 pub mod invariance;
 pub mod missing;
