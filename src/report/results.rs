@@ -17,7 +17,7 @@ use crate::steps::{
 
 /// The version of results.json's shape, `major.minor`. The minor number grows when fields are
 /// added; the major number only when a field is renamed, removed or changes its type.
-pub const RESULTS_FORMAT: &str = "1.1";
+pub const RESULTS_FORMAT: &str = "1.2";
 
 /// The results of one construe report version: aggregates only, no respondent's answers. One
 /// key per analysis that ran (`data` is the load step's summary).

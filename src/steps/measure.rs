@@ -24,7 +24,9 @@ use construe_stats::sem::{FitIndices, Matrix, ParameterKind, SemFit};
 /// Bump when the fit changes for the same covariances, purification and parameters.
 /// v3: estimation chosen from the item types (DWLS / sandwich SEs, corrected statistics);
 /// reads `load` for the moments' sampling covariance; `estimation` record added.
-pub const VERSION: u32 = 3;
+/// v4: `warnings` (constructs not distinct: latent correlation above 0.9 or HTMT above 0.90;
+/// correlations beyond ±1).
+pub const VERSION: u32 = 4;
 
 /// A parameter estimate.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
@@ -125,6 +127,9 @@ pub struct MeasureOutput {
     pub estimation: EstimationRecord,
     /// The declared (unpurified) model's fit, when purification dropped items.
     pub unpurified: Option<UnpurifiedFit>,
+    /// Implausible estimates: latent correlations beyond ±1, constructs that may not be distinct
+    /// (correlation above 0.9, or heterotrait-monotrait ratio above 0.90).
+    pub warnings: Vec<super::structure_checks::StructureWarning>,
 }
 
 /// The fit of the declared model before purification.
@@ -152,6 +157,8 @@ pub struct MeasureStep {
     purified: bool,
     /// The moments' sampling covariance shared by sensitivity's refits (never in the key).
     shared: Option<Arc<SharedAcov>>,
+    /// An item left out of its construct (sensitivity's leave-one-out refits).
+    left_out: Option<String>,
 }
 
 impl MeasureStep {
@@ -162,7 +169,13 @@ impl MeasureStep {
             .iter()
             .map(|(n, c)| ConstructModel { name: n.clone(), items: c.items.clone(), reliability: c.reliability })
             .collect();
-        MeasureStep { params: params.clone(), declared, purified: file.spec.analyses.purify.is_some(), shared: None }
+        MeasureStep {
+            params: params.clone(),
+            declared,
+            purified: file.spec.analyses.purify.is_some(),
+            shared: None,
+            left_out: None,
+        }
     }
 }
 
@@ -174,6 +187,11 @@ impl MeasureStep {
             c.reliability = Some(reliability);
         }
         step
+    }
+
+    /// The same step with `item` left out of its construct (sensitivity's leave-one-out refits).
+    pub fn without_item(&self, item: &str) -> MeasureStep {
+        MeasureStep { left_out: Some(item.to_string()), ..self.clone() }
     }
 
     /// The same step drawing the moments' sampling covariance from `shared` (refits over the
@@ -192,7 +210,9 @@ impl MeasureStep {
         self.declared
             .iter()
             .map(|c| {
-                let items = kept.as_ref().and_then(|k| k.get(&c.name).cloned()).unwrap_or_else(|| c.items.clone());
+                let mut items =
+                    kept.as_ref().and_then(|k| k.get(&c.name).cloned()).unwrap_or_else(|| c.items.clone());
+                items.retain(|i| Some(i) != self.left_out.as_ref());
                 (c.name.clone(), items, c.reliability)
             })
             .collect()
@@ -209,7 +229,11 @@ impl Step for MeasureStep {
     }
 
     fn params(&self) -> Value {
-        json!({"identification": self.params.identification, "estimation": self.params.estimation, "constructs": self.declared})
+        let mut params = json!({"identification": self.params.identification, "estimation": self.params.estimation, "constructs": self.declared});
+        if let Some(item) = &self.left_out {
+            params["left_out"] = json!(item);
+        }
+        params
     }
 
     fn inputs(&self) -> Vec<StepKind> {
@@ -240,7 +264,7 @@ impl Step for MeasureStep {
             None
         };
         let estimation = EstimationRecord::new("measurement model", &input.plan, &pair_methods(cov), n, correction);
-        Ok(Artifact::Measure(Box::new(summarise(
+        let mut out = summarise(
             &fit,
             &constructs,
             &observed,
@@ -250,7 +274,9 @@ impl Step for MeasureStep {
             self.params.identification,
             unpurified,
             estimation,
-        ))))
+        );
+        out.warnings = super::structure_checks::measure_warnings(&out, &input.correlation, &cov.items);
+        Ok(Artifact::Measure(Box::new(out)))
     }
 
     fn describe(&self, artifact: &Artifact) -> String {
@@ -349,5 +375,6 @@ pub fn summarise(
         heywood,
         estimation,
         unpurified,
+        warnings: Vec::new(),
     }
 }

@@ -15,6 +15,7 @@ pub mod sampling;
 pub mod sensitivity;
 pub mod stats_schema;
 pub mod structure;
+pub mod structure_checks;
 pub mod tetrads;
 
 use std::collections::BTreeMap;

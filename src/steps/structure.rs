@@ -10,14 +10,16 @@ use serde_json::{Value, json};
 
 use std::sync::Arc;
 
-use super::constructs::{EstimationRecord, ModelInput, Plan, SharedAcov, fit_constructs, pair_methods};
+use super::constructs::{EstimationRecord, Latents, ModelInput, Plan, SharedAcov, fit_latents, pair_methods};
+use super::structure_checks::{
+    ClaimsTest, ConflictRecord, StructureWarning, claims_test, collider_rule, conflict_records, fit_warnings,
+};
 use super::{Artifact, Inputs, Step, StepError, StepKind};
 use crate::spec::SpecFile;
-use crate::spec::types::{CiTest as CiTestKind, Knowledge as KnowledgeSpec, StructureSpec};
+use crate::spec::types::{CiTest as CiTestKind, Colliders, Knowledge as KnowledgeSpec, StructureSpec};
 use construe_stats::bvn::Z_975;
 use construe_stats::search::{
-    CiTest, ColliderRule, EdgeKind, FisherZ, Knowledge, KnowledgeError, PcOptions, Reason, WaldPartial, enumerate_dags,
-    pc,
+    CiTest, EdgeKind, FisherZ, Knowledge, KnowledgeError, PcOptions, Reason, WaldPartial, enumerate_dags, pc,
 };
 use construe_stats::sem::{FitIndices, Matrix, ParameterKind};
 
@@ -25,7 +27,10 @@ use construe_stats::sem::{FitIndices, Matrix, ParameterKind};
 /// v3: edge kinds stored as `EdgeKind` (the artifact's bytes changed; results.json did not).
 /// v4: the measurement model's estimator (DWLS / sandwich SEs) for the structural fits; the
 /// Wald tests read measure's robust latent covariance; `estimation` record added.
-pub const VERSION: u32 = 4;
+/// v5: each member is fitted as exactly its DAG (no free covariance between constructs the
+/// graph separates, exogenous ones included); the claims test, conflicts, warnings and the
+/// collider rule (default conservative) added.
+pub const VERSION: u32 = 5;
 
 /// Class members fitted at most (the rest are counted, not fitted).
 const MAX_MEMBERS: usize = 8;
@@ -90,6 +95,10 @@ pub struct MemberFit {
     pub effects: Vec<EffectRecord>,
     /// Construct -> variance explained.
     pub r_squared: IndexMap<String, f64>,
+    /// This member against the measurement model: the joint test of the graph's independences.
+    pub claims_test: Option<ClaimsTest>,
+    /// Implausible estimates of this member's fit.
+    pub warnings: Vec<StructureWarning>,
 }
 
 /// The structure among the constructs: PC search, then a structural model of each member of the class.
@@ -122,6 +131,17 @@ pub struct StructureOutput {
     pub class_complete: bool,
     /// How the structural models were estimated (`None` when the class had no member).
     pub estimation: Option<EstimationRecord>,
+    /// How unshielded triples were judged colliders.
+    pub colliders: Colliders,
+    /// Unshielded triples whose marks conflict (the tests contradict each other or the knowledge).
+    pub conflicts: Vec<ConflictRecord>,
+    /// The first member against the measurement model (all constructs correlated): the
+    /// chi-square difference on one df per non-adjacent pair, the joint test of every
+    /// independence the search claims.
+    pub claims_test: Option<ClaimsTest>,
+    /// Implausible estimates of the first member's fit (standardized effects beyond ±1, R²
+    /// outside 0 to 1, negative variances).
+    pub warnings: Vec<StructureWarning>,
 }
 
 #[derive(Clone)]
@@ -211,7 +231,7 @@ impl Step for StructureStep {
     }
 
     fn params(&self) -> Value {
-        json!({"alpha": self.params.alpha, "test": self.params.test, "knowledge": self.knowledge, "reliabilities": self.reliabilities})
+        json!({"alpha": self.params.alpha, "test": self.params.test, "colliders": self.params.colliders, "knowledge": self.knowledge, "reliabilities": self.reliabilities})
     }
 
     fn inputs(&self) -> Vec<StepKind> {
@@ -231,8 +251,10 @@ impl Step for StructureStep {
             CiTestKind::Fisher => Box::new(FisherZ::new(c, measure.n as f64).map_err(err("the Fisher-z tests"))?),
         };
         let knowledge = self.knowledge(&names)?;
-        let options = PcOptions { alpha: self.params.alpha, max_cond: None, colliders: ColliderRule::Standard };
+        let colliders = collider_rule(self.params.colliders);
+        let options = PcOptions { alpha: self.params.alpha, max_cond: None, colliders };
         let result = pc(test.as_ref(), &knowledge, &options).map_err(err("the PC search"))?;
+        let conflicts = conflict_records(&result, &names);
         let edges = result
             .edges
             .iter()
@@ -269,11 +291,15 @@ impl Step for StructureStep {
         let input = ModelInput::with_plan(inputs.load()?, cov, plan, &items, self.shared.as_deref())?;
         let mut estimation = None;
         let mut members = Vec::new();
+        // The measurement model, refitted with this step's reliabilities: what the claims test compares with.
+        let (measurement, _, measurement_correction) =
+            fit_latents(&constructs, &input, measure.identification, Latents::Correlated, "the measurement model")?;
         for dag in &class.dags {
             let paths: Vec<(usize, usize)> =
                 dag.edges().iter().filter(|e| e.is_directed()).map(|e| (e.from, e.to)).collect();
-            let (fit, _, correction) =
-                fit_constructs(&constructs, &input, measure.identification, &paths, "the structural model")?;
+            let (fit, observed, correction) =
+                fit_latents(&constructs, &input, measure.identification, Latents::Dag(&paths), "the structural model")?;
+            let claims = claims_test((&fit, correction.as_ref()), (&measurement, measurement_correction.as_ref()));
             if estimation.is_none() {
                 estimation = Some(EstimationRecord::new(
                     "structural model",
@@ -298,7 +324,7 @@ impl Step for StructureStep {
                 })
                 .collect();
             let moments = fit.latent_moments();
-            let r_squared = paths
+            let r_squared: IndexMap<String, f64> = paths
                 .iter()
                 .map(|&(_, to)| to)
                 .collect::<std::collections::BTreeSet<_>>()
@@ -310,7 +336,9 @@ impl Step for StructureStep {
                 converged: fit.converged,
                 fit: fit.indices.clone(),
                 effects,
+                warnings: fit_warnings(&fit, &names, &observed, &r_squared),
                 r_squared,
+                claims_test: claims,
             });
         }
         let first = members.first();
@@ -326,8 +354,12 @@ impl Step for StructureStep {
             r_squared: first.map(|m| m.r_squared.clone()).unwrap_or_default(),
             class_size: class.dags.len(),
             class_complete: class.complete,
+            claims_test: first.and_then(|m| m.claims_test.clone()),
+            warnings: first.map(|m| m.warnings.clone()).unwrap_or_default(),
             members,
             estimation,
+            colliders: self.params.colliders,
+            conflicts,
         })))
     }
 

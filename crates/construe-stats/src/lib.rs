@@ -6,6 +6,7 @@ pub mod acov;
 pub mod bootstrap;
 pub mod bvn;
 pub mod cluster;
+pub mod discriminant;
 pub mod disclosure;
 pub mod error;
 pub mod fdr;

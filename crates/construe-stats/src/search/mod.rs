@@ -5,6 +5,7 @@
 //! Everything works on node indices and matrices; names, specs and reports live elsewhere.
 
 pub mod ci;
+pub mod conflicts;
 pub mod enumerate;
 pub mod graph;
 pub mod knowledge;
@@ -12,6 +13,7 @@ pub mod meek;
 pub mod pc;
 
 pub use ci::{CiResult, CiTest, DSepOracle, FisherZ, WaldPartial};
+pub use conflicts::{TripleConflict, TripleConflictKind, triple_conflicts};
 pub use enumerate::{Enumeration, enumerate_dags};
 pub use graph::{Edge, EdgeKind, Graph, Link};
 pub use knowledge::{Knowledge, KnowledgeError};
