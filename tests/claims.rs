@@ -60,10 +60,15 @@ fn claims_test_has_one_df_per_missing_edge_and_leave_one_out_runs() {
         .as_array()
         .unwrap()
         .iter()
-        .map(|e| (e["from"].as_str().unwrap().into(), e["to"].as_str().unwrap().into(), e["kind"].as_str().unwrap().into()))
+        .map(|e| {
+            (e["from"].as_str().unwrap().into(), e["to"].as_str().unwrap().into(), e["kind"].as_str().unwrap().into())
+        })
         .collect();
     for want in [("a", "c"), ("b", "c"), ("c", "d")] {
-        assert!(edges.iter().any(|e| (e.0.as_str(), e.1.as_str(), e.2.as_str()) == (want.0, want.1, "directed")), "{edges:?}");
+        assert!(
+            edges.iter().any(|e| (e.0.as_str(), e.1.as_str(), e.2.as_str()) == (want.0, want.1, "directed")),
+            "{edges:?}"
+        );
     }
     let ct = &st["claims_test"];
     let removed = st["removed"].as_array().unwrap().len() as u64;
@@ -98,8 +103,14 @@ fn sensitivity_with_nothing_to_vary_is_an_error() {
         .stderr_contains("error: `sensitivity` has nothing to vary: no reliability grid or prior, no `alpha` list, and `leave_one_out` is off")
         .stderr_contains("at spec.yaml:12:3")
         .stderr_contains("add `leave_one_out: true`");
-    let two = SPEC.replace("[a1, a2, a3]", "[a1, a2]").replace("[b1, b2, b3]", "[b1, b2]").replace("[c1, c2, c3]", "[c1, c2]").replace("[d1, d2, d3]", "[d1, d2]");
+    let two = SPEC
+        .replace("[a1, a2, a3]", "[a1, a2]")
+        .replace("[b1, b2, b3]", "[b1, b2]")
+        .replace("[c1, c2, c3]", "[c1, c2]")
+        .replace("[d1, d2, d3]", "[d1, d2]");
     let case = Case::new().file("model.yaml", COLLIDER).file("spec.yaml", &two);
     case.run(["simulate", "model.yaml", "--out", "data.csv"]).success();
-    case.run(["check", "spec.yaml"]).failure(1).stderr_contains("`leave_one_out` needs a construct with at least 3 items");
+    case.run(["check", "spec.yaml"])
+        .failure(1)
+        .stderr_contains("`leave_one_out` needs a construct with at least 3 items");
 }

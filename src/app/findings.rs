@@ -238,7 +238,9 @@ fn claims_point(r: &Value, points: &mut Vec<Value>, cautions: &mut Vec<String>) 
         .as_array()
         .into_iter()
         .flatten()
-        .filter(|f| f["std_ci"].as_array().is_some_and(|ci| ci.iter().any(|b| b.as_f64().is_some_and(|b| b.abs() > 1.0))))
+        .filter(|f| {
+            f["std_ci"].as_array().is_some_and(|ci| ci.iter().any(|b| b.as_f64().is_some_and(|b| b.abs() > 1.0)))
+        })
         .map(|f| format!("{} → {}", text(&f["from"]), text(&f["to"])))
         .collect();
     if !beyond.is_empty() {
@@ -247,7 +249,9 @@ fn claims_point(r: &Value, points: &mut Vec<Value>, cautions: &mut Vec<String>) 
             list(&beyond)
         ));
     }
-    for w in st["warnings"].as_array().into_iter().flatten().chain(r["measure"]["warnings"].as_array().into_iter().flatten()) {
+    for w in
+        st["warnings"].as_array().into_iter().flatten().chain(r["measure"]["warnings"].as_array().into_iter().flatten())
+    {
         let message = text(&w["message"]);
         let mut c = message.chars();
         if let Some(first) = c.next() {
@@ -393,7 +397,9 @@ mod tests {
         ] {
             assert!(cautions.contains(want), "{want}: {cautions}");
         }
-        let fine = findings(&json!({"structure": {"edges": [], "removed": [], "claims_test": {"chisq": 1.0, "df": 3, "p": 0.8}}}));
+        let fine = findings(
+            &json!({"structure": {"edges": [], "removed": [], "claims_test": {"chisq": 1.0, "df": 3, "p": 0.8}}}),
+        );
         assert!(fine["points"].to_string().contains("hold jointly"));
         let cautions = fine["cautions"].to_string();
         assert!(!cautions.contains("fits worse") && !cautions.contains("contradict"), "{cautions}");

@@ -745,7 +745,10 @@ mod tests {
         let mut contested = link(1, 2, false, None, None);
         contested.conflict = true;
         let svg = diagram(&nodes, &[link(0, 1, true, None, None), contested], &[]);
-        assert_eq!(svg.matches(&format!(r#"stroke="{CONFLICT}" stroke-width="1.60" stroke-dasharray="2 3""#)).count(), 1);
+        assert_eq!(
+            svg.matches(&format!(r#"stroke="{CONFLICT}" stroke-width="1.60" stroke-dasharray="2 3""#)).count(),
+            1
+        );
         assert!(svg.contains("dotted: conflicting tests contest"));
         assert!(layout_problems(&svg).is_empty());
         let plain = diagram(&nodes, &[link(0, 1, true, None, None), link(1, 2, false, None, None)], &[]);

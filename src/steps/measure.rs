@@ -210,8 +210,7 @@ impl MeasureStep {
         self.declared
             .iter()
             .map(|c| {
-                let mut items =
-                    kept.as_ref().and_then(|k| k.get(&c.name).cloned()).unwrap_or_else(|| c.items.clone());
+                let mut items = kept.as_ref().and_then(|k| k.get(&c.name).cloned()).unwrap_or_else(|| c.items.clone());
                 items.retain(|i| Some(i) != self.left_out.as_ref());
                 (c.name.clone(), items, c.reliability)
             })

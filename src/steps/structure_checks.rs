@@ -162,9 +162,7 @@ fn conflict_record(t: &TripleConflict, names: &[String], rule: ColliderRule) -> 
             (
                 ConflictKind::SepsetsDisagree,
                 Some([with_c, total]),
-                format!(
-                    "{with_c} of {total} sets separating {a} and {b} contain {c}, the rest do not; {resolved}"
-                ),
+                format!("{with_c} of {total} sets separating {a} and {b} contain {c}, the rest do not; {resolved}"),
             )
         }
     };
@@ -245,7 +243,9 @@ pub fn fit_warnings(
                 kind: WarningKind::RSquaredOutOfRange,
                 what: format!("R² of {name}"),
                 value: *r2,
-                message: format!("the variance explained in {name} is {r2:.2}, outside 0 to 1: the solution is improper"),
+                message: format!(
+                    "the variance explained in {name} is {r2:.2}, outside 0 to 1: the solution is improper"
+                ),
             });
         }
     }
@@ -260,9 +260,10 @@ pub fn fit_warnings(
             (HeywoodKind::StandardizedLoadingAboveOne, Some((_, r, c))) => {
                 (WarningKind::StandardizedBeyondOne, format!("loading of {} on {}", observed[r], names[c]))
             }
-            (HeywoodKind::ErrorCorrelationAboveOne, Some((_, r, c))) => {
-                (WarningKind::StandardizedBeyondOne, format!("error correlation of {} and {}", observed[r], observed[c]))
-            }
+            (HeywoodKind::ErrorCorrelationAboveOne, Some((_, r, c))) => (
+                WarningKind::StandardizedBeyondOne,
+                format!("error correlation of {} and {}", observed[r], observed[c]),
+            ),
             _ => (WarningKind::LatentCovarianceNotPositiveDefinite, "covariance of the constructs".to_string()),
         };
         out.push(StructureWarning {
@@ -321,10 +322,8 @@ pub fn correlation_warnings(
             }
         }
     }
-    let groups: Vec<Vec<usize>> = constructs
-        .values()
-        .map(|g| g.iter().filter_map(|i| items.iter().position(|a| a == i)).collect())
-        .collect();
+    let groups: Vec<Vec<usize>> =
+        constructs.values().map(|g| g.iter().filter_map(|i| items.iter().position(|a| a == i)).collect()).collect();
     if let Ok(h) = construe_stats::discriminant::htmt(r, &groups) {
         let keys: Vec<&String> = constructs.keys().collect();
         for i in 0..keys.len() {
@@ -364,15 +363,11 @@ mod tests {
     // plausible fit (z correlating 0.5 with x) is not.
     #[test]
     fn implausible_effects_and_r_squared_are_flagged() {
-        let c = |rxz: f64, ryz: f64| {
-            DMatrix::from_row_slice(3, 3, &[1.0, 0.8, rxz, 0.8, 1.0, ryz, rxz, ryz, 1.0])
-        };
+        let c = |rxz: f64, ryz: f64| DMatrix::from_row_slice(3, 3, &[1.0, 0.8, rxz, 0.8, 1.0, ryz, rxz, ryz, 1.0]);
         let fit_of = |s: &DMatrix<f64>| {
-            let mut m = SemModel::sem(&[vec![0], vec![1], vec![2]], 3, Identification::UnitLatentVariance, &[
-                (0, 2),
-                (1, 2),
-            ])
-            .unwrap();
+            let mut m =
+                SemModel::sem(&[vec![0], vec![1], vec![2]], 3, Identification::UnitLatentVariance, &[(0, 2), (1, 2)])
+                    .unwrap();
             for i in 0..3 {
                 m.fix_error_variance(i, 0.1);
             }
@@ -381,7 +376,10 @@ mod tests {
         let (ns, obs) = (names(&["x", "y", "z"]), names(&["i1", "i2", "i3"]));
         let bad = fit_of(&c(0.8, 0.45));
         let w = fit_warnings(&bad, &ns, &obs, &IndexMap::new());
-        assert!(w.iter().any(|w| w.kind == WarningKind::StandardizedEffectBeyondOne && w.what == "effect x → z"), "{w:?}");
+        assert!(
+            w.iter().any(|w| w.kind == WarningKind::StandardizedEffectBeyondOne && w.what == "effect x → z"),
+            "{w:?}"
+        );
         let good = fit_of(&c(0.5, 0.45));
         assert!(fit_warnings(&good, &ns, &obs, &IndexMap::new()).is_empty());
         let r2: IndexMap<String, f64> = [("z".to_string(), 1.07)].into_iter().collect();
@@ -398,7 +396,12 @@ mod tests {
         let m = SemModel::cfa(&[vec![0, 1, 2]], 3, Identification::UnitLatentVariance).unwrap();
         let fit = m.fit(&s, 300, &FitOptions::default()).unwrap();
         let w = fit_warnings(&fit, &names(&["f"]), &names(&["a", "b", "c"]), &IndexMap::new());
-        assert!(w.iter().any(|w| w.kind == WarningKind::NegativeVariance && w.what == "error variance of a" && (w.value + 0.12).abs() < 1e-3), "{w:?}");
+        assert!(
+            w.iter().any(|w| w.kind == WarningKind::NegativeVariance
+                && w.what == "error variance of a"
+                && (w.value + 0.12).abs() < 1e-3),
+            "{w:?}"
+        );
     }
 
     // Constructs correlated 0.95 with items whose HTMT is above 0.90 are flagged twice (latent
@@ -410,7 +413,15 @@ mod tests {
             [("f".to_string(), names(&["a", "b"])), ("g".to_string(), names(&["c", "d"]))].into_iter().collect();
         let items = names(&["a", "b", "c", "d"]);
         let r = |within: f64, between: f64| {
-            DMatrix::from_fn(4, 4, |i, j| if i == j { 1.0 } else if i / 2 == j / 2 { within } else { between })
+            DMatrix::from_fn(4, 4, |i, j| {
+                if i == j {
+                    1.0
+                } else if i / 2 == j / 2 {
+                    within
+                } else {
+                    between
+                }
+            })
         };
         let w = correlation_warnings(&ns, &[vec![1.0, 0.95], vec![0.95, 1.0]], &constructs, &r(0.5, 0.48), &items);
         let kinds: Vec<(WarningKind, &str)> = w.iter().map(|w| (w.kind, w.what.as_str())).collect();
@@ -425,6 +436,8 @@ mod tests {
         let w = correlation_warnings(&ns, &[vec![1.0, 1.02], vec![1.02, 1.0]], &constructs, &r(0.5, 0.2), &items);
         assert_eq!(w.len(), 1);
         assert_eq!(w[0].kind, WarningKind::CorrelationBeyondOne);
-        assert!(correlation_warnings(&ns, &[vec![1.0, 0.6], vec![0.6, 1.0]], &constructs, &r(0.5, 0.2), &items).is_empty());
+        assert!(
+            correlation_warnings(&ns, &[vec![1.0, 0.6], vec![0.6, 1.0]], &constructs, &r(0.5, 0.2), &items).is_empty()
+        );
     }
 }

@@ -17,7 +17,11 @@ use crate::StatsError;
 pub fn htmt(r: &DMatrix<f64>, groups: &[Vec<usize>]) -> Result<Vec<Vec<Option<f64>>>, StatsError> {
     let p = r.nrows();
     if r.ncols() != p {
-        return Err(StatsError::SizeMismatch { what: "columns of the correlation matrix", expected: p, found: r.ncols() });
+        return Err(StatsError::SizeMismatch {
+            what: "columns of the correlation matrix",
+            expected: p,
+            found: r.ncols(),
+        });
     }
     if let Some(&bad) = groups.iter().flatten().find(|&&i| i >= p) {
         return Err(StatsError::OutOfRange { what: "item", index: bad, len: p });
@@ -40,7 +44,8 @@ pub fn htmt(r: &DMatrix<f64>, groups: &[Vec<usize>]) -> Result<Vec<Vec<Option<f6
             }
             if let (Some(mi), Some(mj)) = (mono[i], mono[j]) {
                 let n = (groups[i].len() * groups[j].len()) as f64;
-                let hetero: f64 = groups[i].iter().flat_map(|&a| groups[j].iter().map(move |&b| r[(a, b)])).sum::<f64>() / n;
+                let hetero: f64 =
+                    groups[i].iter().flat_map(|&a| groups[j].iter().map(move |&b| r[(a, b)])).sum::<f64>() / n;
                 out[i][j] = Some(hetero / (mi * mj).sqrt());
             }
         }

@@ -19,8 +19,8 @@ pub mod start;
 
 pub use fit::{FitOptions, Heywood, HeywoodKind, LatentMoments, ParameterEstimate, SemFit, fit};
 pub use indices::{BaselineFit, FitIndices, fit_indices, ncx2_cdf, rmsea_interval};
-pub use nested::{DifferenceMethod, Fitted, NestedTest, difference};
 pub use model::{Identification, Matrix, Param, ParamLayout, ParameterKind, SemModel};
+pub use nested::{DifferenceMethod, Fitted, NestedTest, difference};
 pub use robust::{Correction, RobustFit, StatisticCorrection, Subset, fit_dwls, ml_sandwich, robust_indices};
 
 #[cfg(test)]

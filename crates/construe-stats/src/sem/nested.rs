@@ -152,14 +152,16 @@ mod tests {
         let s = population();
         for ident in [Identification::UnitLatentVariance, Identification::UnitFirstLoading] {
             let cfa = SemModel::cfa(&groups(), 12, ident).unwrap().fit(&s, 500, &FitOptions::default()).unwrap();
-            let dag = SemModel::dag(&groups(), 12, ident, &PATHS).unwrap().fit(&s, 500, &FitOptions::default()).unwrap();
-            let old = SemModel::sem(&groups(), 12, ident, &PATHS).unwrap().fit(&s, 500, &FitOptions::default()).unwrap();
+            let dag =
+                SemModel::dag(&groups(), 12, ident, &PATHS).unwrap().fit(&s, 500, &FitOptions::default()).unwrap();
+            let old =
+                SemModel::sem(&groups(), 12, ident, &PATHS).unwrap().fit(&s, 500, &FitOptions::default()).unwrap();
             assert_eq!(dag.df, cfa.df + 3, "{ident:?}");
             assert_eq!(old.df, cfa.df + 2, "{ident:?}");
             // The population satisfies the DAG: both fit it exactly.
             assert!(dag.indices.chisq < 1e-6 && cfa.indices.chisq < 1e-6, "{ident:?}");
-            let test = difference(Fitted { fit: &dag, correction: None }, Fitted { fit: &cfa, correction: None })
-                .unwrap();
+            let test =
+                difference(Fitted { fit: &dag, correction: None }, Fitted { fit: &cfa, correction: None }).unwrap();
             assert_eq!(test.df, 3);
             assert!(test.p.unwrap() > 0.999);
         }
