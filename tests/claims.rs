@@ -81,6 +81,7 @@ fn claims_test_has_one_df_per_missing_edge_and_leave_one_out_runs() {
     assert!(st["conflicts"].is_array() && st["warnings"].is_array());
     let s = &r["sensitivity"];
     assert_eq!(s["left_out"].as_array().unwrap().len(), 12);
+    assert_eq!(s["failed"], 0, "{}", s["failures"]);
     for c in s["conclusions"].as_array().unwrap() {
         let n = c["holds_without"].as_array().unwrap().len() + c["fails_without"].as_array().unwrap().len();
         assert_eq!(n as u64 + s["failed"].as_u64().unwrap(), 12, "{c}");

@@ -173,6 +173,19 @@ mod tests {
         assert!(SemModel::dag(&groups(), 12, Identification::UnitLatentVariance, &[(0, 1), (1, 2), (2, 0)]).is_err());
     }
 
+    // A construct with two items whose only link is a path (a, item 0 left out) still fits:
+    // the paths' starting values come from the latents' regressions, not zero.
+    #[test]
+    fn two_indicator_exogenous_construct_fits_in_a_dag() {
+        let s = population().remove_row(0).remove_column(0);
+        let groups: Vec<Vec<usize>> = vec![vec![0, 1], vec![2, 3, 4], vec![5, 6, 7], vec![8, 9, 10]];
+        let fit = SemModel::dag(&groups, 11, Identification::UnitLatentVariance, &PATHS)
+            .unwrap()
+            .fit(&s, 500, &FitOptions::default())
+            .unwrap();
+        assert!(fit.converged && fit.indices.chisq < 1e-6, "{:?}", fit.indices);
+    }
+
     // A missing edge that is false: a and b correlated 0.5 in the population, the DAG says
     // independent; the difference test rejects at n = 500.
     #[test]
