@@ -140,9 +140,11 @@ fn structure_diagram(spec: &SpecFile, execution: &Execution) -> Option<String> {
             // With resampling, the share of replicates with the edge as drawn (oriented the
             // same way for a directed edge; present at all for an undirected one).
             let support = drawn_support(execution, &e.from, &e.to, e.kind.is_directed());
+            // Orientation conflicts only: a split of separating sets leaves its triple unoriented.
             let conflict = st
                 .conflicts
                 .iter()
+                .filter(|k| k.kind != crate::steps::structure_checks::ConflictKind::SepsetsDisagree)
                 .flat_map(|k| &k.edges)
                 .any(|[a, b]| (*a == e.from && *b == e.to) || (*a == e.to && *b == e.from));
             Some(Link { from: index(&e.from)?, to: index(&e.to)?, kind: e.kind, coefficient, support, conflict })

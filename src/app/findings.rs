@@ -221,8 +221,23 @@ fn claims_point(r: &Value, points: &mut Vec<Value>, cautions: &mut Vec<String>) 
             );
         }
     }
-    if let Some(conflicts) = st["conflicts"].as_array().filter(|c| !c.is_empty()) {
-        let triples: Vec<String> = conflicts
+    let conflicts = st["conflicts"].as_array().map(Vec::as_slice).unwrap_or_default();
+    let (split, oriented): (Vec<&Value>, Vec<&Value>) = conflicts.iter().partition(|k| k["kind"] == "sepsets_disagree");
+    if !split.is_empty() {
+        let triples: Vec<String> = split
+            .iter()
+            .map(|k| format!("{} – {} – {}", text(&k["a"]), text(&k["c"]), text(&k["b"])))
+            .collect::<std::collections::BTreeSet<_>>()
+            .into_iter()
+            .collect();
+        cautions.push(format!(
+            "The separating sets disagree at {} ({}): the data neither show nor rule out a collider there.",
+            if triples.len() == 1 { "1 triple".to_string() } else { format!("{} triples", triples.len()) },
+            list(&triples)
+        ));
+    }
+    if !oriented.is_empty() {
+        let triples: Vec<String> = oriented
             .iter()
             .map(|k| format!("{} – {} – {}", text(&k["a"]), text(&k["c"]), text(&k["b"])))
             .collect::<std::collections::BTreeSet<_>>()
@@ -378,7 +393,8 @@ mod tests {
         let r = json!({
             "structure": {"edges": [], "removed": [{}],
               "claims_test": {"chisq": 12.5, "df": 2, "p": 0.0019},
-              "conflicts": [{"a": "a", "c": "b", "b": "c"}, {"a": "a", "c": "b", "b": "c"}],
+              "conflicts": [{"a": "a", "c": "b", "b": "c"}, {"a": "a", "c": "b", "b": "c"},
+                {"a": "x", "c": "y", "b": "z", "kind": "sepsets_disagree"}],
               "warnings": [{"message": "the standardized effect a → b is 1.20, beyond ±1"}]},
             "measure": {"warnings": [{"message": "the latent correlation of f and g is 0.95"}]},
             "resample": {"effects": [{"from": "a", "to": "b", "std_ci": [0.4, 1.14], "replicates": 100}]}
@@ -391,6 +407,7 @@ mod tests {
         for want in [
             "fits worse than the measurement model",
             "contradict each other at 1 triple (a – b – c)",
+            "separating sets disagree at 1 triple (x – y – z)",
             "The standardized effect a → b is 1.20, beyond ±1.",
             "The latent correlation of f and g is 0.95.",
             "interval of the standardized effect a → b reaches beyond ±1",
