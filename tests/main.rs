@@ -6,6 +6,7 @@ mod harness;
 mod audit;
 mod caching;
 mod check;
+mod claims;
 mod compact;
 mod coverage;
 mod demo;

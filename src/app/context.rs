@@ -96,6 +96,7 @@ pub fn report_context(spec: &SpecFile, execution: &Execution, results: &Value) -
         "sensitivity": results.get("sensitivity"),
         "sensitivity_plots": sensitivity_plots(spec, execution),
         "sensitivity_tables": sensitivity_tables(spec, results),
+        "leave_one_out_tables": leave_one_out_tables(results),
         "steps": steps,
         "invariance": results.get("invariance"),
         "invariance_plot": results.get("invariance").and_then(crate::report::means_plot::from_results),
@@ -142,7 +143,14 @@ fn structure_diagram(spec: &SpecFile, execution: &Execution) -> Option<String> {
             // With resampling, the share of replicates with the edge as drawn (oriented the
             // same way for a directed edge; present at all for an undirected one).
             let support = drawn_support(execution, &e.from, &e.to, e.kind.is_directed());
-            Some(Link { from: index(&e.from)?, to: index(&e.to)?, kind: e.kind, coefficient, support })
+            // Orientation conflicts only: a split of separating sets leaves its triple unoriented.
+            let conflict = st
+                .conflicts
+                .iter()
+                .filter(|k| k.kind != crate::steps::structure_checks::ConflictKind::SepsetsDisagree)
+                .flat_map(|k| &k.edges)
+                .any(|[a, b]| (*a == e.from && *b == e.to) || (*a == e.to && *b == e.from));
+            Some(Link { from: index(&e.from)?, to: index(&e.to)?, kind: e.kind, coefficient, support, conflict })
         })
         .collect();
     let dropped: Vec<String> = match execution.artifacts.get(&StepKind::Purify) {
@@ -258,6 +266,36 @@ fn sensitivity_plots(spec: &SpecFile, execution: &Execution) -> Vec<Value> {
             })
         })
         .collect()
+}
+
+/// With `leave_one_out`: one table per kind of conclusion (edges found, pairs found
+/// independent, others), a row per conclusion with the items whose omission overturns it.
+fn leave_one_out_tables(results: &Value) -> Value {
+    let s = &results["sensitivity"];
+    let items = s["left_out"].as_array().map_or(0, Vec::len);
+    let Some(conclusions) = s["conclusions"].as_array().filter(|_| items > 0) else { return Value::Null };
+    let mut tables = Vec::new();
+    for (kind, title) in [("edge ", "Edges found"), ("no edge", "Pairs found independent"), ("", "Other conclusions")] {
+        let rows: Vec<Value> = conclusions
+            .iter()
+            .filter(|c| {
+                let what = c["what"].as_str().unwrap_or("");
+                match kind {
+                    "" => !what.starts_with("edge ") && !what.starts_with("no edge"),
+                    k => what.starts_with(k),
+                }
+            })
+            .map(|c| {
+                let holds = c["holds_without"].as_array().map_or(0, Vec::len);
+                json!({"what": c["what"], "holds": holds, "fails_without": c["fails_without"]})
+            })
+            .collect();
+        if !rows.is_empty() {
+            let all_hold = rows.iter().all(|r| r["fails_without"].as_array().is_none_or(Vec::is_empty));
+            tables.push(json!({"title": title, "rows": rows, "all_hold": all_hold}));
+        }
+    }
+    json!({"items": items, "tables": tables})
 }
 
 /// The sensitivity conclusions as one table per kind of conclusion (edges found, pairs found

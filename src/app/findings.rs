@@ -44,6 +44,7 @@ pub fn findings(results: &Value) -> Value {
     fit_point(results, &mut points, &mut cautions);
     structure_point(results, &mut points, &mut cautions);
     points.extend(super::pag_view::finding(&results["structure"]));
+    claims_point(results, &mut points, &mut cautions);
     sensitivity_point(results, &mut points, &mut cautions);
     purify_cautions(results, &mut cautions);
     super::findings_invariance::invariance_point(results, &mut points, &mut cautions);
@@ -235,6 +236,81 @@ fn structure_point(r: &Value, points: &mut Vec<Value>, cautions: &mut Vec<String
     }
 }
 
+/// The joint test of the search's claims (one sentence), its conflicting triples and the
+/// implausible estimates of the structural and measurement fits (cautions).
+fn claims_point(r: &Value, points: &mut Vec<Value>, cautions: &mut Vec<String>) {
+    let st = &r["structure"];
+    let ct = &st["claims_test"];
+    if let (Some(chisq), Some(df), Some(p)) = (ct["chisq"].as_f64(), ct["df"].as_u64(), ct["p"].as_f64()) {
+        let pairs = if df == 1 { "1 pair".to_string() } else { format!("{df} pairs") };
+        let verdict = if p < 0.05 { "are rejected jointly" } else { "hold jointly" };
+        points.push(point(
+            "Claims",
+            format!(
+                "The independences the search claims ({pairs} of constructs without an edge) {verdict} against the measurement model: χ² {chisq:.2} on {df} df, p = {p:.3}."
+            ),
+        ));
+        if p < 0.05 {
+            cautions.push(
+                "The structural model fits worse than the measurement model: some pair the search left unlinked is linked; read the graph's missing edges with care."
+                    .into(),
+            );
+        }
+    }
+    let conflicts = st["conflicts"].as_array().map(Vec::as_slice).unwrap_or_default();
+    let (split, oriented): (Vec<&Value>, Vec<&Value>) = conflicts.iter().partition(|k| k["kind"] == "sepsets_disagree");
+    if !split.is_empty() {
+        let triples: Vec<String> = split
+            .iter()
+            .map(|k| format!("{} – {} – {}", text(&k["a"]), text(&k["c"]), text(&k["b"])))
+            .collect::<std::collections::BTreeSet<_>>()
+            .into_iter()
+            .collect();
+        cautions.push(format!(
+            "The separating sets disagree at {} ({}): the data neither show nor rule out a collider there.",
+            if triples.len() == 1 { "1 triple".to_string() } else { format!("{} triples", triples.len()) },
+            list(&triples)
+        ));
+    }
+    if !oriented.is_empty() {
+        let triples: Vec<String> = oriented
+            .iter()
+            .map(|k| format!("{} – {} – {}", text(&k["a"]), text(&k["c"]), text(&k["b"])))
+            .collect::<std::collections::BTreeSet<_>>()
+            .into_iter()
+            .collect();
+        cautions.push(format!(
+            "The conditional independence tests contradict each other at {} ({}): the orientations there are unreliable.",
+            if triples.len() == 1 { "1 triple".to_string() } else { format!("{} triples", triples.len()) },
+            list(&triples)
+        ));
+    }
+    let beyond: Vec<String> = r["resample"]["effects"]
+        .as_array()
+        .into_iter()
+        .flatten()
+        .filter(|f| {
+            f["std_ci"].as_array().is_some_and(|ci| ci.iter().any(|b| b.as_f64().is_some_and(|b| b.abs() > 1.0)))
+        })
+        .map(|f| format!("{} → {}", text(&f["from"]), text(&f["to"])))
+        .collect();
+    if !beyond.is_empty() {
+        cautions.push(format!(
+            "The bootstrap interval of the standardized effect {} reaches beyond ±1: some replicates found an improper solution; read the effect as unstable.",
+            list(&beyond)
+        ));
+    }
+    for w in
+        st["warnings"].as_array().into_iter().flatten().chain(r["measure"]["warnings"].as_array().into_iter().flatten())
+    {
+        let message = text(&w["message"]);
+        let mut c = message.chars();
+        if let Some(first) = c.next() {
+            cautions.push(format!("{}{}.", first.to_uppercase(), c.as_str()));
+        }
+    }
+}
+
 fn sensitivity_point(r: &Value, points: &mut Vec<Value>, cautions: &mut Vec<String>) {
     let s = &r["sensitivity"];
     let Some(conclusions) = s["conclusions"].as_array() else { return };
@@ -391,5 +467,41 @@ mod tests {
         let cautions = f["cautions"].to_string();
         assert!(cautions.contains("fewer than 40 replicates"), "{cautions}");
         assert!(cautions.contains("b → c (12)"), "{cautions}");
+    }
+
+    // The claims test's sentence, and a caution for each trigger: rejected claims, conflicting
+    // triples, structural and measurement warnings, a bootstrap interval beyond ±1.
+    #[test]
+    fn claims_conflicts_and_implausible_estimates_are_cautioned() {
+        let r = json!({
+            "structure": {"edges": [], "removed": [{}],
+              "claims_test": {"chisq": 12.5, "df": 2, "p": 0.0019},
+              "conflicts": [{"a": "a", "c": "b", "b": "c"}, {"a": "a", "c": "b", "b": "c"},
+                {"a": "x", "c": "y", "b": "z", "kind": "sepsets_disagree"}],
+              "warnings": [{"message": "the standardized effect a → b is 1.20, beyond ±1"}]},
+            "measure": {"warnings": [{"message": "the latent correlation of f and g is 0.95"}]},
+            "resample": {"effects": [{"from": "a", "to": "b", "std_ci": [0.4, 1.14], "replicates": 100}]}
+        });
+        let f = findings(&r);
+        let points = f["points"].to_string();
+        assert!(points.contains("(2 pairs of constructs without an edge) are rejected jointly"), "{points}");
+        assert!(points.contains("χ² 12.50 on 2 df, p = 0.002"), "{points}");
+        let cautions = f["cautions"].to_string();
+        for want in [
+            "fits worse than the measurement model",
+            "contradict each other at 1 triple (a – b – c)",
+            "separating sets disagree at 1 triple (x – y – z)",
+            "The standardized effect a → b is 1.20, beyond ±1.",
+            "The latent correlation of f and g is 0.95.",
+            "interval of the standardized effect a → b reaches beyond ±1",
+        ] {
+            assert!(cautions.contains(want), "{want}: {cautions}");
+        }
+        let fine = findings(
+            &json!({"structure": {"edges": [], "removed": [], "claims_test": {"chisq": 1.0, "df": 3, "p": 0.8}}}),
+        );
+        assert!(fine["points"].to_string().contains("hold jointly"));
+        let cautions = fine["cautions"].to_string();
+        assert!(!cautions.contains("fits worse") && !cautions.contains("contradict"), "{cautions}");
     }
 }

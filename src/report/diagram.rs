@@ -29,6 +29,8 @@ pub struct Link {
     pub coefficient: Option<f64>,
     /// Share of bootstrap replicates with the edge as drawn, when resampling ran.
     pub support: Option<f64>,
+    /// The edge's marks are contested by conflicting triples (drawn dotted, in `CONFLICT`).
+    pub conflict: bool,
 }
 
 /// Below this bootstrap share an edge is drawn dashed (fragile); the findings use the same.
@@ -52,6 +54,8 @@ const BAND: f64 = 74.0;
 const MARGIN: f64 = 16.0;
 const INK: &str = "#1d232a";
 const ACCENT: &str = "#a84824";
+/// Colour of an edge whose marks conflicting triples contest.
+const CONFLICT: &str = "#6b3fa0";
 
 /// Width of a text of `chars` characters at `size`: a conservative 0.62 em per character (wider
 /// than the digits and lower-case letters of the fonts the stylesheet names).
@@ -397,9 +401,19 @@ pub fn diagram(nodes: &[Node], links: &[Link], dropped: &[String]) -> String {
     let mut segments: Vec<Segment> = Vec::new();
     for r in &routes {
         let l = &links[r.link];
-        let colour = if l.kind.is_directed() || l.kind == EdgeKind::PartiallyDirected { INK } else { ACCENT };
+        let colour = match (l.conflict, l.kind.is_directed() || l.kind == EdgeKind::PartiallyDirected) {
+            (true, _) => CONFLICT,
+            (false, true) => INK,
+            (false, false) => ACCENT,
+        };
         let width = l.support.map_or(1.6, |s| 0.9 + 2.6 * s.clamp(0.0, 1.0));
-        let dash = if l.support.is_some_and(|s| s < FRAGILE) { r#" stroke-dasharray="6 4""# } else { "" };
+        let dash = if l.conflict {
+            r#" stroke-dasharray="2 3""#
+        } else if l.support.is_some_and(|s| s < FRAGILE) {
+            r#" stroke-dasharray="6 4""#
+        } else {
+            ""
+        };
         // FCI's marks (`search: fci`): arrowheads, circles, or nothing at each end
         let marker = match l.kind {
             EdgeKind::Directed => r#" marker-end="url(#dg-head)""#,
@@ -506,6 +520,13 @@ pub fn diagram(nodes: &[Node], links: &[Link], dropped: &[String]) -> String {
             );
             lg.line(&s, words);
         }
+    }
+    if links.iter().any(|l| l.conflict) {
+        let y = lg.y;
+        let s = format!(
+            r#"<line x1="{x0}" y1="{y:.1}" x2="{x1}" y2="{y:.1}" stroke="{CONFLICT}" stroke-width="1.6" stroke-dasharray="2 3"/>"#
+        );
+        lg.line(&s, "dotted: conflicting tests contest this edge's marks (see the conflicting triples)");
     }
     if links.iter().any(|l| l.support.is_some()) {
         let s = format!(
@@ -718,6 +739,7 @@ mod tests {
             kind: if directed { EdgeKind::Directed } else { EdgeKind::Undirected },
             coefficient: c,
             support: s,
+            conflict: false,
         }
     }
 
@@ -748,6 +770,23 @@ mod tests {
         assert_eq!(svg.matches("<ellipse").count(), 3, "two constructs and the legend's");
         assert_eq!(svg.matches("class=\"dg-item\"").count(), 3);
         assert!(svg.contains("a&lt;b") && svg.contains("z&lt;1&gt;") && !svg.contains("a<b"));
+    }
+
+    // A contested edge is drawn dotted in the conflict colour, and the legend says what that means.
+    #[test]
+    fn conflicting_edges_are_drawn_as_such() {
+        let nodes = vec![node("a", 0, &["x1"]), node("b", 1, &["y1"]), node("c", 2, &["z1"])];
+        let mut contested = link(1, 2, false, None, None);
+        contested.conflict = true;
+        let svg = diagram(&nodes, &[link(0, 1, true, None, None), contested], &[]);
+        assert_eq!(
+            svg.matches(&format!(r#"stroke="{CONFLICT}" stroke-width="1.60" stroke-dasharray="2 3""#)).count(),
+            1
+        );
+        assert!(svg.contains("dotted: conflicting tests contest"));
+        assert!(layout_problems(&svg).is_empty());
+        let plain = diagram(&nodes, &[link(0, 1, true, None, None), link(1, 2, false, None, None)], &[]);
+        assert!(!plain.contains(CONFLICT) && !plain.contains("dotted"));
     }
 
     #[test]

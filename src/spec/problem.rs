@@ -106,6 +106,8 @@ pub enum SpecProblem {
     NoReportFormats,
     #[error("analysis `{analysis}` needs `{needs}` in the spec")]
     MissingPrerequisite { analysis: String, needs: String },
+    #[error("`sensitivity` has nothing to vary: {why}")]
+    NothingToVary { why: String },
     #[error(
         "sensitivity to the reliability of `{construct}` needs a single-indicator construct; it has {count} items, whose measurement error the model estimates"
     )]
@@ -201,6 +203,7 @@ impl SpecProblem {
             NormalTheoryOnOrdinal { .. } => Some("drop `test: wishart` (the default, `auto`, tests the polychoric matrix by the delta method with its sampling covariance from the respondents' answers)".into()),
             MissingPrerequisite { .. } => Some("add the analysis it needs under `analyses`".into()),
             SensitivityWithoutModel => Some("use `search: both` (PC's fitted model, with FCI's graph beside it), or drop `sensitivity`".into()),
+            NothingToVary { .. } => Some("add `leave_one_out: true` (constructs with 3 or more items), an `alpha` list, or a `reliability` grid or `prior` for a single-indicator construct; or remove `sensitivity`".into()),
             ScaleScore { .. } => Some("conditioning on a sum or mean of noisy items does not screen off what they measure; model the construct from its items instead, and drop the score".into()),
             CoarsenedSingleIndicator { .. } => Some("a coarse measure of a construct in the middle of a causal chain cannot screen off what it transmits; add indicators or state a reliability with care".into()),
             UnusualAlpha { .. } => Some("levels between 0.001 and 0.2 are usual; a very small one hides real dependence, a large one admits chance findings".into()),

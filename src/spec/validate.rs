@@ -554,6 +554,15 @@ fn check_analyses(spec: &Spec, available: Option<&Vec<String>>, out: &mut Vec<Fi
                 "analyses.sensitivity",
             ));
         }
+        let multi = spec.constructs.values().any(|c| c.items.len() >= 3);
+        if s.reliability.is_empty() && s.prior.is_empty() && s.alpha.is_empty() && !(s.leave_one_out && multi) {
+            let why = if s.leave_one_out {
+                "`leave_one_out` needs a construct with at least 3 items, and there is no reliability grid, prior or `alpha` list"
+            } else {
+                "no reliability grid or prior, no `alpha` list, and `leave_one_out` is off"
+            };
+            out.push(Finding::key(SpecProblem::NothingToVary { why: why.into() }, "analyses.sensitivity"));
+        }
         let swept = s.reliability.keys().map(|n| (n, "analyses.sensitivity.reliability"));
         for (name, path) in swept.chain(s.prior.keys().map(|n| (n, "analyses.sensitivity.prior"))) {
             let count = spec.constructs.get(name).map_or(1, |c| c.items.len());

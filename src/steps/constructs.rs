@@ -387,11 +387,38 @@ pub struct Fitted {
 /// Fits the model of `constructs` (with latent `paths`) and the declared `impurities` by the
 /// input's plan; a failing fit is a `StepError::Stats` with `context` ("the measurement
 /// model"). See `impurities::apply` for how the declarations enter the model.
+/// `paths` empty: the measurement model (`SemModel::cfa`, correlated constructs); else the
+/// paths with free covariances among exogenous constructs (`SemModel::sem`).
 pub fn fit_constructs(
     constructs: &[(String, Vec<String>, Option<f64>)],
     input: &ModelInput,
     ident: Identification,
     paths: &[(usize, usize)],
+    impurities: &Impurities,
+    context: &'static str,
+) -> Result<Fitted, StepError> {
+    let latents = if paths.is_empty() { Latents::Correlated } else { Latents::FreeExogenous(paths) };
+    fit_latents(constructs, input, ident, latents, impurities, context)
+}
+
+/// How the constructs relate in a fitted model.
+#[derive(Debug, Clone, Copy)]
+pub enum Latents<'a> {
+    /// All covariances free: the measurement model.
+    Correlated,
+    /// The paths, covariances free among constructs without parents (`SemModel::sem`).
+    FreeExogenous(&'a [(usize, usize)]),
+    /// Exactly the DAG of the paths: every other covariance zero (`SemModel::dag`), so each
+    /// non-adjacent pair is a restriction the fit tests.
+    Dag(&'a [(usize, usize)]),
+}
+
+/// `fit_constructs` for any `Latents`.
+pub fn fit_latents(
+    constructs: &[(String, Vec<String>, Option<f64>)],
+    input: &ModelInput,
+    ident: Identification,
+    latents: Latents<'_>,
     impurities: &Impurities,
     context: &'static str,
 ) -> Result<Fitted, StepError> {
@@ -417,10 +444,10 @@ pub fn fit_constructs(
         })
         .collect();
     let names: Vec<String> = constructs.iter().map(|(n, _, _)| n.clone()).collect();
-    let mut model = if paths.is_empty() {
-        SemModel::cfa(&groups, index.len(), identification(ident))
-    } else {
-        SemModel::sem(&groups, index.len(), identification(ident), paths)
+    let mut model = match latents {
+        Latents::Correlated => SemModel::cfa(&groups, index.len(), identification(ident)),
+        Latents::FreeExogenous(paths) => SemModel::sem(&groups, index.len(), identification(ident), paths),
+        Latents::Dag(paths) => SemModel::dag(&groups, index.len(), identification(ident), paths),
     }
     .map_err(stats)?;
     for ((name, _, reliability), g) in constructs.iter().zip(&groups) {

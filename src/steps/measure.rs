@@ -26,7 +26,9 @@ use construe_stats::sem::{FitIndices, LatentMoments, Matrix, ParameterKind, SemF
 /// v3: estimation chosen from the item types (DWLS / sandwich SEs, corrected statistics);
 /// reads `load` for the moments' sampling covariance; `estimation` record added.
 /// v4: declared impurities modelled (`declared`); diagnosis (`suggestions`, `residuals`).
-pub const VERSION: u32 = 4;
+/// v5: `warnings` (constructs not distinct: latent correlation above 0.9 or HTMT above 0.90;
+/// correlations beyond ±1).
+pub const VERSION: u32 = 5;
 
 /// A parameter estimate.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize, JsonSchema)]
@@ -136,6 +138,9 @@ pub struct MeasureOutput {
     pub suggestions: Vec<Suggestion>,
     /// The largest residual correlations of the model (at most 10, largest in absolute value first).
     pub residuals: Vec<ResidualRecord>,
+    /// Implausible estimates: latent correlations beyond ±1, constructs that may not be distinct
+    /// (correlation above 0.9, or heterotrait-monotrait ratio above 0.90).
+    pub warnings: Vec<super::structure_checks::StructureWarning>,
 }
 
 /// The fit of the declared model before purification.
@@ -167,6 +172,8 @@ pub struct MeasureStep {
     /// Whether to diagnose the model (off for sensitivity's refits, which read only the
     /// latent covariance; never in the key).
     diagnose: bool,
+    /// An item left out of its construct (sensitivity's leave-one-out refits).
+    left_out: Option<String>,
 }
 
 impl MeasureStep {
@@ -184,6 +191,7 @@ impl MeasureStep {
             shared: None,
             impurities: file.spec.impurities.clone(),
             diagnose: true,
+            left_out: None,
         }
     }
 }
@@ -196,6 +204,11 @@ impl MeasureStep {
             c.reliability = Some(reliability);
         }
         step
+    }
+
+    /// The same step with `item` left out of its construct (sensitivity's leave-one-out refits).
+    pub fn without_item(&self, item: &str) -> MeasureStep {
+        MeasureStep { left_out: Some(item.to_string()), ..self.clone() }
     }
 
     /// The same step drawing the moments' sampling covariance from `shared` (refits over the
@@ -214,7 +227,8 @@ impl MeasureStep {
         self.declared
             .iter()
             .map(|c| {
-                let items = kept.as_ref().and_then(|k| k.get(&c.name).cloned()).unwrap_or_else(|| c.items.clone());
+                let mut items = kept.as_ref().and_then(|k| k.get(&c.name).cloned()).unwrap_or_else(|| c.items.clone());
+                items.retain(|i| Some(i) != self.left_out.as_ref());
                 (c.name.clone(), items, c.reliability)
             })
             .collect()
@@ -231,7 +245,11 @@ impl Step for MeasureStep {
     }
 
     fn params(&self) -> Value {
-        json!({"identification": self.params.identification, "estimation": self.params.estimation, "constructs": self.declared, "impurities": self.impurities})
+        let mut params = json!({"identification": self.params.identification, "estimation": self.params.estimation, "constructs": self.declared, "impurities": self.impurities});
+        if let Some(item) = &self.left_out {
+            params["left_out"] = json!(item);
+        }
+        params
     }
 
     fn inputs(&self) -> Vec<StepKind> {
@@ -284,6 +302,7 @@ impl Step for MeasureStep {
         out.declared = fitted.declared;
         out.suggestions = diagnosis.suggestions;
         out.residuals = diagnosis.residuals;
+        out.warnings = super::structure_checks::measure_warnings(&out, &input.correlation, &cov.items);
         Ok(Artifact::Measure(Box::new(out)))
     }
 
@@ -406,6 +425,7 @@ pub fn summarise(
         heywood,
         estimation,
         unpurified,
+        warnings: Vec::new(),
         declared: Vec::new(),
         suggestions: Vec::new(),
         residuals: Vec::new(),

@@ -19,6 +19,7 @@ pub mod sensitivity;
 pub mod stats_schema;
 pub mod structure;
 pub mod structure_fci;
+pub mod structure_checks;
 pub mod tetrads;
 
 use std::collections::BTreeMap;

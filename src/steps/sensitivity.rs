@@ -28,7 +28,9 @@ use construe_stats::search::EdgeKind;
 /// Bump when sensitivity results change for the same inputs and parameters.
 /// v4: conclusions stored as typed `Statement`s (the artifact's bytes changed; results.json
 /// did not). v5: refits use the measurement model's estimator (robust SEs, `load` an input).
-pub const VERSION: u32 = 5;
+/// v6: `leave_one_out` (conclusions' `holds_without` / `fails_without`); the structural refits
+/// follow structure v5.
+pub const VERSION: u32 = 6;
 
 /// A statement about the structure that a refit either repeats or contradicts. Compared as a
 /// value; `Display` gives its words (results.json and the report show those).
@@ -126,6 +128,11 @@ pub struct Conclusion {
     pub prior_probability: Option<f64>,
     /// Alpha values (from `sensitivity.alpha`) at which it holds.
     pub holds_for_alpha: Vec<f64>,
+    /// With `leave_one_out`: the items whose omission (one at a time, refit and search again)
+    /// leaves the conclusion standing.
+    pub holds_without: Vec<String>,
+    /// With `leave_one_out`: the items whose omission overturns it.
+    pub fails_without: Vec<String>,
 }
 
 /// One effect's estimate along one construct's reliability grid, for the plot.
@@ -164,6 +171,9 @@ pub struct SensitivityOutput {
     pub failed: usize,
     /// The first few reasons.
     pub failures: Vec<String>,
+    /// With `leave_one_out`: the items left out one at a time (kept items of constructs with at
+    /// least 3 of them).
+    pub left_out: Vec<String>,
 }
 
 pub struct SensitivityStep {
@@ -191,7 +201,18 @@ impl SensitivityStep {
         alpha: Option<f64>,
         shared: &Arc<SharedAcov>,
     ) -> Result<StructureOutput, StepError> {
-        let mut measure = self.measure.sharing(shared.clone());
+        self.refit_with(self.measure.sharing(shared.clone()), inputs, reliabilities, alpha, shared)
+    }
+
+    /// `refit` from a given measurement step (leave-one-out passes one without an item).
+    fn refit_with(
+        &self,
+        mut measure: MeasureStep,
+        inputs: &Inputs<'_>,
+        reliabilities: &[(String, f64)],
+        alpha: Option<f64>,
+        shared: &Arc<SharedAcov>,
+    ) -> Result<StructureOutput, StepError> {
         let mut structure = self.structure.sharing(shared.clone());
         for (c, r) in reliabilities {
             measure = measure.with_reliability(c, *r);
@@ -293,6 +314,8 @@ impl Step for SensitivityStep {
                 tipping: IndexMap::new(),
                 prior_probability: None,
                 holds_for_alpha: Vec::new(),
+                holds_without: Vec::new(),
+                fails_without: Vec::new(),
             })
             .collect();
         let mut curves = Vec::new();
@@ -400,6 +423,31 @@ impl Step for SensitivityStep {
                     (!ok.is_empty()).then(|| ok.iter().filter(|v| holds(&c.what, v)).count() as f64 / ok.len() as f64);
             }
         }
+        let mut left_out = Vec::new();
+        if self.params.leave_one_out {
+            let Some(Artifact::Measure(m)) = inputs.artifacts.get(&StepKind::Measure) else {
+                return Err(StepError::MissingInput { step: StepKind::Sensitivity, needs: StepKind::Measure });
+            };
+            left_out = m.constructs.values().filter(|items| items.len() >= 3).flatten().cloned().collect();
+            let fits: Vec<Option<Vec<Statement>>> = left_out
+                .par_iter()
+                .map(|item| {
+                    let measure = self.measure.sharing(shared.clone()).without_item(item);
+                    note(format!("without {item}"), self.refit_with(measure, inputs, &[], None, &shared))
+                        .map(|s| statements(&s))
+                })
+                .collect();
+            failed += fits.iter().filter(|f| f.is_none()).count();
+            for c in conclusions.iter_mut() {
+                for (item, fit) in left_out.iter().zip(&fits) {
+                    match fit {
+                        Some(v) if holds(&c.what, v) => c.holds_without.push(item.clone()),
+                        Some(_) => c.fails_without.push(item.clone()),
+                        None => {}
+                    }
+                }
+            }
+        }
         let mut failures = failures.into_inner().unwrap_or_default();
         failures.sort();
         Ok(Artifact::Sensitivity(Box::new(SensitivityOutput {
@@ -409,6 +457,7 @@ impl Step for SensitivityStep {
             seed: self.params.seed,
             failed,
             failures,
+            left_out,
         })))
     }
 
@@ -441,6 +490,8 @@ mod tests {
             tipping: IndexMap::new(),
             prior_probability: None,
             holds_for_alpha: Vec::new(),
+            holds_without: Vec::new(),
+            fails_without: Vec::new(),
         }
     }
 

@@ -10,14 +10,16 @@ use serde_json::{Value, json};
 
 use std::sync::Arc;
 
-use super::constructs::{EstimationRecord, ModelInput, Plan, SharedAcov, fit_constructs, pair_methods};
+use super::constructs::{EstimationRecord, Latents, ModelInput, Plan, SharedAcov, fit_latents, pair_methods};
+use super::structure_checks::{
+    ClaimsTest, ConflictRecord, StructureWarning, claims_test, collider_rule, conflict_records, fit_warnings,
+};
 use super::{Artifact, Inputs, Step, StepError, StepKind};
 use crate::spec::SpecFile;
-use crate::spec::types::{CiTest as CiTestKind, Impurities, Knowledge as KnowledgeSpec, Search, StructureSpec};
+use crate::spec::types::{CiTest as CiTestKind, Colliders, Impurities, Knowledge as KnowledgeSpec, Search, StructureSpec};
 use construe_stats::bvn::Z_975;
 use construe_stats::search::{
-    CiTest, ColliderRule, EdgeKind, FisherZ, Knowledge, KnowledgeError, PcOptions, Reason, WaldPartial, enumerate_dags,
-    pc,
+    CiTest, EdgeKind, FisherZ, Knowledge, KnowledgeError, PcOptions, Reason, WaldPartial, enumerate_dags, pc,
 };
 use construe_stats::sem::{FitIndices, Matrix, ParameterKind};
 
@@ -27,7 +29,10 @@ use construe_stats::sem::{FitIndices, Matrix, ParameterKind};
 /// Wald tests read measure's robust latent covariance; `estimation` record added.
 /// v5: the structural fits model the declared impurities (`impurities:`).
 /// v6: `search` (pc | fci | both) and the FCI result (`fci`); edges may carry marks.
-pub const VERSION: u32 = 6;
+/// v7: each member is fitted as exactly its DAG (no free covariance between constructs the
+/// graph separates, exogenous ones included); the claims test, conflicts, warnings and the
+/// collider rule (default conservative) added.
+pub const VERSION: u32 = 7;
 
 /// Class members fitted at most (the rest are counted, not fitted).
 const MAX_MEMBERS: usize = 8;
@@ -99,6 +104,10 @@ pub struct MemberFit {
     pub effects: Vec<EffectRecord>,
     /// Construct -> variance explained.
     pub r_squared: IndexMap<String, f64>,
+    /// This member against the measurement model: the joint test of the graph's independences.
+    pub claims_test: Option<ClaimsTest>,
+    /// Implausible estimates of this member's fit.
+    pub warnings: Vec<StructureWarning>,
 }
 
 /// The structure among the constructs: PC search, then a structural model of each member of the
@@ -139,6 +148,17 @@ pub struct StructureOutput {
     /// FCI's result, when `search` is `fci` or `both`.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub fci: Option<super::structure_fci::FciOutput>,
+    /// How unshielded triples were judged colliders.
+    pub colliders: Colliders,
+    /// Unshielded triples whose marks conflict (the tests contradict each other or the knowledge).
+    pub conflicts: Vec<ConflictRecord>,
+    /// The first member against the measurement model (all constructs correlated): the
+    /// chi-square difference on one df per non-adjacent pair, the joint test of every
+    /// independence the search claims.
+    pub claims_test: Option<ClaimsTest>,
+    /// Implausible estimates of the first member's fit (standardized effects beyond ±1, R²
+    /// outside 0 to 1, negative variances).
+    pub warnings: Vec<StructureWarning>,
 }
 
 #[derive(Clone)]
@@ -235,7 +255,7 @@ impl Step for StructureStep {
     }
 
     fn params(&self) -> Value {
-        json!({"alpha": self.params.alpha, "test": self.params.test, "search": self.params.search, "knowledge": self.knowledge, "reliabilities": self.reliabilities, "impurities": self.impurities})
+        json!({"alpha": self.params.alpha, "test": self.params.test, "search": self.params.search, "colliders": self.params.colliders, "knowledge": self.knowledge, "reliabilities": self.reliabilities, "impurities": self.impurities})
     }
 
     fn inputs(&self) -> Vec<StepKind> {
@@ -268,8 +288,10 @@ impl Step for StructureStep {
             }
             Search::Both => Some(super::structure_fci::search(test.as_ref(), &knowledge, &names, self.params.alpha)?),
         };
-        let options = PcOptions { alpha: self.params.alpha, max_cond: None, colliders: ColliderRule::Standard };
+        let colliders = collider_rule(self.params.colliders);
+        let options = PcOptions { alpha: self.params.alpha, max_cond: None, colliders };
         let result = pc(test.as_ref(), &knowledge, &options).map_err(err("the PC search"))?;
+        let conflicts = conflict_records(&result, &names);
         let edges = result
             .edges
             .iter()
@@ -308,18 +330,29 @@ impl Step for StructureStep {
         let input = ModelInput::with_plan(inputs.load()?, cov, plan, &items, self.shared.as_deref())?;
         let mut estimation = None;
         let mut members = Vec::new();
+        // The measurement model, refitted with this step's reliabilities: what the claims test compares with.
+        let measured = fit_latents(
+            &constructs,
+            &input,
+            measure.identification,
+            Latents::Correlated,
+            &self.impurities,
+            "the measurement model",
+        )?;
+        let (measurement, measurement_correction) = (measured.fit, measured.correction);
         for dag in &class.dags {
             let paths: Vec<(usize, usize)> =
                 dag.edges().iter().filter(|e| e.is_directed()).map(|e| (e.from, e.to)).collect();
-            let fitted = fit_constructs(
+            let fitted = fit_latents(
                 &constructs,
                 &input,
                 measure.identification,
-                &paths,
+                Latents::Dag(&paths),
                 &self.impurities,
                 "the structural model",
             )?;
-            let (fit, correction) = (fitted.fit, fitted.correction);
+            let (fit, observed, correction) = (fitted.fit, fitted.observed, fitted.correction);
+            let claims = claims_test((&fit, correction.as_ref()), (&measurement, measurement_correction.as_ref()));
             if estimation.is_none() {
                 estimation = Some(EstimationRecord::new(
                     "structural model",
@@ -344,7 +377,7 @@ impl Step for StructureStep {
                 })
                 .collect();
             let moments = fit.latent_moments();
-            let r_squared = paths
+            let r_squared: IndexMap<String, f64> = paths
                 .iter()
                 .map(|&(_, to)| to)
                 .collect::<std::collections::BTreeSet<_>>()
@@ -356,7 +389,9 @@ impl Step for StructureStep {
                 converged: fit.converged,
                 fit: fit.indices.clone(),
                 effects,
+                warnings: fit_warnings(&fit, &names, &observed, &r_squared),
                 r_squared,
+                claims_test: claims,
             });
         }
         let first = members.first();
@@ -372,10 +407,14 @@ impl Step for StructureStep {
             r_squared: first.map(|m| m.r_squared.clone()).unwrap_or_default(),
             class_size: class.dags.len(),
             class_complete: class.complete,
+            claims_test: first.and_then(|m| m.claims_test.clone()),
+            warnings: first.map(|m| m.warnings.clone()).unwrap_or_default(),
             members,
             estimation,
             search: self.params.search,
             fci,
+            colliders: self.params.colliders,
+            conflicts,
         })))
     }
 

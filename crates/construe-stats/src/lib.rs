@@ -7,6 +7,7 @@ pub mod bootstrap;
 pub mod bvn;
 pub mod cluster;
 pub mod disclosure;
+pub mod discriminant;
 pub mod error;
 pub mod fdr;
 pub mod groups_ordinal;

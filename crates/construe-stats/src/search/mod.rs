@@ -7,6 +7,7 @@
 //! Everything works on node indices and matrices; names, specs and reports live elsewhere.
 
 pub mod ci;
+pub mod conflicts;
 pub mod enumerate;
 pub mod fci;
 mod fci_rules;
@@ -17,6 +18,7 @@ pub mod pag;
 pub mod pc;
 
 pub use ci::{CiResult, CiTest, DSepOracle, FisherZ, WaldPartial};
+pub use conflicts::{TripleConflict, TripleConflictKind, triple_conflicts};
 pub use enumerate::{Enumeration, enumerate_dags};
 pub use fci::{FciOptions, FciResult, HiddenDSepOracle, MarkReason, fci};
 pub use graph::{Edge, EdgeKind, Graph, Link};

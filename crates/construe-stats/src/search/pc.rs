@@ -110,6 +110,9 @@ pub struct Triple {
     pub c: usize,
     pub b: usize,
     pub kind: TripleKind,
+    /// Conservative and majority rules: (separating sets containing c, separating sets found)
+    /// among the subsets of adj(a) and adj(b); `None` under the standard rule (one set read).
+    pub sepsets: Option<(usize, usize)>,
 }
 
 /// Why a proposed collider orientation `from -> to` was not made.
@@ -185,7 +188,8 @@ fn combinations(items: &[usize], k: usize) -> Vec<Vec<usize>> {
 ///    collider overrides knowledge. With `Conservative` or `Majority` this step is also
 ///    order-independent (Colombo & Maathuis 2014); with `Standard` it depends on
 ///    which separating set was found first.
-/// 4. Meek rules R1-R4 to a fixpoint, respecting the knowledge and ambiguous triples. For a
+/// 4. Meek rules R1-R4 to a fixpoint, respecting the knowledge, ambiguous triples and colliders
+///    whose arrowheads a conflict refused (none is read as a non-collider). For a
 ///    consistent PDAG the closure is unique; when sample errors make it inconsistent, the scan
 ///    order (ascending indices) decides, so that step is not order-independent.
 ///
@@ -310,18 +314,18 @@ pub fn pc(test: &dyn CiTest, knowledge: &Knowledge, options: &PcOptions) -> Resu
                 if g.is_adjacent(a, b) {
                     continue;
                 }
-                let kind = match options.colliders {
+                let (kind, sepsets) = match options.colliders {
                     ColliderRule::Standard => match removed.get(&(a, b)).and_then(|r| r.sepset.as_ref()) {
-                        Some(s) if s.contains(&c) => TripleKind::NonCollider,
-                        Some(_) => TripleKind::Collider,
-                        None => TripleKind::Ambiguous,
+                        Some(s) if s.contains(&c) => (TripleKind::NonCollider, None),
+                        Some(_) => (TripleKind::Collider, None),
+                        None => (TripleKind::Ambiguous, None),
                     },
                     rule => {
                         let (with_c, total) = count_sepsets(test, &g, a, b, c, options, &mut tests_run)?;
-                        judge(rule, with_c, total)
+                        (judge(rule, with_c, total), Some((with_c, total)))
                     }
                 };
-                triples.push(Triple { a, c, b, kind });
+                triples.push(Triple { a, c, b, kind, sepsets });
             }
         }
     }
@@ -347,8 +351,10 @@ pub fn pc(test: &dyn CiTest, knowledge: &Knowledge, options: &PcOptions) -> Resu
         }
     }
 
+    // Meek's R1 reads an unshielded triple as a non-collider; only those judged so may be read
+    // that way (a collider whose arrowheads a conflict refused is not one).
     let ambiguous: Vec<(usize, usize, usize)> =
-        triples.iter().filter(|t| t.kind == TripleKind::Ambiguous).map(|t| (t.a, t.c, t.b)).collect();
+        triples.iter().filter(|t| t.kind != TripleKind::NonCollider).map(|t| (t.a, t.c, t.b)).collect();
     for o in meek::apply(&mut g, knowledge, &ambiguous) {
         reasons.insert((o.from, o.to), Reason::Meek(o.rule));
     }

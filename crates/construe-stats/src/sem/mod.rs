@@ -13,6 +13,7 @@ pub mod jacobian;
 pub mod linalg;
 pub mod model;
 pub mod modification;
+pub mod nested;
 pub mod robust;
 pub mod standardized;
 pub mod start;
@@ -21,6 +22,7 @@ pub use fit::{FitOptions, Heywood, HeywoodKind, LatentMoments, ParameterEstimate
 pub use indices::{BaselineFit, FitIndices, fit_indices, ncx2_cdf, rmsea_interval};
 pub use model::{Identification, Matrix, Param, ParamLayout, ParameterKind, SemModel};
 pub use modification::{Discrepancy, Judgement, Modification, Residual, modification_indices, standardized_residuals};
+pub use nested::{DifferenceMethod, Fitted, NestedTest, difference};
 pub use robust::{Correction, RobustFit, StatisticCorrection, Subset, fit_dwls, ml_sandwich, robust_indices};
 
 #[cfg(test)]

@@ -213,7 +213,7 @@ impl SemModel {
 
     /// Full recursive SEM: the `cfa` measurement model plus the latent paths `paths`, each
     /// `(from, to)` meaning latent `from` affects latent `to`. Covariances are free among the
-    /// exogenous latents (no incoming path) only; disturbances of endogenous latents are
+    /// exogenous latents (no incoming path) only (`dag` fixes those too); disturbances of endogenous latents are
     /// uncorrelated with each other and with the exogenous latents (Bollen 1989, ch. 4 defaults).
     /// Under `UnitLatentVariance` an endogenous latent's *residual* variance is the one fixed at 1.
     pub fn sem(
@@ -269,6 +269,41 @@ impl SemModel {
         self.psi = psi;
         self.latent_names.push(name.to_string());
         m
+    }
+
+    /// The structural model a DAG among the latents implies: `sem` with the paths `paths`
+    /// (which must form a DAG), and every latent covariance fixed at zero, those among exogenous
+    /// latents included. In a DAG two latents without parents are not adjacent, so the graph
+    /// says they are independent; `sem` leaves their covariances free and so never tests those
+    /// missing edges. Here every non-adjacent pair of latents is one restriction: the model's
+    /// df are those of the `cfa` measurement model plus the number of non-adjacent pairs (the
+    /// m(m - 1)/2 free covariances are replaced by one path per edge, whatever the
+    /// identification: a unit variance of an exogenous latent becomes a unit residual variance
+    /// of an endogenous one). A latent without paths (isolated in the DAG) is uncorrelated with
+    /// all others. Paths must not repeat a pair; a cycle is refused.
+    pub fn dag(
+        groups: &[Vec<usize>],
+        p: usize,
+        identification: Identification,
+        paths: &[(usize, usize)],
+    ) -> Result<Self, StatsError> {
+        let m = groups.len();
+        let mut seen = std::collections::BTreeSet::new();
+        for &(from, to) in paths {
+            if from < m && to < m && !seen.insert((from.min(to), from.max(to))) {
+                return Err(StatsError::InvalidInput(format!("latents {from} and {to} are joined by two paths")));
+            }
+        }
+        if has_cycle(m, paths) {
+            return Err(StatsError::InvalidInput("the latent paths form a cycle".into()));
+        }
+        let mut model = SemModel::sem(groups, p, identification, paths)?;
+        for k in 0..m {
+            for l in 0..k {
+                model.set_latent_covariance(k, l, Param::Fixed(0.0));
+            }
+        }
+        Ok(model)
     }
 
     /// Replace the default names (`x1..`, `f1..`); lengths must match p and m.
@@ -486,4 +521,24 @@ impl ModelMatrices {
             Matrix::Theta => &mut self.theta,
         }
     }
+}
+
+/// Whether the directed edges `paths` among `m` nodes contain a cycle (Kahn's algorithm).
+fn has_cycle(m: usize, paths: &[(usize, usize)]) -> bool {
+    let mut indegree = vec![0usize; m];
+    for &(_, to) in paths.iter().filter(|(f, t)| *f < m && *t < m) {
+        indegree[to] += 1;
+    }
+    let mut ready: Vec<usize> = (0..m).filter(|&k| indegree[k] == 0).collect();
+    let mut done = 0;
+    while let Some(k) = ready.pop() {
+        done += 1;
+        for &(_, to) in paths.iter().filter(|(f, t)| *f == k && *t < m) {
+            indegree[to] -= 1;
+            if indegree[to] == 0 {
+                ready.push(to);
+            }
+        }
+    }
+    done < m
 }

@@ -65,6 +65,26 @@ pub fn start_values(model: &SemModel, layout: &ParamLayout, s: &DMatrix<f64>) ->
         sum_cov(&weights[k], &weights[l]) / (vk * vl).sqrt() * scale[k] * scale[l]
     });
     let psi_pd = latent0.clone().cholesky().is_some();
+    // Paths start at each latent's regression on its parents in `latent0` (when that is
+    // positive definite): at zero, a latent measured by two items whose only link to the rest is
+    // a path (all its covariances fixed, as in `SemModel::dag`) has loadings the information
+    // cannot separate, and the first step fails.
+    let mut beta0 = DMatrix::<f64>::zeros(m, m);
+    if psi_pd {
+        for j in 0..m {
+            let parents: Vec<usize> = (0..m).filter(|&k| model.param(Matrix::Beta, j, k).is_free()).collect();
+            if parents.is_empty() {
+                continue;
+            }
+            let spp = DMatrix::from_fn(parents.len(), parents.len(), |a, b| latent0[(parents[a], parents[b])]);
+            let spj = DMatrix::from_fn(parents.len(), 1, |a, _| latent0[(parents[a], j)]);
+            if let Some(b) = spp.cholesky().map(|c| c.solve(&spj)) {
+                for (a, &k) in parents.iter().enumerate() {
+                    beta0[(j, k)] = b[(a, 0)];
+                }
+            }
+        }
+    }
     let mut sums = vec![0.0; layout.len()];
     let mut counts = vec![0usize; layout.len()];
     for e in &layout.entries {
@@ -72,7 +92,8 @@ pub fn start_values(model: &SemModel, layout: &ParamLayout, s: &DMatrix<f64>) ->
             Matrix::Lambda => loading[(e.row, e.col)],
             Matrix::Theta if e.row == e.col => theta0[e.row],
             Matrix::Psi if e.row == e.col || psi_pd => latent0[(e.row, e.col)],
-            Matrix::Theta | Matrix::Psi | Matrix::Beta => 0.0,
+            Matrix::Beta => beta0[(e.row, e.col)],
+            Matrix::Theta | Matrix::Psi => 0.0,
         };
         sums[e.index] += v;
         counts[e.index] += 1;
