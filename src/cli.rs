@@ -104,7 +104,8 @@ pub enum Command {
         /// Random seed (default: the model's `seed`); the same seed gives identical output
         #[arg(long)]
         seed: Option<u64>,
-        /// Replace a constant column's value, e.g. `--set wave=autumn` (repeatable)
+        /// Replace a constant column's value, e.g. `--set wave=autumn`, or the id column's first
+        /// value, e.g. `--set rider_id=601` (repeatable)
         #[arg(long, value_name = "NAME=VALUE")]
         set: Vec<String>,
     },

@@ -1,6 +1,6 @@
 //! Measurement invariance across waves and groups (issue 18): the ladder, the freed
 //! parameters and the latent means in results.json and the report; grouping by a column;
-//! refusals (shared respondents, ordinal items, one wave, an unknown column) with clear
+//! 5-point items by the threshold model; refusals (shared respondents, one wave, an unknown column) with clear
 //! messages; `diff` naming the change in means and verdicts.
 
 use construe::stats::testkit;
@@ -154,16 +154,28 @@ fn groups_from_a_column() {
     assert!(c.read("reports/rider-waves/v1/report.md").contains("The structure search in each group"));
 }
 
-// 5-point items need the threshold model: a clear refusal naming the items.
+// 5-point items: the threshold model (Wu & Estabrook 2016 identification) on each wave's
+// thresholds and polychorics. b2's latent response is shifted by 0.6 in autumn, which the
+// fixed category cut-offs turn into shifted thresholds: the ladder frees b2 and reports
+// comfort's drop (-0.4 SD) with an interval that covers it.
 #[test]
-fn ordinal_items_are_refused_clearly() {
+fn five_point_items_are_compared_by_their_thresholds() {
     let c = two_waves(1001, true);
-    c.run(["run", "spec.yaml"])
-        .failure(1)
-        .stderr_contains(
-            "measurement invariance is not yet available for ordinal items (a1, a2, a3, a4, b1, b2, b3, b4)",
-        )
-        .no_report();
+    c.run(["run", "spec.yaml"]).success();
+    let r = results(&c);
+    let inv = &r["invariance"];
+    assert!(inv["estimator"].as_str().unwrap().contains("thresholds"), "{inv}");
+    assert_eq!(inv["items_left_out"], serde_json::json!([]));
+    let flagged: Vec<&str> =
+        inv["noninvariant"].as_array().unwrap().iter().map(|f| f["item"].as_str().unwrap()).collect();
+    assert_eq!(flagged, ["b2"], "{inv}");
+    let comfort = inv["latent_means"].as_array().unwrap().iter().find(|m| m["construct"] == "comfort").unwrap();
+    let (lo, hi) = (comfort["ci"][0].as_f64().unwrap(), comfort["ci"][1].as_f64().unwrap());
+    assert!(lo < -0.4 && -0.4 < hi && hi < 0.0, "{comfort}");
+    let loyalty = inv["latent_means"].as_array().unwrap().iter().find(|m| m["construct"] == "loyalty").unwrap();
+    let (lo, hi) = (loyalty["ci"][0].as_f64().unwrap(), loyalty["ci"][1].as_f64().unwrap());
+    assert!(lo < 0.0 && 0.0 < hi, "{loyalty}");
+    c.run(["verify", "reports/rider-waves/v1"]).success();
 }
 
 // `check`: one wave only, an unknown reference and an unknown grouping column, each positioned.

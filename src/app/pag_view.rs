@@ -79,7 +79,14 @@ pub fn diagram_of_both(spec: &SpecFile, execution: &Execution) -> Option<String>
         .edges
         .iter()
         .filter_map(|e| {
-            Some(Link { from: index(&e.from)?, to: index(&e.to)?, kind: e.kind, coefficient: None, support: None })
+            Some(Link {
+                from: index(&e.from)?,
+                to: index(&e.to)?,
+                kind: e.kind,
+                coefficient: None,
+                support: None,
+                conflict: false,
+            })
         })
         .collect();
     Some(diagram(&nodes, &links, &[]))

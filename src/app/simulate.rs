@@ -27,6 +27,8 @@ pub enum SimulateError {
     UnknownConstant { name: String, known: String },
     #[error("`--set` expects NAME=VALUE, found `{0}`")]
     BadSet(String),
+    #[error("`--set {name}={value}`: the id column's first value must be a whole number")]
+    BadIdStart { name: String, value: String },
     #[error("output `{}` must end in .csv or .parquet", path.display())]
     Unsupported { path: PathBuf },
     #[error("cannot write `{}`\n  caused by: {reason}", path.display())]
@@ -105,6 +107,12 @@ pub fn simulate(req: &SimulateRequest<'_>) -> Result<usize, SimulateError> {
     })?;
     for pair in req.set {
         let (name, value) = pair.split_once('=').ok_or_else(|| SimulateError::BadSet(pair.clone()))?;
+        // The id column's name sets its first value (e.g. a second wave of other respondents).
+        if let Some(id) = file.model.id.as_mut().filter(|id| id.name == name) {
+            id.start =
+                value.parse().map_err(|_| SimulateError::BadIdStart { name: name.into(), value: value.into() })?;
+            continue;
+        }
         let known = file.model.constants.iter().map(|c| format!("`{}`", c.name)).collect::<Vec<_>>().join(", ");
         let constant = file
             .model

@@ -869,7 +869,7 @@ mod pag_tests {
             node("punctuality", 1, &["pu1", "pu2", "pu3"]),
             node("trust", 2, &["tr1", "tr2", "tr3"]),
         ];
-        let link = |from, to, kind| Link { from, to, kind, coefficient: None, support: None };
+        let link = |from, to, kind| Link { from, to, kind, coefficient: None, support: None, conflict: false };
         let links = vec![
             link(0, 1, EdgeKind::PartiallyDirected),
             link(1, 2, EdgeKind::Bidirected),

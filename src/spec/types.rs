@@ -512,7 +512,6 @@ pub enum Search {
     Both,
 }
 
-
 /// How the structure search judges an unshielded triple a - c - b a collider a -> c <- b.
 #[derive(Debug, Clone, Copy, Default, Serialize, Deserialize, PartialEq, Eq, JsonSchema)]
 #[serde(rename_all = "snake_case")]

@@ -6,6 +6,7 @@
 //! read here as labels (only they; `load`'s artifact and key stay as they are), every number
 //! comes from `construe_stats`. Refuses waves that share respondents (ids in two groups).
 
+use std::borrow::Cow;
 use std::collections::{BTreeMap, BTreeSet, HashMap};
 use std::path::PathBuf;
 
@@ -23,7 +24,9 @@ use crate::spec::SpecFile;
 use crate::spec::types::{ACROSS_WAVES, InvarianceSpec, Knowledge as KnowledgeSpec};
 use crate::spec::validate_invariance::MIN_GROUP_ROWS;
 use construe_stats::groups_continuous::{ContinuousEngine, ContinuousOptions, GroupMoments};
+use construe_stats::groups_ordinal::{GroupData, OrdinalGroups};
 use construe_stats::invariance::{GroupDesign, Ladder, LadderNote, LadderOptions, Level, ParamKind, run_ladder};
+use construe_stats::mixed::MISSING_CODE;
 
 /// Bump when the ladder's results change for the same rows and parameters.
 pub const VERSION: u32 = 1;
@@ -51,12 +54,6 @@ pub enum InvarianceError {
     /// A column read for the groups does not have one value per loaded row.
     #[error("column `{column}` of `{}` has {found} rows, but {expected} were loaded from it", path.display())]
     RowMismatch { column: String, path: PathBuf, found: usize, expected: usize },
-    /// Ordinal items need the threshold model, not available in this build.
-    #[error(
-        "measurement invariance is not yet available for ordinal items ({}); it needs the threshold model for ordered categories",
-        .items.join(", ")
-    )]
-    Ordinal { items: Vec<String> },
     /// No construct has the two items a multi-group model needs.
     #[error("no construct has at least two items, so no measurement model can be compared across groups")]
     NoConstructs,
@@ -235,6 +232,10 @@ pub struct InvarianceOutput {
     pub constructs: IndexMap<String, Vec<String>>,
     /// Constructs with fewer than two items, which a multi-group model cannot compare.
     pub constructs_left_out: Vec<String>,
+    /// Items of the other scale, left out: one model compares either ordinal items (by their
+    /// thresholds) or continuous ones (by their intercepts), whichever are more numerous.
+    #[serde(default)]
+    pub items_left_out: Vec<String>,
     /// How the models were estimated.
     pub estimator: String,
     /// Significance level of the difference and score tests.
@@ -365,30 +366,38 @@ impl Step for InvarianceStep {
         let rows = table.rows();
         // Constructs and items: purification's kept items where it ran.
         let kept = if self.purified { Some(inputs.purify()?.kept()) } else { None };
+        // One model takes one kind of item: the threshold model ordinal items, the
+        // mean-structure model continuous ones. With both kinds, the more numerous kind is
+        // compared and the others are listed as left out.
+        let is_ordinal =
+            |item: &String| load.summary.items.iter().any(|s| &s.name == item && s.kind == ItemKind::Ordinal);
+        let candidates: Vec<(String, Vec<String>)> = self
+            .declared
+            .iter()
+            .map(|(name, items)| {
+                (name.clone(), kept.as_ref().and_then(|k| k.get(name).cloned()).unwrap_or_else(|| items.clone()))
+            })
+            .collect();
+        let all: Vec<&String> = candidates.iter().flat_map(|(_, items)| items).collect();
+        let n_ordinal = all.iter().filter(|i| is_ordinal(i)).count();
+        let ordinal_model = 2 * n_ordinal >= all.len() && n_ordinal > 0;
         let mut constructs: IndexMap<String, Vec<String>> = IndexMap::new();
         let mut left_out = Vec::new();
-        for (name, items) in &self.declared {
-            let items = kept.as_ref().and_then(|k| k.get(name).cloned()).unwrap_or_else(|| items.clone());
-            if items.len() >= 2 {
-                constructs.insert(name.clone(), items);
+        let mut items_left_out = Vec::new();
+        for (name, items) in candidates {
+            let (keep, other): (Vec<String>, Vec<String>) =
+                items.into_iter().partition(|i| is_ordinal(i) == ordinal_model);
+            items_left_out.extend(other);
+            if keep.len() >= 2 {
+                constructs.insert(name, keep);
             } else {
-                left_out.push(name.clone());
+                left_out.push(name);
             }
         }
         if constructs.is_empty() {
             return Err(InvarianceError::NoConstructs.into());
         }
         let items: Vec<String> = constructs.values().flatten().cloned().collect();
-        let ordinal: Vec<String> = load
-            .summary
-            .items
-            .iter()
-            .filter(|s| s.kind == ItemKind::Ordinal && items.contains(&s.name))
-            .map(|s| s.name.clone())
-            .collect();
-        if !ordinal.is_empty() {
-            return Err(InvarianceError::Ordinal { items: ordinal }.into());
-        }
 
         // Groups of rows.
         let (column, groups, group_of_row): (String, Vec<String>, Vec<Option<usize>>) = if self.by_column() {
@@ -415,13 +424,93 @@ impl Step for InvarianceStep {
             check_independent(&self.stacked_labels(id, rows)?, &group_of_row, &groups, id)?;
         }
 
-        // Each group's complete rows on the model's items.
         let cols: Vec<&crate::data::Column> = items.iter().filter_map(|i| table.column(i)).collect();
         if cols.len() != items.len() {
             return Err(StepError::ItemNotInMatrix {
                 item: items.iter().find(|i| table.column(i).is_none()).cloned().unwrap_or_default(),
             });
         }
+        let stats = |context: &str| {
+            let context = context.to_string();
+            move |source: construe_stats::StatsError| StepError::Stats { context: context.clone(), source }
+        };
+        let item_construct: Vec<usize> =
+            constructs.values().enumerate().flat_map(|(c, its)| std::iter::repeat_n(c, its.len())).collect();
+        let options = LadderOptions {
+            alpha: self.params.alpha,
+            strict: self.params.strict,
+            partial: self.params.partial,
+            ..LadderOptions::default()
+        };
+        if ordinal_model {
+            // Ordinal items: the threshold model on each group's thresholds and polychoric
+            // correlations, from every answer given (pairwise present).
+            let categories: Vec<Vec<f64>> = items
+                .iter()
+                .map(|i| {
+                    load.summary
+                        .items
+                        .iter()
+                        .find(|s| &s.name == i)
+                        .and_then(|s| s.categories.clone())
+                        .unwrap_or_default()
+                })
+                .collect();
+            let mut codes: Vec<Vec<Vec<u8>>> = vec![vec![Vec::new(); items.len()]; groups.len()];
+            let mut used = 0;
+            for (r, group) in group_of_row.iter().enumerate() {
+                let Some(g) = *group else { continue };
+                used += 1;
+                for (j, c) in cols.iter().enumerate() {
+                    let code = if c.is_missing(r) {
+                        MISSING_CODE
+                    } else {
+                        let v = c.get(r);
+                        categories[j]
+                            .iter()
+                            .position(|&l| l == v)
+                            .and_then(|k| u8::try_from(k).ok())
+                            .unwrap_or(MISSING_CODE)
+                    };
+                    codes[g][j].push(code);
+                }
+            }
+            let min = MIN_GROUP_ROWS.max(items.len() + 1);
+            for (g, data) in codes.iter().enumerate() {
+                let n = data.first().map_or(0, Vec::len);
+                if n < min {
+                    return Err(InvarianceError::SmallGroup { group: groups[g].clone(), rows: n, min }.into());
+                }
+            }
+            let data: Vec<GroupData<'_>> = codes
+                .iter()
+                .map(|g| GroupData { items: g.iter().map(|c| Cow::Borrowed(c.as_slice())).collect() })
+                .collect();
+            let design = GroupDesign {
+                items: items.clone(),
+                constructs: constructs.keys().cloned().collect(),
+                item_construct,
+                groups: groups.clone(),
+                n: codes.iter().map(|g| g.first().map_or(0, Vec::len)).collect(),
+                reference,
+            };
+            let levels: Vec<usize> = categories.iter().map(Vec::len).collect();
+            let engine =
+                OrdinalGroups::new(design, &data, &levels).map_err(stats("the multi-group threshold model"))?;
+            let ladder = run_ladder(&engine, &options).map_err(stats("the invariance ladder"))?;
+            let mut out = summarise(
+                &ladder,
+                &self.params.across,
+                constructs,
+                left_out,
+                rows - used,
+                "DWLS on each group's thresholds and polychoric correlations (every answer given), Wu & Estabrook (2016) identification, robust (scaled-and-shifted) statistics",
+            );
+            out.items_left_out = items_left_out;
+            return Ok(Artifact::Invariance(Box::new(out)));
+        }
+
+        // Continuous items: each group's complete rows on the model's items.
         let mut per_group: Vec<Vec<Vec<f64>>> = vec![vec![Vec::new(); items.len()]; groups.len()];
         let mut used = 0;
         for (r, group) in group_of_row.iter().enumerate() {
@@ -441,17 +530,11 @@ impl Step for InvarianceStep {
                 return Err(InvarianceError::SmallGroup { group: groups[g].clone(), rows: n, min }.into());
             }
         }
-        let stats = |context: &str| {
-            let context = context.to_string();
-            move |source: construe_stats::StatsError| StepError::Stats { context: context.clone(), source }
-        };
         let moments: Vec<GroupMoments> = per_group
             .iter()
             .map(|cols| GroupMoments::from_columns(cols))
             .collect::<Result<_, _>>()
             .map_err(stats("group moments"))?;
-        let item_construct: Vec<usize> =
-            constructs.values().enumerate().flat_map(|(c, its)| std::iter::repeat_n(c, its.len())).collect();
         let design = GroupDesign {
             items: items.clone(),
             constructs: constructs.keys().cloned().collect(),
@@ -462,12 +545,6 @@ impl Step for InvarianceStep {
         };
         let engine = ContinuousEngine::new(design, moments, ContinuousOptions::default())
             .map_err(stats("the multi-group model"))?;
-        let options = LadderOptions {
-            alpha: self.params.alpha,
-            strict: self.params.strict,
-            partial: self.params.partial,
-            ..LadderOptions::default()
-        };
         let ladder = run_ladder(&engine, &options).map_err(stats("the invariance ladder"))?;
         // Per-group structure from the highest rung that holds (latent correlations are free
         // per group on every rung).
@@ -494,6 +571,7 @@ impl Step for InvarianceStep {
             "maximum likelihood with a mean structure, per group (complete rows)",
         );
         out.structure_by_group = structure_by_group;
+        out.items_left_out = items_left_out;
         Ok(Artifact::Invariance(Box::new(out)))
     }
 
@@ -646,6 +724,7 @@ fn summarise(
         rows_left_out,
         constructs,
         constructs_left_out,
+        items_left_out: Vec::new(),
         estimator: estimator.to_string(),
         alpha: ladder.options.alpha,
         levels,

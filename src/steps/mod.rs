@@ -6,8 +6,8 @@
 pub mod constructs;
 pub mod covariance;
 pub mod discover;
-pub mod impurities;
 pub mod group_structure;
+pub mod impurities;
 pub mod invariance;
 pub mod load;
 pub mod measure;
@@ -18,8 +18,8 @@ pub mod sampling;
 pub mod sensitivity;
 pub mod stats_schema;
 pub mod structure;
-pub mod structure_fci;
 pub mod structure_checks;
+pub mod structure_fci;
 pub mod tetrads;
 
 use std::collections::BTreeMap;

@@ -206,7 +206,8 @@ pub struct PurifyStep {
 /// tetrads over these pairs out, so a declared impurity is modelled by `measure`, not dropped.
 fn declared_pairs(file: &SpecFile) -> Vec<(String, String)> {
     let declared = &file.spec.impurities;
-    let mut pairs: Vec<(String, String)> = declared.correlated_errors.iter().map(|[a, b]| (a.clone(), b.clone())).collect();
+    let mut pairs: Vec<(String, String)> =
+        declared.correlated_errors.iter().map(|[a, b]| (a.clone(), b.clone())).collect();
     for items in declared.method_factors.values() {
         for (k, a) in items.iter().enumerate() {
             pairs.extend(items[k + 1..].iter().map(|b| (a.clone(), b.clone())));
@@ -424,7 +425,8 @@ mod tests {
         let spec = "construe: 1\ntitle: t\ndata:\n  waves: [{id: w, file: w.csv}]\nconstructs:\n  a: {items: [a1, a2, a3, a4]}\n  b: {items: [b1, b2, b3]}\nimpurities:\n  correlated_errors: [[a1, a2]]\n  cross_loadings: [{item: a4, also: b}]\n  method_factors: {reversed: [a3, b2, b3]}\n";
         let dir = tempfile::tempdir().unwrap();
         let file = SpecFile::parse(&dir.path().join("spec.yaml"), spec.into()).unwrap();
-        let pairs: Vec<(&str, &str)> = declared_pairs(&file).iter().map(|(a, b)| (a.as_str(), b.as_str())).collect();
+        let declared = declared_pairs(&file);
+        let pairs: Vec<(&str, &str)> = declared.iter().map(|(a, b)| (a.as_str(), b.as_str())).collect();
         assert_eq!(
             pairs,
             [("a1", "a2"), ("a3", "b2"), ("a3", "b3"), ("b2", "b3"), ("a4", "b1"), ("a4", "b2"), ("a4", "b3")]

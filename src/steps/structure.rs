@@ -16,7 +16,9 @@ use super::structure_checks::{
 };
 use super::{Artifact, Inputs, Step, StepError, StepKind};
 use crate::spec::SpecFile;
-use crate::spec::types::{CiTest as CiTestKind, Colliders, Impurities, Knowledge as KnowledgeSpec, Search, StructureSpec};
+use crate::spec::types::{
+    CiTest as CiTestKind, Colliders, Impurities, Knowledge as KnowledgeSpec, Search, StructureSpec,
+};
 use construe_stats::bvn::Z_975;
 use construe_stats::search::{
     CiTest, EdgeKind, FisherZ, Knowledge, KnowledgeError, PcOptions, Reason, WaldPartial, enumerate_dags, pc,

@@ -249,16 +249,18 @@ pub fn fit_warnings(
             });
         }
     }
+    // Latents beyond the constructs are declared method factors (`impurities:`).
+    let latent = |k: usize| names.get(k).map_or("a method factor", String::as_str);
     for h in &fit.heywood {
         let (kind, what) = match (h.kind, h.entry) {
             (HeywoodKind::NonPositiveErrorVariance, Some((_, r, _))) => {
                 (WarningKind::NegativeVariance, format!("error variance of {}", observed[r]))
             }
             (HeywoodKind::NonPositiveLatentVariance, Some((_, r, _))) => {
-                (WarningKind::NegativeVariance, format!("(residual) variance of {}", names[r]))
+                (WarningKind::NegativeVariance, format!("(residual) variance of {}", latent(r)))
             }
             (HeywoodKind::StandardizedLoadingAboveOne, Some((_, r, c))) => {
-                (WarningKind::StandardizedBeyondOne, format!("loading of {} on {}", observed[r], names[c]))
+                (WarningKind::StandardizedBeyondOne, format!("loading of {} on {}", observed[r], latent(c)))
             }
             (HeywoodKind::ErrorCorrelationAboveOne, Some((_, r, c))) => (
                 WarningKind::StandardizedBeyondOne,
