@@ -207,7 +207,11 @@ fn single_wave_spec(file: &str) -> String {
             out.push_str(&format!("    - {{id: spring, file: {file}}}\n"));
             continue;
         }
-        if line.starts_with("    - {id: autumn") || line.starts_with("  resample:") || line.starts_with("  invariance:") || line.starts_with("  dir:") {
+        if line.starts_with("    - {id: autumn")
+            || line.starts_with("  resample:")
+            || line.starts_with("  invariance:")
+            || line.starts_with("  dir:")
+        {
             continue;
         }
         if line.starts_with("  sensitivity:") {
