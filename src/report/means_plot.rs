@@ -24,6 +24,9 @@ fn ticks(lo: f64, hi: f64) -> Vec<f64> {
     (first..=last).map(|k| (k as f64 * step * 1e10).round() / 1e10).collect()
 }
 
+/// The caption under the axis.
+const AXIS_CAPTION: &str = "difference from the reference group (its SDs), 95% interval";
+
 /// Points and interval whiskers against a zero line, labelled `construct (group)` on the left;
 /// `None` when there is nothing finite to draw. Every text at least 11 px.
 pub fn latent_means_plot(rows: &[MeanRow<'_>]) -> Option<String> {
@@ -35,7 +38,10 @@ pub fn latent_means_plot(rows: &[MeanRow<'_>]) -> Option<String> {
     let label = |r: &MeanRow<'_>| format!("{} ({})", r.construct, r.group);
     let left = 12.0 + rows.iter().map(|r| label(r).chars().count()).max().unwrap_or(1) as f64 * 6.6;
     let (plot_w, row_h, top, bottom, right) = (260.0, 22.0, 10.0, 40.0, 14.0);
-    let w = left + plot_w + right;
+    // The axis caption starts at the left edge; the figure is at least as wide as it
+    // (0.62 em per character, as the diagram's text boxes).
+    let caption_w = 0.62 * 11.0 * AXIS_CAPTION.chars().count() as f64 + 8.0;
+    let w = (left + plot_w + right).max(caption_w);
     let h = top + row_h * rows.len() as f64 + bottom;
     let lo = rows.iter().map(|r| r.ci.0).fold(0.0_f64, f64::min);
     let hi = rows.iter().map(|r| r.ci.1).fold(0.0_f64, f64::max);
@@ -78,8 +84,7 @@ pub fn latent_means_plot(rows: &[MeanRow<'_>]) -> Option<String> {
     }
     let _ = write!(
         s,
-        r#"<text x="{:.1}" y="{:.1}" text-anchor="middle" font-size="11" class="means-label">difference from the reference group (its SDs), 95% interval</text>"#,
-        left + plot_w / 2.0,
+        r#"<text x="4" y="{:.1}" text-anchor="start" font-size="11" class="means-label">{AXIS_CAPTION}</text>"#,
         h - 6.0
     );
     s.push_str("</svg>");
