@@ -436,6 +436,19 @@ impl TetradTester {
         Ok(out)
     }
 
+    /// The quad's three tetrad differences and their asymptotic covariance Omega,
+    /// by the tester's kind (see `quad_chi2`).
+    fn quad_parts(&self, items: [usize; 4]) -> Result<([f64; 3], [[f64; 3]; 3]), StatsError> {
+        check_items(self.n_items(), items)?;
+        let sub = submatrix(&self.cov, items);
+        let t = differences(&sub);
+        let omega = match self.kind {
+            TetradTestKind::Wishart => normal_omega(&sub, self.n_obs),
+            TetradTestKind::Delta | TetradTestKind::Sampling => self.quad_omega(items, &sub)?,
+        };
+        Ok((t, omega))
+    }
+
     /// Chi-square statistic (df 2) of the joint test that all three tetrads of a quad vanish,
     /// from the two independent ones (t1, t2) and their asymptotic covariance Omega
     /// (Bollen & Ting 1993): chi2 = t' Omega^-1 t, p = exp(-chi2 / 2). Omega is the
@@ -446,13 +459,7 @@ impl TetradTester {
     /// plane under every relabelling). A singular Omega falls back to the larger-variance
     /// tetrad alone (a df-1 statistic mapped to the df-2 scale by equal p-value).
     pub fn quad_chi2(&self, items: [usize; 4]) -> Result<f64, StatsError> {
-        check_items(self.n_items(), items)?;
-        let sub = submatrix(&self.cov, items);
-        let t = differences(&sub);
-        let omega = match self.kind {
-            TetradTestKind::Wishart => normal_omega(&sub, self.n_obs),
-            TetradTestKind::Delta | TetradTestKind::Sampling => self.quad_omega(items, &sub)?,
-        };
+        let (t, omega) = self.quad_parts(items)?;
         let (a, b, c) = (omega[0][0], omega[0][1], omega[1][1]);
         let det = a * c - b * b;
         if det > 1e-12 * (a * c).abs() && a > 0.0 && c > 0.0 {
@@ -479,13 +486,7 @@ impl TetradTester {
         if tolerance <= 0.0 {
             return self.quad_chi2(items);
         }
-        check_items(self.n_items(), items)?;
-        let sub = submatrix(&self.cov, items);
-        let t = differences(&sub);
-        let omega = match self.kind {
-            TetradTestKind::Wishart => normal_omega(&sub, self.n_obs),
-            TetradTestKind::Delta | TetradTestKind::Sampling => self.quad_omega(items, &sub)?,
-        };
+        let (t, omega) = self.quad_parts(items)?;
         let (a, b, c) = (omega[0][0], omega[0][1], omega[1][1]);
         let det = a * c - b * b;
         if det > 1e-12 * (a * c).abs() && a > 0.0 && c > 0.0 {

@@ -14,6 +14,7 @@ use super::fci_rules::{Orienter, possible_d_sep};
 use super::graph::Graph;
 use super::knowledge::Knowledge;
 use super::pag::{Mark, Pag, PagEdge};
+use super::pc::combinations;
 use crate::StatsError;
 
 /// Parameters of the search.
@@ -123,26 +124,6 @@ pub struct FciResult {
     pub max_cond: Option<usize>,
     /// Number of conditional-independence tests run.
     pub tests_run: usize,
-}
-
-/// All size-k subsets of `items`, in lexicographic order of positions.
-pub(crate) fn combinations(items: &[usize], k: usize) -> Vec<Vec<usize>> {
-    let n = items.len();
-    if k > n {
-        return Vec::new();
-    }
-    let mut out = Vec::new();
-    let mut pos: Vec<usize> = (0..k).collect();
-    loop {
-        out.push(pos.iter().map(|&p| items[p]).collect());
-        let Some(i) = (0..k).rev().find(|&i| pos[i] != i + n - k) else {
-            return out;
-        };
-        pos[i] += 1;
-        for t in (i + 1)..k {
-            pos[t] = pos[t - 1] + 1;
-        }
-    }
 }
 
 /// The FCI search with background knowledge.

@@ -153,8 +153,8 @@ pub struct PcResult {
     pub tests_run: usize,
 }
 
-/// All size-k subsets of `items`, in lexicographic order of positions.
-fn combinations(items: &[usize], k: usize) -> Vec<Vec<usize>> {
+/// All size-k subsets of `items`, in lexicographic order of positions (also used by FCI).
+pub(crate) fn combinations(items: &[usize], k: usize) -> Vec<Vec<usize>> {
     let n = items.len();
     if k > n {
         return Vec::new();
